@@ -1,0 +1,116 @@
+//! The library's one error type and its `Result` alias.
+//!
+//! Every message is one sentence a person can act on, naming the file, row or column
+//! when the failure comes from data. Misuse by a calling program (for example arrays
+//! whose shapes disagree) panics at the caller's line instead; see each function's
+//! `# Panics` section.
+
+use std::path::PathBuf;
+
+/// Crate-wide result alias.
+pub type Result<T, E = Error> = std::result::Result<T, E>;
+
+/// Everything that can go wrong in kernlake because of data, files or parameters.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum Error {
+    /// A parameter is outside its valid range (C ≤ 0, epsilon < 0, D = 0, …).
+    #[error("invalid value for {name}: {reason}")]
+    InvalidParameter {
+        /// The parameter's name as the user knows it.
+        name: &'static str,
+        /// Why the value was refused.
+        reason: String,
+    },
+
+    /// No usable rows were left to fit on.
+    #[error("no usable rows to fit on: {0}")]
+    NoRows(String),
+
+    /// A non-finite value (NaN or ±inf) reached an in-memory routine.
+    #[error("non-finite value in row {row}, column {column} of the input array")]
+    NonFinite {
+        /// Zero-based row in the array.
+        row: usize,
+        /// Zero-based column in the array.
+        column: usize,
+    },
+
+    /// A numerical routine failed because of the data (for example a landmark kernel
+    /// matrix with no usable eigenvalue, or an eigensolver that did not converge).
+    #[error("numerical failure: {0}")]
+    Numerical(String),
+
+    /// An operating-system error while reading or writing a file.
+    #[error("{}: {source}", path.display())]
+    Io {
+        /// The file or folder concerned.
+        path: PathBuf,
+        /// The underlying error.
+        source: std::io::Error,
+    },
+
+    /// A data file could not be used (corrupt, unreadable, wrong layout).
+    #[error("{}: {message}", path.display())]
+    File {
+        /// The file concerned.
+        path: PathBuf,
+        /// What is wrong with it.
+        message: String,
+    },
+
+    /// A column of a data file could not be used (missing, not numeric, schemas disagree).
+    #[error("{}, column '{column}': {message}", path.display())]
+    Column {
+        /// The file concerned.
+        path: PathBuf,
+        /// The column's name.
+        column: String,
+        /// What is wrong with it.
+        message: String,
+    },
+
+    /// One value in a data file could not be used (missing under the `fail` policy).
+    #[error("{}, row {row}, column '{column}': {message}", path.display())]
+    Cell {
+        /// The file concerned.
+        path: PathBuf,
+        /// One-based row number within that file.
+        row: u64,
+        /// The column's name.
+        column: String,
+        /// What is wrong with the value.
+        message: String,
+    },
+
+    /// A model file could not be loaded or saved.
+    #[error("model file {}: {message}", path.display())]
+    ModelFile {
+        /// The model file.
+        path: PathBuf,
+        /// What is wrong with it.
+        message: String,
+    },
+
+    /// The input does not satisfy the model's input contract.
+    #[error("{0}")]
+    Contract(String),
+}
+
+impl Error {
+    /// Shorthand for [`Error::InvalidParameter`].
+    pub fn invalid(name: &'static str, reason: impl Into<String>) -> Self {
+        Error::InvalidParameter {
+            name,
+            reason: reason.into(),
+        }
+    }
+
+    /// Shorthand for [`Error::Io`].
+    pub fn io(path: impl Into<PathBuf>, source: std::io::Error) -> Self {
+        Error::Io {
+            path: path.into(),
+            source,
+        }
+    }
+}

@@ -1,0 +1,2 @@
+//! The `kernlake` command-line tool.
+fn main() {}
