@@ -1,17 +1,63 @@
-//! kernlake fits non-linear epsilon-insensitive support vector regression on tables far
-//! larger than memory, by mapping inputs into an explicit feature space and training a
-//! linear epsilon-SVR there by dual coordinate descent.
+//! kernlake fits non-linear epsilon-insensitive support vector regression (SVR) on tables
+//! far larger than memory, and scores whole folders of Parquet files with the result.
+//!
+//! Exact kernel SVR needs an n × n kernel matrix and stops at tens of thousands of rows.
+//! kernlake instead maps each standardized input row x into an explicit feature space
+//! z(x) whose inner products approximate the kernel — random Fourier features (Rahimi &
+//! Recht, NIPS 2007), orthogonal random features (Yu et al., NIPS 2016) or Nyström
+//! features (Williams & Seeger, NIPS 2001) — and trains a *linear* epsilon-SVR on z by
+//! dual coordinate descent (Ho & Lin, JMLR 2012), streaming the data block by block
+//! (Yu, Hsieh, Chang & Lin, KDD 2010). An exact SMO solver (Fan, Chen & Lin, JMLR 2005)
+//! lets a user check on a sample that the approximation agrees with the exact machine.
+//!
+//! # Overview
+//! * [`fit::Fitter`] — the front door: fit on ndarray data or stream from files.
+//! * [`data`] — Parquet/CSV sources, partitions, column choice, the survey pass.
+//! * [`kernel`] — exact kernels and the one place their parametrisation is defined.
+//! * [`features`] — the feature maps.
+//! * [`solver`] — dual coordinate descent, the block trainer, exact SMO.
+//! * [`model::Model`] — a fitted model: predict, save, load.
+//! * [`metrics`], [`report`], [`tune`] — figures, reports and data-driven defaults.
+//!
+//! # Example
+//! ```
+//! use kernlake::fit::Fitter;
+//! use ndarray::{Array1, Array2};
+//!
+//! // A smooth non-linear target on one input.
+//! let x = Array2::from_shape_fn((400, 1), |(i, _)| i as f64 / 40.0);
+//! let y: Array1<f64> = x.column(0).mapv(|v| (v).sin() * 10.0);
+//! let model = Fitter::new()
+//!     .with_components(128)
+//!     .with_c(100.0)
+//!     .with_epsilon(0.05)
+//!     .with_seed(3)
+//!     .fit(x.view(), y.view())?;
+//! let pred = model.predict(x.view());
+//! let rmse = ((&pred - &y).mapv(|e| e * e).mean().unwrap()).sqrt();
+//! assert!(rmse < 0.5, "rmse {rmse}");
+//! # Ok::<(), kernlake::Error>(())
+//! ```
+//!
+//! Predictions from a fitted model are an aid for monitoring and planning: they are no
+//! substitute for protective systems, and decisions about equipment follow site
+//! procedures and qualified engineers.
 #![deny(missing_docs)]
 
 pub mod atomic;
+pub mod cli;
 pub mod data;
 pub mod demo;
 pub mod error;
 pub mod features;
+pub mod fit;
 pub mod kernel;
 pub mod metrics;
+pub mod model;
 pub mod modelfile;
+pub mod report;
 pub mod scale;
 pub mod solver;
+pub mod tune;
 
 pub use error::{Error, Result};

@@ -1,0 +1,302 @@
+//! Flags as typed by a person, and their resolution into validated library options.
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand, ValueEnum};
+
+use crate::data::{ColumnSelection, CsvOptions, MissingPolicy};
+use crate::error::{Error, Result};
+use crate::features::{FourierVariant, Landmarks, MapKind, MapSpec};
+use crate::fit::FitOptions;
+use crate::kernel::KernelKind;
+use crate::solver::dcd::Loss;
+
+const ABOUT: &str = "Fit non-linear epsilon-insensitive support vector regression on tables larger \
+than memory (Parquet or CSV), through random Fourier, orthogonal or Nyström features.";
+
+/// kernlake: non-linear epsilon-SVR for data lakes.
+#[derive(Debug, Parser)]
+#[command(name = "kernlake", version, about = ABOUT, after_help = super::SAFETY)]
+pub struct Cli {
+    /// No progress bars or notes; errors are still printed.
+    #[arg(long, short, global = true)]
+    pub quiet: bool,
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The commands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Train a model on Parquet/CSV sources, streaming them block by block.
+    #[command(after_help = super::SAFETY)]
+    Fit(FitArgs),
+    /// Show a model's input columns, parameters and training report.
+    Inspect(InspectArgs),
+    /// Generate the cold-store demo data, fit on all months but the last, and report.
+    #[command(after_help = super::SAFETY)]
+    Demo(DemoArgs),
+}
+
+/// Kernel families on the command line.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum KernelArg {
+    /// exp(-gamma |x-y|²)
+    Gaussian,
+    /// exp(-gamma |x-y|₁)
+    Laplacian,
+    /// Matérn ν = 1/2
+    Matern12,
+    /// Matérn ν = 3/2
+    Matern32,
+    /// Matérn ν = 5/2
+    Matern52,
+}
+
+/// Feature maps on the command line.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum MapArg {
+    /// Random Fourier features (Rahimi & Recht 2007).
+    Fourier,
+    /// Orthogonal random features, Gaussian kernel only (Yu et al. 2016).
+    Orthogonal,
+    /// Nyström landmarks from the sample (Williams & Seeger 2001).
+    Nystrom,
+}
+
+/// Where the sources' columns come from, shared by every command that reads data.
+#[derive(Debug, Args, Clone)]
+pub struct SourceArgs {
+    /// Parquet or CSV files, folders (searched recursively) or glob patterns.
+    #[arg(required = true, value_name = "SOURCE")]
+    pub sources: Vec<String>,
+    /// Input columns, comma separated (default: every numeric column but the target).
+    #[arg(long, value_delimiter = ',', value_name = "COLS")]
+    pub features: Option<Vec<String>>,
+    /// Columns to leave out of the default input set, comma separated.
+    #[arg(long, value_delimiter = ',', value_name = "COLS")]
+    pub exclude: Vec<String>,
+    /// Field separator of CSV sources.
+    #[arg(long, default_value = ",", value_name = "CHAR")]
+    pub delimiter: char,
+    /// What to do with a row holding a null, NaN or infinity in a chosen column.
+    #[arg(long, value_enum, default_value = "skip")]
+    pub missing: MissingArg,
+}
+
+/// Missing-value policies on the command line.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum MissingArg {
+    /// Leave the row out and count it per column.
+    Skip,
+    /// Stop at the first one, naming file, row and column.
+    Fail,
+}
+
+/// `kernlake fit`.
+#[derive(Debug, Args)]
+pub struct FitArgs {
+    #[command(flatten)]
+    pub src: SourceArgs,
+    /// The column to predict.
+    #[arg(long, value_name = "COL")]
+    pub target: String,
+    /// Where to write the model.
+    #[arg(long, short = 'o', value_name = "FILE", default_value = "model.klm")]
+    pub out: PathBuf,
+    /// Also write the training report as JSON here.
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
+    #[command(flatten)]
+    pub model: ModelArgs,
+}
+
+/// Kernel, map and solver settings.
+#[derive(Debug, Args, Clone)]
+pub struct ModelArgs {
+    /// Kernel family.
+    #[arg(long, value_enum, default_value = "gaussian")]
+    pub kernel: KernelArg,
+    /// Kernel width (default: 1 / median squared distance of standardized sample rows).
+    #[arg(long)]
+    pub gamma: Option<f64>,
+    /// Feature map.
+    #[arg(long, value_enum, default_value = "fourier")]
+    pub map: MapArg,
+    /// Number of features D (landmarks for Nyström).
+    #[arg(long, short = 'D', default_value_t = 1024)]
+    pub components: usize,
+    /// Fourier features as cos + random phase instead of sin/cos pairs.
+    #[arg(long)]
+    pub phase: bool,
+    /// Nyström landmarks as k-means centres instead of a uniform sample.
+    #[arg(long)]
+    pub kmeans: bool,
+    /// Penalty C in target units (default: Cherkassky & Ma 2004).
+    #[arg(long)]
+    pub c: Option<f64>,
+    /// Tube half-width in target units (default: Cherkassky & Ma 2004).
+    #[arg(long)]
+    pub epsilon: Option<f64>,
+    /// Loss outside the tube: linear (l1) or squared (l2).
+    #[arg(long, default_value = "l2", value_parser = ["l1", "l2"])]
+    pub loss: String,
+    /// Largest number of passes over the data.
+    #[arg(long, default_value_t = 100)]
+    pub epochs: usize,
+    /// Stop when the relative duality gap is at most this.
+    #[arg(long, default_value_t = 1e-3)]
+    pub tol: f64,
+    /// Coordinate-descent sweeps over each block before the next.
+    #[arg(long, default_value_t = 3)]
+    pub sweeps: usize,
+    /// Seed for every random choice.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Threads for reading and mapping (0 = all cores).
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+    /// Memory for mapped blocks kept between epochs, e.g. 512MiB, 2GiB.
+    #[arg(long, default_value = "1GiB", value_parser = parse_bytes)]
+    pub memory: usize,
+    /// Share of rows held out for validation.
+    #[arg(long, default_value_t = 0.05)]
+    pub holdout: f64,
+    /// Epochs without a holdout improvement before stopping (0 = never).
+    #[arg(long, default_value_t = 3)]
+    pub patience: usize,
+    /// Rows per block.
+    #[arg(long, default_value_t = 65_536)]
+    pub block_rows: usize,
+    /// Rows in the random sample (bandwidth, landmarks, noise estimate).
+    #[arg(long, default_value_t = 10_000)]
+    pub sample: usize,
+}
+
+/// `kernlake inspect`.
+#[derive(Debug, Args)]
+pub struct InspectArgs {
+    /// The model file.
+    pub model: PathBuf,
+    /// Print JSON instead of text.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// `kernlake demo`.
+#[derive(Debug, Args)]
+pub struct DemoArgs {
+    /// Rows of demo data to generate.
+    #[arg(long, default_value_t = 1_000_000)]
+    pub rows: u64,
+    /// Folder for the data, the model and the report (created).
+    #[arg(long, default_value = "demo-out")]
+    pub dir: PathBuf,
+    /// Only generate the data, do not fit.
+    #[arg(long)]
+    pub data_only: bool,
+    /// Seed for the data and the fit.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+    /// Number of features D.
+    #[arg(long, short = 'D', default_value_t = 1024)]
+    pub components: usize,
+    /// Threads (0 = all cores).
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+}
+
+/// Parses sizes such as `1GiB`, `512MiB`, `800MB` or a plain byte count.
+pub fn parse_bytes(s: &str) -> std::result::Result<usize, String> {
+    let t = s.trim();
+    let split = t.find(|c: char| !(c.is_ascii_digit() || c == '.')).unwrap_or(t.len());
+    let (num, unit) = t.split_at(split);
+    let v: f64 = num.parse().map_err(|_| format!("'{s}' is not a size such as 512MiB or 2GiB"))?;
+    let mult = match unit.trim().to_ascii_lowercase().as_str() {
+        "" | "b" => 1.0,
+        "k" | "kb" => 1e3,
+        "kib" => 1024.0,
+        "m" | "mb" => 1e6,
+        "mib" => 1024.0 * 1024.0,
+        "g" | "gb" => 1e9,
+        "gib" => 1024.0 * 1024.0 * 1024.0,
+        _ => return Err(format!("'{s}' has an unknown unit; use B, KiB, MiB or GiB")),
+    };
+    Ok((v * mult) as usize)
+}
+
+impl SourceArgs {
+    /// The column selection these flags ask for.
+    pub fn selection(&self, target: Option<&str>) -> ColumnSelection {
+        ColumnSelection {
+            target: target.map(str::to_string),
+            features: self.features.clone(),
+            exclude: self.exclude.clone(),
+        }
+    }
+
+    /// CSV options.
+    pub fn csv(&self) -> Result<CsvOptions> {
+        if !self.delimiter.is_ascii() {
+            return Err(Error::invalid("delimiter", "must be a single ASCII character"));
+        }
+        Ok(CsvOptions { delimiter: self.delimiter as u8 })
+    }
+
+    /// Missing-value policy.
+    pub fn missing(&self) -> MissingPolicy {
+        match self.missing {
+            MissingArg::Skip => MissingPolicy::Skip,
+            MissingArg::Fail => MissingPolicy::Fail,
+        }
+    }
+}
+
+impl ModelArgs {
+    /// Resolves the flags into validated fit options.
+    pub fn options(&self) -> Result<FitOptions> {
+        let kernel = match self.kernel {
+            KernelArg::Gaussian => KernelKind::Gaussian,
+            KernelArg::Laplacian => KernelKind::Laplacian,
+            KernelArg::Matern12 => KernelKind::Matern12,
+            KernelArg::Matern32 => KernelKind::Matern32,
+            KernelArg::Matern52 => KernelKind::Matern52,
+        };
+        let kind = match self.map {
+            MapArg::Fourier => MapKind::Fourier,
+            MapArg::Orthogonal => MapKind::Orthogonal,
+            MapArg::Nystrom => MapKind::Nystrom,
+        };
+        if !(0.0..=0.5).contains(&self.holdout) {
+            return Err(Error::invalid("--holdout", format!("must be between 0 and 0.5, got {}", self.holdout)));
+        }
+        let map = MapSpec {
+            kind,
+            components: self.components,
+            variant: if self.phase { FourierVariant::CosPhase } else { FourierVariant::SinCos },
+            landmarks: if self.kmeans { Landmarks::KMeans } else { Landmarks::Uniform },
+            seed: self.seed,
+            ..MapSpec::default()
+        };
+        Ok(FitOptions {
+            kernel,
+            gamma: self.gamma,
+            map,
+            c: self.c,
+            epsilon: self.epsilon,
+            loss: if self.loss == "l1" { Loss::L1 } else { Loss::L2 },
+            tol: self.tol,
+            max_epochs: self.epochs,
+            sweeps_per_block: self.sweeps,
+            shrinking: true,
+            seed: self.seed,
+            threads: self.threads,
+            block_rows: self.block_rows,
+            memory_bytes: self.memory,
+            holdout: self.holdout,
+            patience: self.patience,
+            sample_rows: self.sample,
+        })
+    }
+}

@@ -1,0 +1,49 @@
+//! `kernlake fit`: discover sources, resolve columns, stream the fit, save the model.
+
+use crate::atomic::write_atomic;
+use crate::data::{discover, resolve_columns, TableReader};
+use crate::error::{Error, Result};
+use crate::fit::Fitter;
+use crate::report::render_training;
+
+use super::args::FitArgs;
+use super::progress::{rows_bar, EpochBars};
+
+/// Runs `kernlake fit`.
+pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
+    let opts = a.model.options()?;
+    let csv = a.src.csv()?;
+    let files = discover(&a.src.sources)?;
+    let columns = resolve_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;
+    let known_rows: u64 = files.iter().filter_map(|f| f.rows).sum();
+    if !quiet {
+        eprintln!(
+            "kernlake: {} file(s), {} input column(s), target '{}'",
+            files.len(),
+            columns.features.len(),
+            a.target
+        );
+    }
+    let reader = TableReader::new(files, columns)
+        .with_batch_rows(opts.block_rows)
+        .with_missing(a.src.missing())
+        .with_csv(csv);
+    let survey_bar = rows_bar(quiet, known_rows, "survey");
+    let epochs = EpochBars::new(quiet, known_rows);
+    let fitter = Fitter::from_options(opts);
+    let model = fitter.fit_files(&reader, &epochs, &|rows| survey_bar.set_position(rows))?;
+    survey_bar.finish_and_clear();
+    model.save(&a.out)?;
+    if let Some(path) = &a.report {
+        let json = serde_json::to_vec_pretty(&model.report)
+            .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))?;
+        write_atomic(path, |f| {
+            std::io::Write::write_all(f, &json).map_err(|e| Error::io(path, e))
+        })?;
+    }
+    if !quiet {
+        print!("{}", render_training(&model.report));
+        println!("model written to {}", a.out.display());
+    }
+    Ok(0)
+}

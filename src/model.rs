@@ -1,0 +1,235 @@
+//! The fitted model: input contract, scaler, feature map, weights and training report;
+//! prediction, and saving to / loading from a model file (see [`crate::modelfile`]).
+
+use std::path::Path;
+
+use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis, Zip};
+use serde::{Deserialize, Serialize};
+
+use crate::data::ResolvedColumns;
+use crate::error::{Error, Result};
+use crate::features::{map_from_parts, FeatureMap, MapParts, MapSpec};
+use crate::kernel::Kernel;
+use crate::modelfile::ModelFile;
+use crate::report::TrainingReport;
+use crate::scale::Standardizer;
+use crate::solver::dcd::DcdSettings;
+
+/// Rows scored together: the chunk's mapped features (rows × D f64) stay in cache.
+const PREDICT_CHUNK: usize = 256;
+
+/// What kind of document a model file's metadata holds.
+const MODEL_KIND: &str = "kernlake-model";
+
+/// A fitted approximate kernel epsilon-SVR.
+///
+/// Prediction for a row `x` of raw inputs: `intercept + weights · z(scale(x))`.
+#[derive(Debug)]
+pub struct Model {
+    /// Input contract: feature column names in order, and the target's name.
+    pub columns: ResolvedColumns,
+    /// Standardizer applied to inputs before the map.
+    pub scaler: Standardizer,
+    /// The kernel the map approximates.
+    pub kernel: Kernel,
+    /// How the map was built.
+    pub map_spec: MapSpec,
+    /// Weights on the mapped features, in target units.
+    pub weights: Array1<f64>,
+    /// Constant term in target units.
+    pub intercept: f64,
+    /// Solver settings used (C and epsilon in target units).
+    pub solver: DcdSettings,
+    /// What happened during training.
+    pub report: TrainingReport,
+    map: Box<dyn FeatureMap>,
+}
+
+/// Metadata stored in the model file beside the arrays.
+#[derive(Serialize, Deserialize)]
+struct Meta {
+    kind: String,
+    written_by: String,
+    columns: ResolvedColumns,
+    kernel: Kernel,
+    map_spec: MapSpec,
+    map_kind: String,
+    map_meta: serde_json::Value,
+    solver: DcdSettings,
+    report: TrainingReport,
+}
+
+impl Model {
+    /// Assembles a model from its parts.
+    ///
+    /// # Panics
+    /// If the parts' dimensions disagree (library misuse).
+    #[allow(clippy::too_many_arguments)]
+    pub fn new(
+        columns: ResolvedColumns,
+        scaler: Standardizer,
+        kernel: Kernel,
+        map_spec: MapSpec,
+        map: Box<dyn FeatureMap>,
+        weights: Array1<f64>,
+        intercept: f64,
+        solver: DcdSettings,
+        report: TrainingReport,
+    ) -> Self {
+        assert_eq!(scaler.dim(), map.input_dim(), "scaler and map disagree on inputs");
+        assert_eq!(columns.features.len(), map.input_dim(), "contract and map disagree");
+        assert_eq!(weights.len(), map.output_dim(), "weights and map disagree on D");
+        Model {
+            columns,
+            scaler,
+            kernel,
+            map_spec,
+            weights,
+            intercept,
+            solver,
+            report,
+            map,
+        }
+    }
+
+    /// The feature map.
+    pub fn map(&self) -> &dyn FeatureMap {
+        self.map.as_ref()
+    }
+
+    /// Number of input columns the model expects.
+    pub fn input_dim(&self) -> usize {
+        self.scaler.dim()
+    }
+
+    /// Predicts raw-unit rows `x` (rows × inputs, columns in contract order) into `out`,
+    /// in parallel over chunks of rows on the current rayon pool. Row-wise, so the result
+    /// does not depend on the thread count or on how rows are batched.
+    ///
+    /// # Panics
+    /// If `x` has the wrong number of columns or `out` the wrong length.
+    pub fn predict_into(&self, x: ArrayView2<f64>, mut out: ArrayViewMut1<f64>) {
+        assert_eq!(x.ncols(), self.input_dim(), "predict: wrong number of input columns");
+        assert_eq!(out.len(), x.nrows(), "predict: output length differs from rows");
+        let d_out = self.map.output_dim();
+        Zip::from(x.axis_chunks_iter(Axis(0), PREDICT_CHUNK))
+            .and(out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK))
+            .par_for_each(|xc, mut oc| {
+                let mut xs = xc.to_owned();
+                self.scaler.apply(xs.view_mut());
+                let mut z = Array2::zeros((xs.nrows(), d_out));
+                self.map.transform_into(xs.view(), z.view_mut());
+                for (o, zr) in oc.iter_mut().zip(z.axis_iter(Axis(0))) {
+                    *o = self.intercept + zr.dot(&self.weights);
+                }
+            });
+    }
+
+    /// Allocating form of [`Model::predict_into`].
+    pub fn predict(&self, x: ArrayView2<f64>) -> Array1<f64> {
+        let mut out = Array1::zeros(x.nrows());
+        self.predict_into(x, out.view_mut());
+        out
+    }
+
+    /// The model as a model-file container (metadata plus named arrays).
+    pub fn to_model_file(&self) -> Result<ModelFile> {
+        let parts = self.map.to_parts();
+        let meta = Meta {
+            kind: MODEL_KIND.to_string(),
+            written_by: format!("kernlake {}", env!("CARGO_PKG_VERSION")),
+            columns: self.columns.clone(),
+            kernel: self.kernel,
+            map_spec: self.map_spec.clone(),
+            map_kind: parts.kind.clone(),
+            map_meta: parts.meta.clone(),
+            solver: self.solver.clone(),
+            report: self.report.clone(),
+        };
+        let meta = serde_json::to_value(&meta)
+            .map_err(|e| Error::Numerical(format!("could not encode the model: {e}")))?;
+        let row = |v: &[f64]| Array2::from_shape_vec((1, v.len()), v.to_vec()).expect("1×n");
+        let mut arrays = vec![
+            ("scaler.mean".to_string(), row(&self.scaler.mean)),
+            ("scaler.scale".to_string(), row(&self.scaler.scale)),
+            ("weights".to_string(), row(self.weights.as_slice().expect("contiguous"))),
+            ("intercept".to_string(), row(&[self.intercept])),
+        ];
+        for (name, a) in parts.arrays {
+            arrays.push((format!("map.{name}"), a));
+        }
+        Ok(ModelFile { meta, arrays })
+    }
+
+    /// Rebuilds a model from a model-file container; `path` names it in messages.
+    pub fn from_model_file(file: &ModelFile, path: &Path) -> Result<Model> {
+        let bad = |message: String| Error::ModelFile {
+            path: path.to_path_buf(),
+            message,
+        };
+        let meta: Meta = serde_json::from_value(file.meta.clone())
+            .map_err(|e| bad(format!("its description is not a kernlake model ({e})")))?;
+        if meta.kind != MODEL_KIND {
+            return Err(bad(format!("holds a '{}', not a kernlake model", meta.kind)));
+        }
+        let vector = |name: &str| -> Result<Vec<f64>> {
+            let a = file
+                .array(name)
+                .ok_or_else(|| bad(format!("lacks its '{name}' array")))?;
+            Ok(a.iter().copied().collect())
+        };
+        let scaler = Standardizer {
+            mean: vector("scaler.mean")?,
+            scale: vector("scaler.scale")?,
+        };
+        let weights = Array1::from(vector("weights")?);
+        let intercept = *vector("intercept")?
+            .first()
+            .ok_or_else(|| bad("has an empty intercept".into()))?;
+        let parts = MapParts {
+            kind: meta.map_kind.clone(),
+            meta: meta.map_meta.clone(),
+            arrays: file
+                .arrays
+                .iter()
+                .filter_map(|(n, a)| n.strip_prefix("map.").map(|s| (s.to_string(), a.clone())))
+                .collect(),
+        };
+        let map = map_from_parts(&parts).map_err(|e| bad(format!("has an unusable feature map: {e}")))?;
+        let d = meta.columns.features.len();
+        if scaler.mean.len() != d || scaler.scale.len() != d || map.input_dim() != d {
+            return Err(bad(format!(
+                "is inconsistent: {d} feature columns but a scaler or map of another width"
+            )));
+        }
+        if weights.len() != map.output_dim() {
+            return Err(bad(format!(
+                "is inconsistent: {} weights for {} mapped features",
+                weights.len(),
+                map.output_dim()
+            )));
+        }
+        Ok(Model {
+            columns: meta.columns,
+            scaler,
+            kernel: meta.kernel,
+            map_spec: meta.map_spec,
+            weights,
+            intercept,
+            solver: meta.solver,
+            report: meta.report,
+            map,
+        })
+    }
+
+    /// Saves the model atomically (a partial file never appears under `path`).
+    pub fn save(&self, path: &Path) -> Result<()> {
+        self.to_model_file()?.save(path)
+    }
+
+    /// Loads a model saved by [`Model::save`].
+    pub fn load(path: &Path) -> Result<Model> {
+        let file = ModelFile::load(path)?;
+        Model::from_model_file(&file, path)
+    }
+}

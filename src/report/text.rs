@@ -1,0 +1,71 @@
+//! Plain-text rendering of training reports and models for a person at a terminal.
+
+use std::fmt::Write;
+
+use crate::model::Model;
+
+use super::TrainingReport;
+
+fn line(out: &mut String, key: &str, value: impl std::fmt::Display) {
+    let _ = writeln!(out, "  {key:<22} {value}");
+}
+
+/// The training report as aligned text.
+pub fn render_training(r: &TrainingReport) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "rows");
+    line(&mut s, "seen", r.rows_total);
+    line(&mut s, "trained on", r.rows_trained);
+    line(&mut s, "held out", r.rows_holdout);
+    line(&mut s, "skipped (missing)", r.rows_skipped);
+    for c in &r.skipped_by_column {
+        line(&mut s, &format!("  in '{}'", c.column), c.rows);
+    }
+    if !r.constant_columns.is_empty() {
+        line(&mut s, "constant, dropped", r.constant_columns.join(", "));
+    }
+    let _ = writeln!(s, "parameters");
+    line(&mut s, "gamma", format!("{:.6}  ({})", r.gamma.value, r.gamma.source));
+    line(&mut s, "C", format!("{:.6}  ({})", r.c.value, r.c.source));
+    line(&mut s, "epsilon", format!("{:.6}  ({})", r.epsilon.value, r.epsilon.source));
+    line(&mut s, "mapped features D", r.features);
+    let _ = writeln!(s, "solver");
+    line(&mut s, "epochs", format!("{}  (stopped: {:?})", r.epochs, r.stop).to_lowercase());
+    line(&mut s, "primal", format!("{:.6e}", r.objective.primal));
+    line(&mut s, "dual", format!("{:.6e}", r.objective.dual));
+    line(&mut s, "relative gap", format!("{:.3e}", r.objective.gap));
+    line(&mut s, "support vectors", format!("{:.1}% of rows", 100.0 * r.support_share));
+    line(&mut s, "time", format!("{:.1} s on {} thread(s)", r.seconds, r.threads));
+    if let Some(m) = &r.holdout {
+        let _ = writeln!(s, "holdout ({} rows, target units)", m.n);
+        line(&mut s, "RMSE", format!("{:.4}", m.rmse));
+        line(&mut s, "MAE", format!("{:.4}", m.mae));
+        line(&mut s, "R²", format!("{:.4}", m.r2));
+        line(&mut s, "inside the tube", format!("{:.1}%", 100.0 * m.tube_share));
+    }
+    s
+}
+
+/// A model's contract, parameters and training report as text.
+pub fn render_model(m: &Model) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "inputs (in order)");
+    for (i, c) in m.columns.features.iter().enumerate() {
+        line(
+            &mut s,
+            &format!("{:>3}. {c}", i + 1),
+            format!("mean {:.4}  sd {:.4}", m.scaler.mean[i], m.scaler.scale[i]),
+        );
+    }
+    if let Some(t) = &m.columns.target {
+        line(&mut s, "target", t);
+    }
+    let _ = writeln!(s, "feature map");
+    line(&mut s, "kernel", format!("{} (gamma {:.6})", m.kernel.kind.name(), m.kernel.gamma));
+    line(&mut s, "map", format!("{:?}", m.map_spec.kind).to_lowercase());
+    line(&mut s, "features D", m.weights.len());
+    line(&mut s, "loss", format!("{:?}", m.solver.loss).to_lowercase());
+    line(&mut s, "intercept", format!("{:.6}", m.intercept));
+    s.push_str(&render_training(&m.report));
+    s
+}
