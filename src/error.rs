@@ -95,6 +95,14 @@ pub enum Error {
     /// The input does not satisfy the model's input contract.
     #[error("{0}")]
     Contract(String),
+
+    // --- solver (dcd): in-memory linear epsilon-SVR ---
+    /// A non-finite target value (NaN or ±inf) reached an in-memory routine.
+    #[error("non-finite target value in row {row} of the input array")]
+    NonFiniteTarget {
+        /// Zero-based row in the array.
+        row: usize,
+    },
 }
 
 impl Error {
