@@ -1,0 +1,180 @@
+//! The real `kernlake` binary on temporary folders: happy paths and bad input.
+
+mod common;
+
+use std::path::Path;
+use std::process::{Command, Output};
+
+use common::{ccpp, write_parquet, write_parts};
+use ndarray::s;
+
+fn kernlake(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_kernlake"))
+        .args(args)
+        .output()
+        .expect("the binary runs")
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+/// A small CCPP lake (dataset: Tüfekci 2014) in `parts` files under `dir`.
+fn small_lake(dir: &Path, rows: usize, parts: usize) {
+    let (header, x, y) = ccpp();
+    let x = x.slice(s![..rows, ..]).to_owned();
+    let y = y.slice(s![..rows]).to_owned();
+    write_parts(dir, &header, &x, &y, parts);
+}
+
+fn fit_args<'a>(src: &'a str, out: &'a str) -> Vec<&'a str> {
+    vec!["fit", src, "--target", "PE", "--out", out, "-D", "64", "--quiet", "--epochs", "20"]
+}
+
+fn no_temp_files(dir: &Path) {
+    for e in std::fs::read_dir(dir).unwrap() {
+        let name = e.unwrap().file_name().to_string_lossy().into_owned();
+        assert!(!kernlake::atomic::is_temp_name(&name), "temporary file left: {name}");
+    }
+}
+
+#[test]
+fn fit_then_inspect() {
+    let dir = tempfile::tempdir().unwrap();
+    let lake = dir.path().join("lake");
+    small_lake(&lake, 2_000, 3);
+    let model = dir.path().join("m.klm");
+    let report = dir.path().join("r.json");
+    let mut args = fit_args(lake.to_str().unwrap(), model.to_str().unwrap());
+    args.extend(["--report", report.to_str().unwrap()]);
+    let o = kernlake(&args);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(model.exists() && report.exists());
+    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&report).unwrap()).unwrap();
+    assert!(json["rows_trained"].as_u64().unwrap() > 1_500);
+
+    let o = kernlake(&["inspect", model.to_str().unwrap()]);
+    assert!(o.status.success());
+    let text = String::from_utf8_lossy(&o.stdout);
+    for col in ["AT", "V", "AP", "RH", "PE", "gaussian"] {
+        assert!(text.contains(col), "inspect output lacks {col}:\n{text}");
+    }
+    let o = kernlake(&["inspect", "--json", model.to_str().unwrap()]);
+    let doc: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(doc["columns"]["features"][0], "AT");
+    no_temp_files(dir.path());
+}
+
+#[test]
+fn help_carries_the_safety_note() {
+    for args in [&["--help"][..], &["fit", "--help"][..]] {
+        let o = kernlake(args);
+        let text = String::from_utf8_lossy(&o.stdout);
+        assert!(text.contains("no substitute for protective systems"), "{text}");
+    }
+}
+
+fn fails_with(args: &[&str], needles: &[&str]) {
+    let o = kernlake(args);
+    assert!(!o.status.success(), "expected failure for {args:?}");
+    let err = stderr(&o);
+    for n in needles {
+        assert!(err.contains(n), "message lacks '{n}': {err}");
+    }
+    assert!(!err.contains("panicked"), "{err}");
+}
+
+#[test]
+fn bad_sources_fail_with_one_clear_sentence() {
+    let dir = tempfile::tempdir().unwrap();
+    let lake = dir.path().join("lake");
+    small_lake(&lake, 300, 2);
+    let lake_s = lake.to_str().unwrap();
+    let out = dir.path().join("m.klm");
+    let out_s = out.to_str().unwrap();
+
+    // missing target column
+    fails_with(&["fit", lake_s, "--target", "nope", "--out", out_s, "--quiet"], &["nope"]);
+    // a folder with no data files
+    let empty = dir.path().join("empty");
+    std::fs::create_dir_all(&empty).unwrap();
+    fails_with(&fit_args(empty.to_str().unwrap(), out_s), &["empty"]);
+    // a corrupt Parquet file names the file
+    let bad = dir.path().join("bad");
+    std::fs::create_dir_all(&bad).unwrap();
+    std::fs::write(bad.join("broken.parquet"), b"PAR1 this is not parquet").unwrap();
+    fails_with(&fit_args(bad.to_str().unwrap(), out_s), &["broken.parquet"]);
+    // schema disagreement between files names both files
+    let mixed = dir.path().join("mixed");
+    small_lake(&mixed, 200, 1);
+    let strs: Vec<String> = ["AT", "V", "AP", "RH", "PE"].iter().map(|s| s.to_string()).collect();
+    let mut other = strs.clone();
+    other[1] = "V2".into();
+    write_parquet(&mixed.join("zz.parquet"), &other, &vec![vec![1.0; 5]; 5]);
+    fails_with(&fit_args(mixed.to_str().unwrap(), out_s), &["zz.parquet"]);
+    // invalid parameters
+    let mut a = fit_args(lake_s, out_s);
+    a.extend(["--c", "0"]);
+    fails_with(&a, &["C"]);
+    let mut a = fit_args(lake_s, out_s);
+    a.extend(["--epsilon", "-1"]);
+    fails_with(&a, &["epsilon"]);
+    let mut a = fit_args(lake_s, out_s);
+    a[6] = "0";
+    fails_with(&a, &["components"]);
+    assert!(!out.exists(), "a failed fit left a model behind");
+    no_temp_files(dir.path());
+}
+
+#[test]
+fn missing_values_are_skipped_or_fail_by_policy() {
+    let dir = tempfile::tempdir().unwrap();
+    let lake = dir.path().join("lake");
+    let names: Vec<String> = ["a", "b", "y"].iter().map(|s| s.to_string()).collect();
+    let n = 200;
+    let a: Vec<f64> = (0..n).map(|i| i as f64 / 10.0).collect();
+    let mut b: Vec<f64> = (0..n).map(|i| ((i * 7) % 13) as f64).collect();
+    let y: Vec<f64> = (0..n).map(|i| (i as f64 / 10.0).sin() + ((i * 7) % 13) as f64 / 13.0).collect();
+    b[10] = f64::NAN;
+    b[20] = f64::INFINITY;
+    write_parquet(&lake.join("p.parquet"), &names, &[a, b, y]);
+    let out = dir.path().join("m.klm");
+    let report = dir.path().join("r.json");
+    let o = kernlake(&[
+        "fit", lake.to_str().unwrap(), "--target", "y", "--out", out.to_str().unwrap(),
+        "--report", report.to_str().unwrap(), "--quiet", "-D", "32",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&report).unwrap()).unwrap();
+    assert_eq!(json["rows_skipped"], 2);
+    std::fs::remove_file(&out).unwrap();
+    fails_with(
+        &["fit", lake.to_str().unwrap(), "--target", "y", "--out", out.to_str().unwrap(), "--quiet", "--missing", "fail"],
+        &["p.parquet", "row 11", "'b'"],
+    );
+    assert!(!out.exists());
+}
+
+#[test]
+fn damaged_models_fail_to_load_clearly() {
+    let dir = tempfile::tempdir().unwrap();
+    let lake = dir.path().join("lake");
+    small_lake(&lake, 400, 1);
+    let model = dir.path().join("m.klm");
+    let o = kernlake(&fit_args(lake.to_str().unwrap(), model.to_str().unwrap()));
+    assert!(o.status.success(), "{}", stderr(&o));
+    let bytes = std::fs::read(&model).unwrap();
+    let truncated = dir.path().join("t.klm");
+    std::fs::write(&truncated, &bytes[..bytes.len() / 2]).unwrap();
+    fails_with(&["inspect", truncated.to_str().unwrap()], &["t.klm"]);
+    let mut flipped = bytes.clone();
+    // Damage every 97th byte of the second half (the arrays' values live there).
+    let half = flipped.len() / 2;
+    for b in flipped[half..].iter_mut().step_by(97) {
+        *b ^= 0x40;
+    }
+    let fpath = dir.path().join("f.klm");
+    std::fs::write(&fpath, &flipped).unwrap();
+    fails_with(&["inspect", fpath.to_str().unwrap()], &["f.klm"]);
+    fails_with(&["inspect", dir.path().join("none.klm").to_str().unwrap()], &["none.klm"]);
+}

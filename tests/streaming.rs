@@ -1,0 +1,118 @@
+//! The streamed fit over Parquet files against the in-memory fit of the same rows.
+
+mod common;
+
+use common::{ccpp, friedman1, write_parts};
+use kernlake::data::{discover, resolve_columns, ColumnSelection, CsvOptions, TableReader};
+use kernlake::fit::Fitter;
+use kernlake::model::Model;
+use kernlake::solver::blocks::Silent;
+use ndarray::{s, Axis};
+
+fn names(d: usize) -> Vec<String> {
+    let mut v: Vec<String> = (1..=d).map(|j| format!("x{j}")).collect();
+    v.push("y".into());
+    v
+}
+
+fn reader_for(dir: &std::path::Path, block_rows: usize) -> TableReader {
+    let files = discover(&[dir.display().to_string()]).unwrap();
+    let sel = ColumnSelection { target: Some("y".into()), ..Default::default() };
+    let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
+    TableReader::new(files, cols).with_batch_rows(block_rows)
+}
+
+fn fitter() -> Fitter {
+    Fitter::new()
+        .with_components(128)
+        .with_gamma(0.08)
+        .with_c(10.0)
+        .with_epsilon(0.1)
+        .with_seed(4)
+        .with_max_epochs(30)
+}
+
+#[test]
+fn ten_parquet_files_give_the_in_memory_model() {
+    // common practice (block minimization is a deterministic function of the block
+    // layout and seed, Yu et al. KDD 2010): same rows, same blocks ⇒ same weights.
+    // Data: Friedman #1 (published: Friedman 1991).
+    let (x, y, _) = friedman1(2_000, 31);
+    let dir = tempfile::tempdir().unwrap();
+    write_parts(dir.path(), &names(10), &x, &y, 10);
+    let streamed = fitter()
+        .with_block_rows(200)
+        .fit_files(&reader_for(dir.path(), 200), &Silent, &|_| {})
+        .unwrap();
+    let memory = fitter().with_block_rows(200).fit(x.view(), y.view()).unwrap();
+    let diff = (&streamed.weights - &memory.weights).mapv(f64::abs).fold(0.0f64, |a, &b| a.max(b));
+    assert!(diff <= 1e-10, "weights differ by {diff}");
+    assert!((streamed.intercept - memory.intercept).abs() <= 1e-10);
+}
+
+#[test]
+fn same_seed_gives_identical_model_bytes_with_one_and_two_threads() {
+    // common practice (our determinism contract).
+    let (x, y, _) = friedman1(1_500, 32);
+    let dir = tempfile::tempdir().unwrap();
+    write_parts(dir.path(), &names(10), &x, &y, 4);
+    let fit = |t: usize| {
+        fitter()
+            .with_threads(t)
+            .with_holdout(0.1)
+            .fit_files(&reader_for(dir.path(), 256), &Silent, &|_| {})
+            .unwrap()
+    };
+    let (a, b) = (fit(1), fit(2));
+    let bytes = |m: &Model| m.to_model_file().unwrap().to_bytes().unwrap();
+    assert_eq!(bytes(&a), bytes(&b));
+}
+
+#[test]
+fn two_block_sizes_converge_to_the_same_predictions() {
+    // published (Ho & Lin 2012): the L2-loss dual is strictly convex, so its optimum is
+    // unique whatever the visiting order; run both to machine precision.
+    let (x, y, _) = friedman1(600, 33);
+    let dir = tempfile::tempdir().unwrap();
+    write_parts(dir.path(), &names(10), &x, &y, 3);
+    let fit = |rows: usize| {
+        fitter()
+            .with_tol(1e-15)
+            .with_max_epochs(3_000)
+            .fit_files(&reader_for(dir.path(), rows), &Silent, &|_| {})
+            .unwrap()
+    };
+    let (a, b) = (fit(64), fit(200));
+    let xs = x.slice(s![..300, ..]);
+    let diff = (&a.predict(xs) - &b.predict(xs)).mapv(f64::abs).fold(0.0f64, |m, &v| m.max(v));
+    assert!(diff <= 1e-9, "predictions differ by {diff}");
+}
+
+#[test]
+fn ccpp_streamed_holdout_matches_the_in_memory_fit() {
+    // dataset: Tüfekci (2014), CCPP, written to Parquet in six files. The streamed fit's
+    // holdout RMSE must be within 2% of the in-memory fit on the same holdout rows.
+    let (header, x, y) = ccpp();
+    let dir = tempfile::tempdir().unwrap();
+    write_parts(dir.path(), &header, &x, &y, 6);
+    let files = discover(&[dir.path().display().to_string()]).unwrap();
+    let sel = ColumnSelection { target: Some("PE".into()), ..Default::default() };
+    let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
+    let reader = TableReader::new(files, cols);
+    let f = Fitter::new().with_components(1_000).with_seed(2).with_holdout(0.2).with_tol(1e-4);
+    let streamed = f.clone().fit_files(&reader, &Silent, &|_| {}).unwrap();
+    let m = streamed.report.holdout.clone().unwrap();
+    // The same split in memory: rows the trainer holds out, by its own hash rule.
+    let hold: Vec<usize> = (0..x.nrows())
+        .filter(|&i| kernlake::solver::blocks::is_holdout(i as u64, 2, 0.2))
+        .collect();
+    let train: Vec<usize> = (0..x.nrows()).filter(|i| !hold.contains(i)).collect();
+    let mem = f
+        .with_holdout(0.0)
+        .fit(x.select(Axis(0), &train).view(), y.select(Axis(0), &train).view())
+        .unwrap();
+    let e_mem = common::rmse(&mem.predict(x.select(Axis(0), &hold).view()), &y.select(Axis(0), &hold));
+    eprintln!("ccpp streamed holdout {:.4} MW, in-memory {:.4} MW", m.rmse, e_mem);
+    assert_eq!(m.n as usize, hold.len());
+    assert!((m.rmse - e_mem).abs() <= 0.02 * e_mem, "{} vs {}", m.rmse, e_mem);
+}
