@@ -9,6 +9,7 @@ use serde::{Deserialize, Serialize};
 use crate::data::{
     survey, sample_key, ResolvedColumns, SourceFile, Survey, SurveySettings, TableReader,
 };
+use crate::coverage::Coverage;
 use crate::error::{Error, Result};
 use crate::features::{build_map, MapSpec};
 use crate::kernel::{Kernel, KernelKind};
@@ -340,7 +341,8 @@ impl Fitter {
             seconds: t0.elapsed().as_secs_f64(),
             threads: if o.threads == 0 { rayon::current_num_threads() } else { o.threads },
         };
-        Ok(Model::new(
+        let coverage = Coverage::fit(facts.sample_x.view(), kernel, None)?;
+        let mut model = Model::new(
             facts.columns,
             facts.scaler,
             kernel,
@@ -350,7 +352,9 @@ impl Fitter {
             out.intercept,
             dcd,
             report,
-        ))
+        );
+        model.coverage = Some(coverage);
+        Ok(model)
     }
 }
 

@@ -6,6 +6,7 @@ use std::path::Path;
 use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis, Zip};
 use serde::{Deserialize, Serialize};
 
+use crate::coverage::Coverage;
 use crate::data::ResolvedColumns;
 use crate::error::{Error, Result};
 use crate::features::{map_from_parts, FeatureMap, MapParts, MapSpec};
@@ -42,6 +43,8 @@ pub struct Model {
     pub solver: DcdSettings,
     /// What happened during training.
     pub report: TrainingReport,
+    /// Coverage landmarks and flag threshold (see [`crate::coverage`]), if computed.
+    pub coverage: Option<Coverage>,
     map: Box<dyn FeatureMap>,
 }
 
@@ -88,6 +91,7 @@ impl Model {
             intercept,
             solver,
             report,
+            coverage: None,
             map,
         }
     }
@@ -155,6 +159,10 @@ impl Model {
             ("weights".to_string(), row(self.weights.as_slice().expect("contiguous"))),
             ("intercept".to_string(), row(&[self.intercept])),
         ];
+        if let Some(c) = &self.coverage {
+            arrays.push(("coverage.landmarks".to_string(), c.landmarks.clone()));
+            arrays.push(("coverage.threshold".to_string(), row(&[c.threshold])));
+        }
         for (name, a) in parts.arrays {
             arrays.push((format!("map.{name}"), a));
         }
@@ -209,7 +217,17 @@ impl Model {
                 map.output_dim()
             )));
         }
+        let coverage = match (file.array("coverage.landmarks"), file.array("coverage.threshold")) {
+            (Some(l), Some(t)) if l.ncols() == d && t.len() == 1 => Some(Coverage {
+                landmarks: l.clone(),
+                kernel: meta.kernel,
+                threshold: t[[0, 0]],
+            }),
+            (None, None) => None,
+            _ => return Err(bad("has malformed coverage landmarks".into())),
+        };
         Ok(Model {
+            coverage,
             columns: meta.columns,
             scaler,
             kernel: meta.kernel,
