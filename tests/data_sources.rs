@@ -138,7 +138,10 @@ fn discovery_walks_folders_expands_globs_and_sorts() {
 
     let files = discover(&[s(&root)]).unwrap();
     let got: Vec<PathBuf> = files.iter().map(|f| f.path.clone()).collect();
-    assert_eq!(got, paths, "recursive walk, sorted by path, hidden entries skipped");
+    assert_eq!(
+        got, paths,
+        "recursive walk, sorted by path, hidden entries skipped"
+    );
     assert!(files.iter().all(|f| f.format == Format::Parquet));
     // dataset: Tüfekci 2014 — 9,568 rows in total, from the Parquet footers
     assert_eq!(files.iter().map(|f| f.rows.unwrap()).sum::<u64>(), 9_568);
@@ -177,15 +180,23 @@ fn discovery_errors_name_the_input() {
     assert!(e.contains("empty") && e.contains("no data files"), "{e}");
 
     let pattern = format!("{}/*.parquet", s(dir.path()));
-    let e = discover(&[pattern.clone()]).unwrap_err().to_string();
-    assert!(e.contains(&pattern) && e.contains("matches no data file"), "{e}");
+    let e = discover(std::slice::from_ref(&pattern))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains(&pattern) && e.contains("matches no data file"),
+        "{e}"
+    );
 
     // corrupt Parquet: the error names the file
     let bad = dir.path().join("bad/corrupt.parquet");
     fs::create_dir_all(bad.parent().unwrap()).unwrap();
     fs::write(&bad, b"PAR1 this is not a parquet file at all PAR1").unwrap();
     let e = discover(&[s(&bad)]).unwrap_err();
-    assert!(matches!(&e, Error::File { path, .. } if *path == bad), "{e}");
+    assert!(
+        matches!(&e, Error::File { path, .. } if *path == bad),
+        "{e}"
+    );
     assert!(e.to_string().contains("corrupt.parquet"));
 }
 
@@ -287,7 +298,11 @@ fn partition_columns_are_read_only_when_named() {
     let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
     let reader = TableReader::new(files.clone(), cols).with_batch_rows(2_000);
     for b in read_all(&reader) {
-        let month: f64 = files[b.file_index].partition("month").unwrap().parse().unwrap();
+        let month: f64 = files[b.file_index]
+            .partition("month")
+            .unwrap()
+            .parse()
+            .unwrap();
         assert_eq!(month, b.file_index as f64);
         assert!(b.x.column(0).iter().all(|&m| m == month));
         for (r, &id) in b.row_ids.iter().enumerate() {
@@ -323,24 +338,36 @@ fn integer_and_float_types_of_all_widths_read_as_f64() {
     let cols: Vec<(&str, ArrayRef)> = vec![
         ("i8", Arc::new(Int8Array::from(vec![-128, 0, 127]))),
         ("i16", Arc::new(Int16Array::from(vec![-32768, 1, 32767]))),
-        ("i32", Arc::new(Int32Array::from(vec![i32::MIN, 2, i32::MAX]))),
-        ("i64", Arc::new(Int64Array::from(vec![-(1i64 << 53), 3, 1 << 53]))),
+        (
+            "i32",
+            Arc::new(Int32Array::from(vec![i32::MIN, 2, i32::MAX])),
+        ),
+        (
+            "i64",
+            Arc::new(Int64Array::from(vec![-(1i64 << 53), 3, 1 << 53])),
+        ),
         ("u8", Arc::new(UInt8Array::from(vec![0, 1, 255]))),
         ("u16", Arc::new(UInt16Array::from(vec![0, 1, 65535]))),
         ("u32", Arc::new(UInt32Array::from(vec![0, 1, u32::MAX]))),
         ("u64", Arc::new(UInt64Array::from(vec![0, 1, 1u64 << 53]))),
         ("f16", f16),
-        ("f32", Arc::new(Float32Array::from(vec![0.1f32, -3.5, 1e30]))),
+        (
+            "f32",
+            Arc::new(Float32Array::from(vec![0.1f32, -3.5, 1e30])),
+        ),
         ("f64", Arc::new(base.clone())),
         ("dec", dec),
-        ("flag", Arc::new(BooleanArray::from(vec![true, false, true]))),
+        (
+            "flag",
+            Arc::new(BooleanArray::from(vec![true, false, true])),
+        ),
         ("name", Arc::new(StringArray::from(vec!["a", "b", "c"]))),
     ];
     let path = dir.path().join("types.parquet");
     write_batch(&path, &RecordBatch::try_from_iter(cols).unwrap());
     let files = discover(&[s(&path)]).unwrap();
-    let cols = resolve_columns(&files, &ColumnSelection::default(), &CsvOptions::default())
-        .unwrap();
+    let cols =
+        resolve_columns(&files, &ColumnSelection::default(), &CsvOptions::default()).unwrap();
     // the text column is left out of the defaults
     assert_eq!(cols.features.len(), 13);
     assert!(!cols.features.contains(&"name".to_string()));
@@ -349,9 +376,27 @@ fn integer_and_float_types_of_all_widths_read_as_f64() {
     // common practice: these integers and binary fractions are exact in f64;
     // booleans read as 1 and 0
     let want = [
-        [-128.0, -32768.0, i32::MIN as f64, -(2f64.powi(53)), 0.0, 0.0, 0.0, 0.0],
+        [
+            -128.0,
+            -32768.0,
+            i32::MIN as f64,
+            -(2f64.powi(53)),
+            0.0,
+            0.0,
+            0.0,
+            0.0,
+        ],
         [0.0, 1.0, 2.0, 3.0, 1.0, 1.0, 1.0, 1.0],
-        [127.0, 32767.0, i32::MAX as f64, 2f64.powi(53), 255.0, 65535.0, u32::MAX as f64, 2f64.powi(53)],
+        [
+            127.0,
+            32767.0,
+            i32::MAX as f64,
+            2f64.powi(53),
+            255.0,
+            65535.0,
+            u32::MAX as f64,
+            2f64.powi(53),
+        ],
     ];
     let rest = [
         [1.5, 0.1f32 as f64, 1.5, 1.5, 1.0],
@@ -368,9 +413,18 @@ fn integer_and_float_types_of_all_widths_read_as_f64() {
 /// Two Parquet files; the second holds nulls, NaN and ±inf.
 fn missing_fixture(dir: &Path) -> Vec<String> {
     let clean = RecordBatch::try_from_iter(vec![
-        ("a", Arc::new(Float64Array::from(vec![1.0, 2.0])) as ArrayRef),
-        ("b", Arc::new(Float64Array::from(vec![1.0, 2.0])) as ArrayRef),
-        ("y", Arc::new(Float64Array::from(vec![1.0, 2.0])) as ArrayRef),
+        (
+            "a",
+            Arc::new(Float64Array::from(vec![1.0, 2.0])) as ArrayRef,
+        ),
+        (
+            "b",
+            Arc::new(Float64Array::from(vec![1.0, 2.0])) as ArrayRef,
+        ),
+        (
+            "y",
+            Arc::new(Float64Array::from(vec![1.0, 2.0])) as ArrayRef,
+        ),
     ])
     .unwrap();
     let nan = f64::NAN;
@@ -473,7 +527,10 @@ fn missing_values_are_skipped_and_counted_or_fail_with_their_place() {
         .with_files_subset(vec![2]);
     let e = reader.blocks().unwrap().find_map(|b| b.err()).unwrap();
     let msg = e.to_string();
-    assert!(msg.contains("p2.csv") && msg.contains("row 2") && msg.contains("'a'"), "{msg}");
+    assert!(
+        msg.contains("p2.csv") && msg.contains("row 2") && msg.contains("'a'"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -513,8 +570,14 @@ fn bad_columns_and_schemas_are_named() {
     };
     let e = resolve_columns(&files, &sel, &opts).unwrap_err();
     let msg = e.to_string();
-    assert!(matches!(&e, Error::Column { column, .. } if column == "V"), "{e}");
-    assert!(msg.contains("f0.parquet") && msg.contains("f1.parquet"), "{msg}");
+    assert!(
+        matches!(&e, Error::Column { column, .. } if column == "V"),
+        "{e}"
+    );
+    assert!(
+        msg.contains("f0.parquet") && msg.contains("f1.parquet"),
+        "{msg}"
+    );
 
     // AP is in f0 but not in f1: both files named
     let sel = ColumnSelection {
@@ -522,7 +585,9 @@ fn bad_columns_and_schemas_are_named() {
         features: Some(vec!["AT".into(), "AP".into()]),
         exclude: vec![],
     };
-    let msg = resolve_columns(&files, &sel, &opts).unwrap_err().to_string();
+    let msg = resolve_columns(&files, &sel, &opts)
+        .unwrap_err()
+        .to_string();
     assert!(msg.contains("f0.parquet") && msg.contains("f1.parquet") && msg.contains("AP"));
 
     // a text column named as feature in one file
@@ -541,7 +606,11 @@ fn bad_columns_and_schemas_are_named() {
         features: vec!["V".into()],
         target: None,
     };
-    let e = TableReader::new(files, cols).blocks().unwrap().next().unwrap();
+    let e = TableReader::new(files, cols)
+        .blocks()
+        .unwrap()
+        .next()
+        .unwrap();
     assert!(matches!(e, Err(Error::Column { .. })));
 
     // the target listed as a feature
@@ -585,7 +654,11 @@ fn empty_files_give_zero_rows() {
 fn csv_delimiter_and_integer_columns() {
     let dir = tempfile::tempdir().unwrap();
     let p = dir.path().join("semi.csv");
-    fs::write(&p, "id;x;flag;y\n1;2.5;true;10\n2;-1;false;20\n3;1e3;TRUE;30\n").unwrap();
+    fs::write(
+        &p,
+        "id;x;flag;y\n1;2.5;true;10\n2;-1;false;20\n3;1e3;TRUE;30\n",
+    )
+    .unwrap();
     let files = discover(&[s(&p)]).unwrap();
     let opts = CsvOptions { delimiter: b';' };
     let sel = ColumnSelection {
@@ -597,6 +670,12 @@ fn csv_delimiter_and_integer_columns() {
     assert_eq!(cols.features, vec!["x", "flag"]);
     let blocks = read_all(&TableReader::new(files, cols).with_csv(opts));
     // common practice: decimal text parses to the nearest f64; booleans as 1/0
-    assert_eq!(blocks[0].x.as_slice().unwrap(), &[2.5, 1.0, -1.0, 0.0, 1000.0, 1.0]);
-    assert_eq!(blocks[0].y.as_ref().unwrap().to_vec(), vec![10.0, 20.0, 30.0]);
+    assert_eq!(
+        blocks[0].x.as_slice().unwrap(),
+        &[2.5, 1.0, -1.0, 0.0, 1000.0, 1.0]
+    );
+    assert_eq!(
+        blocks[0].y.as_ref().unwrap().to_vec(),
+        vec![10.0, 20.0, 30.0]
+    );
 }

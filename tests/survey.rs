@@ -120,7 +120,10 @@ fn moments_match_two_pass_values_and_do_not_depend_on_threads() {
     .unwrap();
     assert_eq!(seen.get(), 9_568);
     let two = run(&r, 500, 7, 2);
-    assert_eq!((one.rows_total, one.rows_used, one.rows_skipped), (9_568, 9_568, 0));
+    assert_eq!(
+        (one.rows_total, one.rows_used, one.rows_skipped),
+        (9_568, 9_568, 0)
+    );
     let stats: Vec<_> = one.features.iter().chain(one.target.as_ref()).collect();
     let stats2: Vec<_> = two.features.iter().chain(two.target.as_ref()).collect();
     assert_eq!(stats.len(), 5);
@@ -129,7 +132,12 @@ fn moments_match_two_pass_values_and_do_not_depend_on_threads() {
         let (m, v) = two_pass(&data, j);
         // dataset: Tüfekci 2014 — two-pass moments computed from the CSV
         assert!(rel(s.mean, m) < 1e-12, "{}: mean {} vs {m}", s.name, s.mean);
-        assert!(rel(s.variance, v) < 1e-12, "{}: var {} vs {v}", s.name, s.variance);
+        assert!(
+            rel(s.variance, v) < 1e-12,
+            "{}: var {} vs {v}",
+            s.name,
+            s.variance
+        );
         let min = data.iter().map(|r| r[j]).fold(f64::INFINITY, f64::min);
         let max = data.iter().map(|r| r[j]).fold(f64::NEG_INFINITY, f64::max);
         assert_eq!((s.min, s.max, s.count, s.missing), (min, max, 9_568, 0));
@@ -159,7 +167,10 @@ fn sample_is_deterministic_and_independent_of_split_and_batch_size() {
         (&ccpp_path(), 4_096, 2),
     ] {
         let s = run(&reader(input, batch), 1_000, 42, threads);
-        assert_eq!(s.sample_row_ids, base.sample_row_ids, "{input} batch {batch}");
+        assert_eq!(
+            s.sample_row_ids, base.sample_row_ids,
+            "{input} batch {batch}"
+        );
         assert_eq!(s.sample_x, base.sample_x);
         assert_eq!(s.sample_y, base.sample_y);
     }
@@ -192,7 +203,10 @@ fn sample_row_ids_are_uniform() {
         assert_eq!(s.sample_row_ids.len(), k);
         let m = s.sample_row_ids.iter().map(|&i| i as f64).sum::<f64>() / k as f64;
         // each sample within 4 standard deviations
-        assert!((m - (n - 1.0) / 2.0).abs() < 4.0 * var_one.sqrt(), "seed {seed}: {m}");
+        assert!(
+            (m - (n - 1.0) / 2.0).abs() < 4.0 * var_one.sqrt(),
+            "seed {seed}: {m}"
+        );
         means.push(m);
         for &i in &s.sample_row_ids {
             quarters[(i as f64 * 4.0 / n) as usize] += 1;
@@ -205,7 +219,10 @@ fn sample_row_ids_are_uniform() {
     // each quarter of the rows gets a quarter of the draws: binomial sd sqrt(t·¼·¾)
     let t = (k as u64 * seeds) as f64;
     for q in quarters {
-        assert!((q as f64 - t / 4.0).abs() < 4.0 * (t * 0.1875).sqrt(), "{quarters:?}");
+        assert!(
+            (q as f64 - t / 4.0).abs() < 4.0 * (t * 0.1875).sqrt(),
+            "{quarters:?}"
+        );
     }
 }
 
@@ -220,13 +237,16 @@ fn standardizer_from_survey_matches_in_memory_fit() {
     assert_eq!(s.constant_features, vec!["unit".to_string()]);
     assert_eq!(s.features[4].variance, 0.0);
     let streaming = Standardizer::from_survey(&s);
-    let mut x = Array2::from_shape_fn((data.len(), 5), |(i, j)| {
-        if j < 4 {
-            data[i][j]
-        } else {
-            7.0
-        }
-    });
+    let mut x = Array2::from_shape_fn(
+        (data.len(), 5),
+        |(i, j)| {
+            if j < 4 {
+                data[i][j]
+            } else {
+                7.0
+            }
+        },
+    );
     let fitted = Standardizer::fit(x.view());
     assert_eq!(streaming.dim(), 5);
     for j in 0..5 {

@@ -88,7 +88,10 @@ impl TableReader {
     /// # Panics
     /// If `n` is 0.
     pub fn with_batch_rows(mut self, n: usize) -> Self {
-        assert!(n > 0, "TableReader::with_batch_rows: the batch size must be positive");
+        assert!(
+            n > 0,
+            "TableReader::with_batch_rows: the batch size must be positive"
+        );
         self.batch_rows = n;
         self
     }
@@ -199,7 +202,10 @@ impl TableReader {
     /// # Panics
     /// If `i` is out of range.
     pub fn file_blocks(&self, i: usize) -> Result<Blocks<'_>> {
-        assert!(i < self.files.len(), "TableReader::file_blocks: no file {i}");
+        assert!(
+            i < self.files.len(),
+            "TableReader::file_blocks: no file {i}"
+        );
         let mut first = 0;
         for j in 0..i {
             first += self.file_rows(j)?;
@@ -221,7 +227,7 @@ enum Source {
 /// The batches of one open file.
 enum Batches {
     Parquet(ParquetRecordBatchReader),
-    Csv(CsvBatches),
+    Csv(Box<CsvBatches>),
 }
 
 struct OpenFile {
@@ -299,9 +305,7 @@ impl<'a> Blocks<'a> {
             let r = self.reader;
             let file = &r.files[cur.index];
             let batch = match &mut cur.batches {
-                Batches::Parquet(b) => b
-                    .next()
-                    .map(|b| b.map_err(|e| corrupt(&file.path, e))),
+                Batches::Parquet(b) => b.next().map(|b| b.map_err(|e| corrupt(&file.path, e))),
                 Batches::Csv(b) => b.next().map(|b| {
                     b.map_err(|e| Error::File {
                         path: file.path.clone(),
@@ -483,7 +487,7 @@ fn open_csv(
     }
     let (present, sources) = place_columns(file, &header, names, |_| Ok(()))?;
     let reader = csv::open(&file.path, &header, present, opts, batch_rows)?;
-    Ok(Some((Batches::Csv(reader), sources)))
+    Ok(Some((Batches::Csv(Box::new(reader)), sources)))
 }
 
 /// `Blocks` can move to a reading thread.

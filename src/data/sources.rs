@@ -174,7 +174,10 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<()> {
 /// matches no data file; an unreadable Parquet footer.
 pub fn discover(inputs: &[String]) -> Result<Vec<SourceFile>> {
     if inputs.is_empty() {
-        return Err(Error::invalid("inputs", "no data file, folder or pattern was given"));
+        return Err(Error::invalid(
+            "inputs",
+            "no data file, folder or pattern was given",
+        ));
     }
     let mut paths = Vec::new();
     for input in inputs {
@@ -186,8 +189,7 @@ pub fn discover(inputs: &[String]) -> Result<Vec<SourceFile>> {
                 if paths.len() == before {
                     return Err(Error::File {
                         path: path.to_path_buf(),
-                        message: "is a folder with no data files (.parquet, .parq or .csv)"
-                            .into(),
+                        message: "is a folder with no data files (.parquet, .parq or .csv)".into(),
                     });
                 }
             } else {
@@ -199,7 +201,7 @@ pub fn discover(inputs: &[String]) -> Result<Vec<SourceFile>> {
             })?;
             let before = paths.len();
             for m in matches {
-                let m = m.map_err(|e| Error::io(e.path().to_path_buf(), e.into_error()))?;
+                let m = m.map_err(|e| Error::io(e.path().to_path_buf(), e.into()))?;
                 if is_hidden(&m) {
                     continue;
                 }
