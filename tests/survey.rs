@@ -307,3 +307,12 @@ fn reader_xy(p: &Path) -> TableReader {
     let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
     TableReader::new(files, cols)
 }
+
+#[test]
+fn sample_key_is_splitmix64() {
+    // from memory: the first outputs of SplitMix64 (Steele, Lea & Flood, OOPSLA 2014;
+    // Vigna's reference splitmix64.c) from state 0
+    assert_eq!(kernlake::data::splitmix64(0, 0), 0xE220_A839_7B1D_CDAF);
+    assert_eq!(kernlake::data::splitmix64(0, 1), 0x6E78_9E6A_A1B9_65F4);
+    assert_eq!(kernlake::data::sample_key(0, 2), 0x06C4_5D18_8009_454F);
+}

@@ -19,6 +19,6 @@ mod survey;
 pub use block::{Block, MissingPolicy};
 pub use columns::{resolve_columns, ColumnSelection, ResolvedColumns};
 pub use reader::{Blocks, TableReader};
-pub use sample::splitmix64;
+pub use sample::{sample_key, splitmix64};
 pub use sources::{discover, CsvOptions, Format, SourceFile};
 pub use survey::{survey, ColumnStats, Survey, SurveySettings};

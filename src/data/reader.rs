@@ -147,6 +147,11 @@ impl TableReader {
         self.missing
     }
 
+    /// How CSV files are parsed.
+    pub fn csv(&self) -> &CsvOptions {
+        &self.csv
+    }
+
     /// The indices of the files this reader reads, in order.
     pub fn selected_files(&self) -> Vec<usize> {
         match &self.subset {

@@ -18,6 +18,13 @@ pub fn splitmix64(seed: u64, i: u64) -> u64 {
     z ^ (z >> 31)
 }
 
+/// The survey sample's key of global row `row_id` under `seed` (smaller keys are
+/// sampled first): [`splitmix64`]`(seed, row_id)`.
+#[inline]
+pub fn sample_key(seed: u64, row_id: u64) -> u64 {
+    splitmix64(seed, row_id)
+}
+
 /// The `k` rows with the smallest keys among those offered, with their values.
 #[derive(Debug)]
 pub(crate) struct BottomK {
@@ -44,7 +51,7 @@ impl BottomK {
     /// Offers row `id` with its `width` values.
     #[inline]
     pub(crate) fn offer(&mut self, id: u64, row: &[f64]) {
-        let key = splitmix64(self.seed, id);
+        let key = sample_key(self.seed, id);
         self.insert(key, id, row);
     }
 

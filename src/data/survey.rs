@@ -161,6 +161,19 @@ impl Part {
         }
     }
 
+    /// Adds the rows of a later, disjoint part (Chan, Golub & LeVeque merge).
+    fn merge(&mut self, p: Part) {
+        for (m, o) in self.moments.iter_mut().zip(&p.moments) {
+            m.merge(o);
+        }
+        for (m, o) in self.missing.iter_mut().zip(&p.missing) {
+            *m += o;
+        }
+        self.rows += p.rows;
+        self.used += p.used;
+        self.sample.absorb(p.sample);
+    }
+
     fn add(&mut self, b: &Block, row: &mut [f64]) {
         let d = b.x.ncols();
         for (r, &id) in b.row_ids.iter().enumerate() {
@@ -218,15 +231,26 @@ pub fn survey(
         .num_threads(settings.threads)
         .build()
         .map_err(|e| Error::invalid("threads", format!("no thread pool could start: {e}")))?;
+    let cols = reader.columns().all().count();
     let (tx, rx) = mpsc::channel::<u64>();
-    let parts: Vec<Result<Part>> = std::thread::scope(|scope| {
+    let total: Result<Part> = std::thread::scope(|scope| {
         let worker = scope.spawn(move || {
-            pool.install(|| {
-                files
-                    .par_iter()
-                    .map_with(tx, |tx, &f| survey_file(reader, f, settings, tx))
-                    .collect()
-            })
+            // Files are surveyed a group at a time so that at most one group of
+            // per-file samples is held; results merge in file order.
+            let group = pool.current_num_threads().max(1) * 4;
+            let mut total = Part::new(cols, settings.sample_rows, settings.seed);
+            for files in files.chunks(group) {
+                let parts: Vec<Result<Part>> = pool.install(|| {
+                    files
+                        .par_iter()
+                        .map_with(tx.clone(), |tx, &f| survey_file(reader, f, settings, tx))
+                        .collect()
+                });
+                for p in parts {
+                    total.merge(p?);
+                }
+            }
+            Ok(total)
         });
         let mut done = 0u64;
         for n in rx {
@@ -235,20 +259,7 @@ pub fn survey(
         }
         worker.join().expect("a survey worker panicked")
     });
-    let cols = reader.columns().all().count();
-    let mut total = Part::new(cols, settings.sample_rows, settings.seed);
-    for p in parts {
-        let p = p?;
-        for (m, o) in total.moments.iter_mut().zip(&p.moments) {
-            m.merge(o);
-        }
-        for (m, o) in total.missing.iter_mut().zip(&p.missing) {
-            *m += o;
-        }
-        total.rows += p.rows;
-        total.used += p.used;
-        total.sample.absorb(p.sample);
-    }
+    let total = total?;
     if total.used == 0 {
         return Err(Error::NoRows(format!(
             "none of the {} rows read has a value in every chosen column",
