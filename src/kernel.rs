@@ -21,6 +21,7 @@
 //! training rows a model built on them predicts its constant (common practice).
 
 use ndarray::{ArrayView2, ArrayViewMut2, Axis, Zip};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
@@ -181,9 +182,10 @@ impl Kernel {
         // Chunks of rows of `a` keep the product's output in cache and run in parallel.
         const CHUNK: usize = 256;
         let kernel = *self;
-        Zip::from(out.axis_chunks_iter_mut(Axis(0), CHUNK))
-            .and(a.axis_chunks_iter(Axis(0), CHUNK))
-            .par_for_each(|mut o, ac| {
+        out.axis_chunks_iter_mut(Axis(0), CHUNK)
+            .into_par_iter()
+            .zip(a.axis_chunks_iter(Axis(0), CHUNK).into_par_iter())
+            .for_each(|(mut o, ac)| {
                 ndarray::linalg::general_mat_mul(-2.0, &ac, &b.t(), 0.0, &mut o);
                 for (mut orow, ar) in o.axis_iter_mut(Axis(0)).zip(ac.axis_iter(Axis(0))) {
                     let an = ar.dot(&ar);
