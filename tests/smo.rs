@@ -186,6 +186,12 @@ fn compare_with_clarabel(
     assert!(fitted.report.converged, "{:?}", fitted.report);
     let qp = clarabel_dual(x.view(), y.view(), &k, settings.c, settings.epsilon);
     // reference library: clarabel — same optimum of the dual, 1e-6 relative.
+    eprintln!(
+        "n = {}: objective smo {:.10e}, clarabel {:.10e}",
+        x.nrows(),
+        fitted.report.objective,
+        qp.objective
+    );
     let rel = (fitted.report.objective - qp.objective).abs() / qp.objective.abs().max(1.0);
     assert!(
         rel < 1e-6,
@@ -198,6 +204,7 @@ fn compare_with_clarabel(
         let ours = fitted.model.predict(rows.view());
         let theirs = predict_beta(x.view(), rows.view(), &k, &qp.beta, qp.bias);
         let diff = max_abs_diff(&ours, &theirs);
+        eprintln!("  max prediction difference {diff:.3e}");
         assert!(diff < 1e-4, "prediction difference {diff:e}");
     }
     fitted
