@@ -15,9 +15,9 @@ use crate::kernel::{Kernel, KernelKind};
 
 /// Columns per parallel task when a row is computed; each entry is independent, so the
 /// result does not depend on the number of threads.
-const CHUNK: usize = 1024;
+const CHUNK: usize = 512;
 /// Rows shorter than this are computed on the calling thread (parallel overhead).
-const PARALLEL_MIN: usize = 4096;
+const PARALLEL_MIN: usize = 2048;
 /// Marks an empty link or an uncached row.
 const NONE: u32 = u32::MAX;
 

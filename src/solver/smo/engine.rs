@@ -40,6 +40,46 @@ struct Extremes {
     j: Option<Var>,
 }
 
+impl Extremes {
+    fn new() -> Self {
+        Extremes {
+            m: f64::NEG_INFINITY,
+            i: None,
+            big_m: f64::INFINITY,
+            j: None,
+        }
+    }
+
+    /// Takes row `r` (with `g_r`, `α⁺_r`, `α⁻_r`) into account.
+    #[inline(always)]
+    fn visit(&mut self, r: usize, gr: f64, ap: f64, am: f64, c: f64, eps: f64) {
+        let vp = -gr - eps;
+        let vm = -gr + eps;
+        if ap < c && vp > self.m {
+            self.m = vp;
+            self.i = Some(Var { row: r, plus: true });
+        }
+        if am > 0.0 && vm > self.m {
+            self.m = vm;
+            self.i = Some(Var {
+                row: r,
+                plus: false,
+            });
+        }
+        if ap > 0.0 && vp < self.big_m {
+            self.big_m = vp;
+            self.j = Some(Var { row: r, plus: true });
+        }
+        if am < c && vm < self.big_m {
+            self.big_m = vm;
+            self.j = Some(Var {
+                row: r,
+                plus: false,
+            });
+        }
+    }
+}
+
 /// Solver state; see the module documentation.
 pub(super) struct Engine<'a> {
     src: RowSource<'a>,
@@ -108,38 +148,9 @@ impl<'a> Engine<'a> {
 
     /// `m(α)`, `M(α)` and the variables reaching them, over the active rows.
     fn extremes(&self) -> Extremes {
-        let (c, eps) = (self.c, self.eps);
-        let mut e = Extremes {
-            m: f64::NEG_INFINITY,
-            i: None,
-            big_m: f64::INFINITY,
-            j: None,
-        };
+        let mut e = Extremes::new();
         for &r in &self.active {
-            let vp = -self.g[r] - eps;
-            let vm = -self.g[r] + eps;
-            if self.ap[r] < c && vp > e.m {
-                e.m = vp;
-                e.i = Some(Var { row: r, plus: true });
-            }
-            if self.am[r] > 0.0 && vm > e.m {
-                e.m = vm;
-                e.i = Some(Var {
-                    row: r,
-                    plus: false,
-                });
-            }
-            if self.ap[r] > 0.0 && vp < e.big_m {
-                e.big_m = vp;
-                e.j = Some(Var { row: r, plus: true });
-            }
-            if self.am[r] < c && vm < e.big_m {
-                e.big_m = vm;
-                e.j = Some(Var {
-                    row: r,
-                    plus: false,
-                });
-            }
+            e.visit(r, self.g[r], self.ap[r], self.am[r], self.c, self.eps);
         }
         e
     }
@@ -181,8 +192,10 @@ impl<'a> Engine<'a> {
         j
     }
 
-    /// Moves the pair `(i, j)` to the minimum of the objective on their segment.
-    fn step(&mut self, i: Var, j: Var, si: usize) {
+    /// Moves the pair `(i, j)` to the minimum of the objective on their segment and
+    /// returns the extremes of the new point (found in the same pass as the gradient
+    /// update).
+    fn step(&mut self, i: Var, j: Var, si: usize) -> Extremes {
         let (ri, rj) = (i.row, j.row);
         let c = self.c;
         let ki_rj = self.cache.row(si)[rj];
@@ -223,16 +236,21 @@ impl<'a> Engine<'a> {
         self.beta[ri] += db_i;
         if ri == rj {
             // α⁺ and α⁻ of one row fell together; β and hence g are unchanged.
-            return;
+            return self.extremes();
         }
         let db_j = (self.ap[rj] - self.am[rj]) - self.beta[rj];
         self.beta[rj] += db_j;
         let all = self.all_active();
         let sj = self.cache.fetch(rj, &self.src, &self.active, all);
         let (ki, kj) = (self.cache.row(si), self.cache.row(sj));
+        let (c, eps) = (self.c, self.eps);
+        let mut e = Extremes::new();
         for &r in &self.active {
-            self.g[r] += db_i * ki[r] + db_j * kj[r];
+            let gr = self.g[r] + (db_i * ki[r] + db_j * kj[r]);
+            self.g[r] = gr;
+            e.visit(r, gr, self.ap[r], self.am[r], c, eps);
         }
+        e
     }
 
     /// Recomputes `g` on the inactive rows from the support vectors and makes every row
@@ -305,9 +323,12 @@ impl<'a> Engine<'a> {
         let mut countdown = shrink_every;
         let mut unshrunk = false;
         let mut iterations = 0u64;
+        // Extremes of the current point when the last step already found them.
+        let mut next: Option<Extremes> = None;
         let converged = loop {
             if shrinking && countdown == 0 {
                 countdown = shrink_every;
+                next = None;
                 let e = self.extremes();
                 if !unshrunk && e.m - e.big_m <= 10.0 * tol {
                     unshrunk = true;
@@ -316,7 +337,10 @@ impl<'a> Engine<'a> {
                 let e = self.extremes();
                 self.shrink(e.m, e.big_m);
             }
-            let e = self.extremes();
+            let e = match next.take() {
+                Some(e) => e,
+                None => self.extremes(),
+            };
             let (i, first_j) = match (e.i, e.j) {
                 (Some(i), Some(j)) if e.m - e.big_m > tol => (i, j),
                 _ => {
@@ -340,7 +364,7 @@ impl<'a> Engine<'a> {
                     .second_order_j(i, e.m, self.cache.row(si))
                     .unwrap_or(first_j),
             };
-            self.step(i, j, si);
+            next = Some(self.step(i, j, si));
             iterations += 1;
             countdown = countdown.saturating_sub(1);
         };
