@@ -1,7 +1,7 @@
 //! Throughput of the exact SMO solver (Fan, Chen & Lin, JMLR 2005) on a smooth synthetic
 //! function of 20 inputs, next to the bare kernel-block throughput of
 //! `Kernel::block_into` measured in the same run. Prints one table; run with
-//! `cargo bench --bench smo` (add `-- 20000` to include n = 20,000).
+//! `cargo bench --bench smo`, or `cargo bench --bench smo -- 20000` for other sizes.
 
 use std::time::Instant;
 
@@ -58,9 +58,13 @@ fn block_rate(kernel: &Kernel, x: &Array2<f64>) -> f64 {
 }
 
 fn main() {
-    let mut sizes = vec![5_000usize, 10_000];
-    if std::env::args().any(|a| a == "20000") {
-        sizes.push(20_000);
+    // Sizes from the command line (e.g. `-- 20000`), else 5,000 and 10,000.
+    let mut sizes: Vec<usize> = std::env::args()
+        .skip(1)
+        .filter_map(|a| a.parse().ok())
+        .collect();
+    if sizes.is_empty() {
+        sizes = vec![5_000, 10_000];
     }
     let kernel = Kernel::gaussian(1.0 / (2.0 * D as f64)).unwrap();
     let settings = SmoSettings {
