@@ -41,7 +41,7 @@ use crate::error::{Error, Result};
 /// }
 /// # Ok::<(), kernlake::Error>(())
 /// ```
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 pub struct TableReader {
     files: Vec<SourceFile>,
     columns: ResolvedColumns,
