@@ -5,9 +5,11 @@ use std::fs::{self, File};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
+use arrow_array::types::Int32Type;
 use arrow_array::{
-    ArrayRef, BooleanArray, Float32Array, Float64Array, Int16Array, Int32Array, Int64Array,
-    Int8Array, RecordBatch, StringArray, UInt16Array, UInt32Array, UInt64Array, UInt8Array,
+    ArrayRef, BooleanArray, DictionaryArray, Float32Array, Float64Array, Int16Array, Int32Array,
+    Int64Array, Int8Array, RecordBatch, StringArray, UInt16Array, UInt32Array, UInt64Array,
+    UInt8Array,
 };
 use arrow_schema::DataType;
 use kernlake::data::{
@@ -309,6 +311,16 @@ fn partition_columns_are_read_only_when_named() {
             assert_eq!(b.x[[r, 1]], data[id as usize][0]);
         }
     }
+    // features from partition folders only (no column decoded from the files)
+    let cols = ResolvedColumns {
+        features: vec!["month".into()],
+        target: None,
+    };
+    let blocks = read_all(&TableReader::new(files.clone(), cols).with_batch_rows(3_000));
+    assert_eq!(blocks.iter().map(|b| b.kept()).sum::<usize>(), data.len());
+    for b in &blocks {
+        assert!(b.x.iter().all(|&m| m == b.file_index as f64));
+    }
     // a partition whose values are not numbers cannot be a feature
     let sel = ColumnSelection {
         features: Some(vec!["region".into()]),
@@ -361,6 +373,16 @@ fn integer_and_float_types_of_all_widths_read_as_f64() {
             "flag",
             Arc::new(BooleanArray::from(vec![true, false, true])),
         ),
+        (
+            "dict",
+            Arc::new(
+                DictionaryArray::<Int32Type>::try_new(
+                    Int32Array::from(vec![1, 0, 1]),
+                    Arc::new(Float64Array::from(vec![4.5, -1.0])),
+                )
+                .unwrap(),
+            ),
+        ),
         ("name", Arc::new(StringArray::from(vec!["a", "b", "c"]))),
     ];
     let path = dir.path().join("types.parquet");
@@ -369,7 +391,7 @@ fn integer_and_float_types_of_all_widths_read_as_f64() {
     let cols =
         resolve_columns(&files, &ColumnSelection::default(), &CsvOptions::default()).unwrap();
     // the text column is left out of the defaults
-    assert_eq!(cols.features.len(), 13);
+    assert_eq!(cols.features.len(), 14);
     assert!(!cols.features.contains(&"name".to_string()));
     let blocks = read_all(&TableReader::new(files, cols));
     let x = &blocks[0].x;
@@ -399,9 +421,9 @@ fn integer_and_float_types_of_all_widths_read_as_f64() {
         ],
     ];
     let rest = [
-        [1.5, 0.1f32 as f64, 1.5, 1.5, 1.0],
-        [-2.0, -3.5, -2.0, -2.0, 0.0],
-        [0.25, 1e30f32 as f64, 0.25, 0.25, 1.0],
+        [1.5, 0.1f32 as f64, 1.5, 1.5, 1.0, -1.0],
+        [-2.0, -3.5, -2.0, -2.0, 0.0, 4.5],
+        [0.25, 1e30f32 as f64, 0.25, 0.25, 1.0, -1.0],
     ];
     for r in 0..3 {
         let got: Vec<f64> = x.row(r).to_vec();

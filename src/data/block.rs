@@ -121,10 +121,16 @@ pub(crate) fn build_block(
         let out = x
             .as_slice_mut()
             .expect("a freshly allocated array is contiguous");
-        for (j, a) in cols[..n_features].iter().enumerate() {
-            let v = a.values();
-            for (r, &i) in kept.iter().enumerate() {
-                out[r * n_features + j] = v[i];
+        // Column-to-row transpose in tiles of rows, so that the tile of `x` being
+        // written stays in cache while each column is gathered into it.
+        const TILE: usize = 256;
+        let values: Vec<&[f64]> = cols[..n_features].iter().map(|a| &a.values()[..]).collect();
+        for (t, rows) in kept.chunks(TILE).enumerate() {
+            let tile = &mut out[t * TILE * n_features..(t * TILE + rows.len()) * n_features];
+            for (j, v) in values.iter().enumerate() {
+                for (dst, &i) in tile.iter_mut().skip(j).step_by(n_features).zip(rows) {
+                    *dst = v[i];
+                }
             }
         }
     }

@@ -2,7 +2,7 @@
 //!
 //! Parquet schemas come from the footers; CSV column types are inferred from the header
 //! and the first 1,000 records (see [`super::csv`]). Every Arrow integer, float and
-//! decimal type is numeric and read as `f64`; booleans are numeric too and read as 1
+//! decimal type (also dictionary-encoded) is numeric and read as `f64`; booleans are numeric too and read as 1
 //! (true) and 0 (false). A partition folder `key=value` supplies a column `key` only
 //! when it is named explicitly (as a feature or the target) and the file has no
 //! column of that name; its value must parse as a number.
@@ -60,7 +60,10 @@ pub(crate) enum Kind {
 
 /// Whether an Arrow type is read as `f64`.
 pub(crate) fn is_numeric(dt: &DataType) -> bool {
-    dt.is_numeric() || matches!(dt, DataType::Boolean)
+    match dt {
+        DataType::Dictionary(_, values) => is_numeric(values),
+        dt => dt.is_numeric() || matches!(dt, DataType::Boolean),
+    }
 }
 
 fn kind_of(dt: &DataType) -> Kind {

@@ -11,6 +11,7 @@
 mod block;
 mod columns;
 mod csv;
+mod open;
 mod reader;
 mod sample;
 mod sources;

@@ -94,3 +94,53 @@ impl BottomK {
         (ids, values)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        /// Whatever the split of the rows into parts and the order of merging, the sample
+        /// equals the brute-force bottom-k: sort all rows by key, keep the first k
+        /// (Cohen & Kaplan, PODC 2007, definition of the bottom-k sketch).
+        #[test]
+        fn split_and_merge_give_the_bottom_k(
+            n in 0u64..400,
+            k in 0usize..50,
+            seed in any::<u64>(),
+            cuts in proptest::collection::vec(0u64..400, 0..6),
+        ) {
+            let mut keyed: Vec<(u64, u64)> = (0..n).map(|i| (sample_key(seed, i), i)).collect();
+            keyed.sort_unstable();
+            let mut want: Vec<u64> = keyed.iter().take(k).map(|&(_, i)| i).collect();
+            want.sort_unstable();
+
+            let mut bounds: Vec<u64> = cuts.into_iter().map(|c| c.min(n)).collect();
+            bounds.push(0);
+            bounds.push(n);
+            bounds.sort_unstable();
+            let mut parts: Vec<BottomK> = bounds
+                .windows(2)
+                .map(|w| {
+                    let mut b = BottomK::new(k, 2, seed);
+                    for i in w[0]..w[1] {
+                        b.offer(i, &[i as f64, -(i as f64)]);
+                    }
+                    b
+                })
+                .collect();
+            parts.reverse();
+            let mut total = BottomK::new(k, 2, seed);
+            for p in parts {
+                total.absorb(p);
+            }
+            let (ids, values) = total.into_sorted();
+            prop_assert_eq!(&ids, &want);
+            for (r, &id) in ids.iter().enumerate() {
+                prop_assert_eq!(values[2 * r], id as f64);
+                prop_assert_eq!(values[2 * r + 1], -(id as f64));
+            }
+        }
+    }
+}

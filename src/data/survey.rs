@@ -309,3 +309,36 @@ pub fn survey(
         sample_row_ids,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::Moments;
+
+    /// Welford's update and Chan, Golub & LeVeque's merge over any split agree with the
+    /// two-pass mean and population variance (common practice: the two-pass formula is
+    /// the accurate reference), on values with a large mean relative to their spread.
+    #[test]
+    fn welford_and_pairwise_merge_match_two_pass() {
+        let values: Vec<f64> = (0..5_000u64)
+            .map(|i| 1.0e6 + ((i * 7_919) % 1_009) as f64 * 0.013)
+            .collect();
+        let n = values.len() as f64;
+        let mean = values.iter().sum::<f64>() / n;
+        let var = values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / n;
+        for cuts in [vec![], vec![1], vec![17, 2_500], vec![999, 1_000, 4_321]] {
+            let mut total = Moments::EMPTY;
+            let mut start = 0;
+            for end in cuts.iter().copied().chain([values.len()]) {
+                let mut part = Moments::EMPTY;
+                for &v in &values[start..end] {
+                    part.push(v);
+                }
+                total.merge(&part);
+                start = end;
+            }
+            assert_eq!(total.n, 5_000);
+            assert!((total.mean - mean).abs() <= 1e-12 * mean.abs(), "{cuts:?}");
+            assert!((total.m2 / n - var).abs() <= 1e-9 * var, "{cuts:?}");
+        }
+    }
+}
