@@ -3,7 +3,8 @@
 
 use std::path::Path;
 
-use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis, Zip};
+use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::coverage::Coverage;
@@ -116,9 +117,10 @@ impl Model {
         assert_eq!(x.ncols(), self.input_dim(), "predict: wrong number of input columns");
         assert_eq!(out.len(), x.nrows(), "predict: output length differs from rows");
         let d_out = self.map.output_dim();
-        Zip::from(x.axis_chunks_iter(Axis(0), PREDICT_CHUNK))
-            .and(out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK))
-            .par_for_each(|xc, mut oc| {
+        x.axis_chunks_iter(Axis(0), PREDICT_CHUNK)
+            .into_par_iter()
+            .zip(out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK).into_par_iter())
+            .for_each(|(xc, mut oc)| {
                 let mut xs = xc.to_owned();
                 self.scaler.apply(xs.view_mut());
                 let mut z = Array2::zeros((xs.nrows(), d_out));
