@@ -501,6 +501,14 @@ fn bad_input_gives_typed_errors() {
         })
     ));
     let r = with(SmoSettings {
+        tol: 0.0,
+        ..SmoSettings::default()
+    });
+    assert!(matches!(
+        r,
+        Err(Error::InvalidParameter { name: "tol", .. })
+    ));
+    let r = with(SmoSettings {
         cache_bytes: 2 * 20 * 8 - 1,
         ..SmoSettings::default()
     });

@@ -261,12 +261,17 @@ pub fn fit(
     };
     let cache_rows = RowCache::rows_in_budget(settings.cache_bytes, n);
     let mut engine = Engine::new(src, &ys, settings.c, settings.epsilon, cache_rows);
-    let outcome = engine.run(
-        settings.tol,
-        settings.max_iterations,
-        settings.shrinking,
-        settings.selection,
-    );
+    // The sequential loop runs on a worker of the current rayon pool, so that the
+    // parallel kernel rows are split with the calling thread taking part, instead of
+    // this thread blocking until pool threads are scheduled for every row.
+    let outcome = rayon::scope(|_| {
+        engine.run(
+            settings.tol,
+            settings.max_iterations,
+            settings.shrinking,
+            settings.selection,
+        )
+    });
     let (final_gap, bias) = engine.gap_and_bias();
     let objective = engine.objective();
 
