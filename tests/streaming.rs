@@ -71,19 +71,20 @@ fn same_seed_gives_identical_model_bytes_with_one_and_two_threads() {
 #[test]
 fn two_block_sizes_converge_to_the_same_predictions() {
     // published (Ho & Lin 2012): the L2-loss dual is strictly convex, so its optimum is
-    // unique whatever the visiting order; run both to machine precision.
-    let (x, y, _) = friedman1(600, 33);
+    // unique whatever the visiting order; run both for a fixed, large number of epochs
+    // (tolerance 0) so both reach the optimum to machine precision.
+    let (x, y, _) = friedman1(400, 33);
     let dir = tempfile::tempdir().unwrap();
     write_parts(dir.path(), &names(10), &x, &y, 3);
     let fit = |rows: usize| {
         fitter()
-            .with_tol(1e-15)
-            .with_max_epochs(3_000)
+            .with_tol(0.0)
+            .with_max_epochs(600)
             .fit_files(&reader_for(dir.path(), rows), &Silent, &|_| {})
             .unwrap()
     };
-    let (a, b) = (fit(64), fit(200));
-    let xs = x.slice(s![..300, ..]);
+    let (a, b) = (fit(50), fit(160));
+    let xs = x.slice(s![..200, ..]);
     let diff = (&a.predict(xs) - &b.predict(xs)).mapv(f64::abs).fold(0.0f64, |m, &v| m.max(v));
     assert!(diff <= 1e-9, "predictions differ by {diff}");
 }

@@ -451,7 +451,7 @@ impl Trainer<'_> {
             observer.epoch_finished(&record);
             history.push(record);
 
-            if epoch > 1 && start_objective.gap <= dcd.tol {
+            if epoch > 1 && dcd.tol > 0.0 && start_objective.gap <= dcd.tol {
                 certified = Some((w_start, start_objective));
                 stop = StopReason::Gap;
                 break;
