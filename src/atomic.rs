@@ -134,10 +134,7 @@ impl Drop for AtomicFile {
 ///
 /// # Errors
 /// Those of [`AtomicFile::create`], of `f`, and of [`AtomicFile::commit`].
-pub fn write_atomic(
-    final_path: &Path,
-    f: impl FnOnce(&mut File) -> Result<()>,
-) -> Result<()> {
+pub fn write_atomic(final_path: &Path, f: impl FnOnce(&mut File) -> Result<()>) -> Result<()> {
     let mut out = AtomicFile::create(final_path)?;
     f(out.file())?;
     out.commit()

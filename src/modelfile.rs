@@ -27,7 +27,9 @@ use std::io::Cursor;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-use arrow_array::{Array, ArrayRef, Float64Array, ListArray, RecordBatch, StringArray, UInt64Array};
+use arrow_array::{
+    Array, ArrayRef, Float64Array, ListArray, RecordBatch, StringArray, UInt64Array,
+};
 use arrow_buffer::{OffsetBuffer, ScalarBuffer};
 use arrow_schema::{DataType, Field, Schema};
 use ndarray::Array2;
@@ -180,7 +182,10 @@ impl ModelFile {
 }
 
 /// CRC-32 over the meta JSON bytes and the arrays' names, shapes and values.
-fn checksum_of<'a>(meta_json: &[u8], arrays: impl Iterator<Item = (&'a str, &'a Array2<f64>)>) -> u32 {
+fn checksum_of<'a>(
+    meta_json: &[u8],
+    arrays: impl Iterator<Item = (&'a str, &'a Array2<f64>)>,
+) -> u32 {
     let mut hasher = crc32fast::Hasher::new();
     hasher.update(meta_json);
     for (name, array) in arrays {
@@ -243,8 +248,8 @@ fn check_framing(bytes: &[u8]) -> std::result::Result<(), &'static str> {
         .checked_sub(footer_len)
         .filter(|&s| s >= 8)
         .ok_or("footer length beyond the file")?;
-    let footer = arrow_ipc::root_as_footer(&bytes[footer_start..tail])
-        .map_err(|_| "unreadable footer")?;
+    let footer =
+        arrow_ipc::root_as_footer(&bytes[footer_start..tail]).map_err(|_| "unreadable footer")?;
     if footer.dictionaries().is_some_and(|d| !d.is_empty()) {
         return Err("unexpected dictionaries");
     }
@@ -311,7 +316,9 @@ fn check_framing(bytes: &[u8]) -> std::result::Result<(), &'static str> {
 fn decode(bytes: &[u8], origin: &Path) -> Result<ModelFile> {
     let fail = |message: String| model_error(origin, message);
     let damaged = |e: arrow_schema::ArrowError| {
-        fail(format!("is damaged: its Arrow structure cannot be decoded ({e})"))
+        fail(format!(
+            "is damaged: its Arrow structure cannot be decoded ({e})"
+        ))
     };
     let mut reader =
         arrow_ipc::reader::FileReader::try_new(Cursor::new(bytes), None).map_err(damaged)?;
@@ -357,27 +364,38 @@ fn decode(bytes: &[u8], origin: &Path) -> Result<ModelFile> {
     if reader.num_batches() != 1 {
         return Err(corrupted());
     }
-    let batch = reader
-        .next()
-        .ok_or_else(corrupted)?
-        .map_err(damaged)?;
+    let batch = reader.next().ok_or_else(corrupted)?.map_err(damaged)?;
     let arrays = arrays_from_batch(&batch).ok_or_else(corrupted)?;
-    let sum = checksum_of(meta_json.as_bytes(), arrays.iter().map(|(n, a)| (n.as_str(), a)));
+    let sum = checksum_of(
+        meta_json.as_bytes(),
+        arrays.iter().map(|(n, a)| (n.as_str(), a)),
+    );
     if sum != stored_sum {
         return Err(corrupted());
     }
-    let meta: serde_json::Value = serde_json::from_str(meta_json).map_err(|e| {
-        fail(format!("has metadata that is not valid JSON ({e})"))
-    })?;
+    let meta: serde_json::Value = serde_json::from_str(meta_json)
+        .map_err(|e| fail(format!("has metadata that is not valid JSON ({e})")))?;
     Ok(ModelFile { meta, arrays })
 }
 
 /// The named arrays of the record batch, or `None` if its layout is not ours.
 fn arrays_from_batch(batch: &RecordBatch) -> Option<Vec<(String, Array2<f64>)>> {
-    let names = batch.column_by_name("name")?.as_any().downcast_ref::<StringArray>()?;
-    let rows = batch.column_by_name("rows")?.as_any().downcast_ref::<UInt64Array>()?;
-    let cols = batch.column_by_name("cols")?.as_any().downcast_ref::<UInt64Array>()?;
-    let values = batch.column_by_name("values")?.as_any().downcast_ref::<ListArray>()?;
+    let names = batch
+        .column_by_name("name")?
+        .as_any()
+        .downcast_ref::<StringArray>()?;
+    let rows = batch
+        .column_by_name("rows")?
+        .as_any()
+        .downcast_ref::<UInt64Array>()?;
+    let cols = batch
+        .column_by_name("cols")?
+        .as_any()
+        .downcast_ref::<UInt64Array>()?;
+    let values = batch
+        .column_by_name("values")?
+        .as_any()
+        .downcast_ref::<ListArray>()?;
     if names.null_count() + rows.null_count() + cols.null_count() + values.null_count() > 0 {
         return None;
     }

@@ -92,7 +92,11 @@ fn generated_partitions_have_the_documented_layout_and_content() {
     assert!((1..=40).contains(&summary.hot_site));
 
     let files = all_files(dir.path());
-    assert_eq!(files.len(), 40 * 12, "one file per site and month, no leftovers");
+    assert_eq!(
+        files.len(),
+        40 * 12,
+        "one file per site and month, no leftovers"
+    );
     assert_eq!(
         files.values().map(|b| b.len() as u64).sum::<u64>(),
         summary.bytes
@@ -173,14 +177,22 @@ fn generated_partitions_have_the_documented_layout_and_content() {
             let kw = f64_col(&batch, "compressor_kw");
             nulls[0] += rh.null_count();
             nulls[1] += room.null_count();
-            for col in ["outdoor_temp", "room_setpoint", "door_open_min", "product_load_t"] {
+            for col in [
+                "outdoor_temp",
+                "room_setpoint",
+                "door_open_min",
+                "product_load_t",
+            ] {
                 assert_eq!(f64_col(&batch, col).null_count(), 0, "{col}");
             }
             assert_eq!(kw.null_count(), 0);
             for i in 0..n {
                 // common practice: the scenario's documented ranges.
                 let sp = setpoint.value(i);
-                assert!((-25.0..=-18.0).contains(&sp) || (0.0..=4.0).contains(&sp), "{sp}");
+                assert!(
+                    (-25.0..=-18.0).contains(&sp) || (0.0..=4.0).contains(&sp),
+                    "{sp}"
+                );
                 if room.is_valid(i) {
                     assert!((room.value(i) - sp).abs() <= 3.0 + 1e-12);
                 }
@@ -271,7 +283,10 @@ fn invalid_specs_are_typed_errors() {
     let dir = tempfile::tempdir().unwrap();
     for bad in [
         DemoSpec { rows: 0, ..spec(1) },
-        DemoSpec { sites: 0, ..spec(1) },
+        DemoSpec {
+            sites: 0,
+            ..spec(1)
+        },
         DemoSpec {
             start_year: 20_000,
             ..spec(1)

@@ -120,10 +120,26 @@ fn plain_arrow_reader_sees_documented_layout() {
     assert_eq!(reader.num_batches(), 1);
     let batch = reader.next().unwrap().unwrap();
     assert_eq!(batch.num_rows(), model.arrays.len());
-    let name = batch.column(0).as_any().downcast_ref::<StringArray>().unwrap();
-    let rows = batch.column(1).as_any().downcast_ref::<UInt64Array>().unwrap();
-    let cols = batch.column(2).as_any().downcast_ref::<UInt64Array>().unwrap();
-    let values = batch.column(3).as_any().downcast_ref::<ListArray>().unwrap();
+    let name = batch
+        .column(0)
+        .as_any()
+        .downcast_ref::<StringArray>()
+        .unwrap();
+    let rows = batch
+        .column(1)
+        .as_any()
+        .downcast_ref::<UInt64Array>()
+        .unwrap();
+    let cols = batch
+        .column(2)
+        .as_any()
+        .downcast_ref::<UInt64Array>()
+        .unwrap();
+    let values = batch
+        .column(3)
+        .as_any()
+        .downcast_ref::<ListArray>()
+        .unwrap();
     // reference library: crc32fast over the documented byte sequence.
     let mut crc = crc32fast::Hasher::new();
     crc.update(meta_json.as_bytes());
@@ -195,7 +211,10 @@ fn every_byte_flip_errors_cleanly_or_loads_the_same_model() {
         }
     }
     // Every value and meta byte is covered by the checksum, so many flips must be refused.
-    assert!(checksum_failures > 0 && refused > bytes.len() / 2, "{refused} refused");
+    assert!(
+        checksum_failures > 0 && refused > bytes.len() / 2,
+        "{refused} refused"
+    );
 
     // A flip inside the stored values is a checksum failure, named as such.
     let needle = 0.75f64.to_le_bytes();
@@ -330,5 +349,8 @@ fn save_leaves_no_temporary_file_and_interrupted_writes_leave_nothing() {
 
     // Saving into a folder that does not exist is an I/O error naming it.
     let nowhere = dir.path().join("no-such-folder").join("model.klm");
-    assert!(matches!(sample_model().save(&nowhere), Err(Error::Io { .. })));
+    assert!(matches!(
+        sample_model().save(&nowhere),
+        Err(Error::Io { .. })
+    ));
 }

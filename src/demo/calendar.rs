@@ -76,9 +76,15 @@ mod tests {
         assert_eq!(days_from_civil(2024, 2, 29), 19_782);
         assert_eq!(days_from_civil(1969, 12, 31), -1);
         // common practice: 2024 is a leap year, 2023 is not
-        let feb24 = Month { year: 2024, month: 2 };
+        let feb24 = Month {
+            year: 2024,
+            month: 2,
+        };
         assert_eq!((feb24.end_ms() - feb24.start_ms()) / MS_PER_DAY, 29);
-        let feb23 = Month { year: 2023, month: 2 };
+        let feb23 = Month {
+            year: 2023,
+            month: 2,
+        };
         assert_eq!((feb23.end_ms() - feb23.start_ms()) / MS_PER_DAY, 28);
         // common practice: 2024-01-01 was a Monday
         assert_eq!(weekday(days_from_civil(2024, 1, 1) * MS_PER_DAY), 0);

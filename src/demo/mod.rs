@@ -20,9 +20,7 @@ mod site;
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
-use arrow_array::{
-    ArrayRef, Float64Array, Int32Array, RecordBatch, TimestampMillisecondArray,
-};
+use arrow_array::{ArrayRef, Float64Array, Int32Array, RecordBatch, TimestampMillisecondArray};
 use arrow_schema::{DataType, Field, Schema, SchemaRef, TimeUnit};
 use parquet::arrow::ArrowWriter;
 use parquet::basic::Compression;
@@ -112,7 +110,8 @@ pub fn schema() -> SchemaRef {
 
 /// The sub-folder of `out` that holds one site's month: `site=NN/month=YYYY-MM`.
 pub fn partition_dir(out: &Path, site: u32, month: &str) -> PathBuf {
-    out.join(format!("site={site:02}")).join(format!("month={month}"))
+    out.join(format!("site={site:02}"))
+        .join(format!("month={month}"))
 }
 
 /// Writes Parquet partitioned `site=NN/month=YYYY-MM/part-0.parquet` under `out` (each
@@ -149,7 +148,9 @@ pub fn generate(
         ));
     }
     let hot_site = hot_site(spec);
-    let months: Vec<Month> = (0..MONTHS).map(|i| Month::nth(spec.start_year, i)).collect();
+    let months: Vec<Month> = (0..MONTHS)
+        .map(|i| Month::nth(spec.start_year, i))
+        .collect();
     let done = Mutex::new(0u64);
     let report = |n: u64| {
         let mut total = done.lock().unwrap_or_else(|e| e.into_inner());
@@ -217,8 +218,8 @@ fn write_site(
                 path: path.clone(),
                 message: format!("cannot be written as Parquet ({e})"),
             };
-            let mut writer =
-                ArrowWriter::try_new(&mut *file, schema.clone(), Some(props)).map_err(parquet_err)?;
+            let mut writer = ArrowWriter::try_new(&mut *file, schema.clone(), Some(props))
+                .map_err(parquet_err)?;
             let (start, end) = (month.start_ms(), month.end_ms());
             let step = (end - start) as f64 / n as f64;
             let mut first = 0;
@@ -226,7 +227,9 @@ fn write_site(
                 let count = BATCH_ROWS.min(n - first);
                 let mut rows = Rows::default();
                 sim.simulate(start, step, first, count, &mut rows);
-                writer.write(&to_batch(&schema, rows)).map_err(parquet_err)?;
+                writer
+                    .write(&to_batch(&schema, rows))
+                    .map_err(parquet_err)?;
                 report(count);
                 first += count;
             }

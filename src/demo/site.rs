@@ -111,8 +111,8 @@ impl SiteParams {
         }
         // Installed capacity: 1.3 … 1.6 times the draw on a design day (32 °C, humid,
         // busy doors, 10 t an hour), so only extreme hours reach the cap.
-        let design = p.heat_load_kw(32.0, 60.0, p.setpoint + 1.0, 20.0, 10.0, false)
-            / p.cop(32.0, 0.0);
+        let design =
+            p.heat_load_kw(32.0, 60.0, p.setpoint + 1.0, 20.0, 10.0, false) / p.cop(32.0, 0.0);
         p.capacity_kw = design * rng.random_range(1.3..1.6);
         p
     }
@@ -225,7 +225,14 @@ impl SiteSim {
 
     /// Appends the rows `first .. first + count` of a stretch sampled every `step_ms`
     /// milliseconds from `start_ms` to `out`.
-    pub fn simulate(&mut self, start_ms: i64, step_ms: f64, first: u64, count: u64, out: &mut Rows) {
+    pub fn simulate(
+        &mut self,
+        start_ms: i64,
+        step_ms: f64,
+        first: u64,
+        count: u64,
+        out: &mut Rows,
+    ) {
         for k in first..first + count {
             self.row(start_ms + (k as f64 * step_ms) as i64, out);
         }
@@ -272,16 +279,15 @@ impl SiteSim {
         let door_noise: f64 = self.rng.sample(StandardNormal);
         let door_open_min = (profile * p.traffic * (0.35 * door_noise).exp()).clamp(0.0, 45.0);
         let load_noise: f64 = self.rng.sample(StandardNormal);
-        let product_load_t =
-            (door_open_min * 0.55 + 1.5 * load_noise).clamp(0.0, 30.0);
+        let product_load_t = (door_open_min * 0.55 + 1.5 * load_noise).clamp(0.0, 30.0);
         let minute_of_day = hour_f * 60.0;
         let cycle_min = 1440.0 / f64::from(p.defrosts_per_day);
         let defrost = (minute_of_day % cycle_min) < p.defrost_min;
 
         // Room temperature lags doors, product and defrost (time constant 30 min).
-        let target = (0.06 * door_open_min + 0.04 * product_load_t
-            + if defrost { 1.5 } else { 0.0 })
-        .min(3.0);
+        let target =
+            (0.06 * door_open_min + 0.04 * product_load_t + if defrost { 1.5 } else { 0.0 })
+                .min(3.0);
         let follow = 1.0 - (-dt_h / 0.5).exp();
         let room_noise: f64 = self.rng.sample(StandardNormal);
         self.room_offset += (target - self.room_offset) * follow;
