@@ -16,7 +16,7 @@ than memory (Parquet or CSV), through random Fourier, orthogonal or Nyström fea
 
 /// kernlake: non-linear epsilon-SVR for data lakes.
 #[derive(Debug, Parser)]
-#[command(name = "kernlake", version, about = ABOUT, after_help = super::SAFETY)]
+#[command(name = "kernlake", version, about = ABOUT, after_help = super::SAFETY, args_override_self = true)]
 pub struct Cli {
     /// No progress bars or notes; errors are still printed.
     #[arg(long, short, global = true)]
@@ -119,7 +119,7 @@ pub struct ModelArgs {
     #[arg(long, value_enum, default_value = "gaussian")]
     pub kernel: KernelArg,
     /// Kernel width (default: 1 / median squared distance of standardized sample rows).
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true)]
     pub gamma: Option<f64>,
     /// Feature map.
     #[arg(long, value_enum, default_value = "fourier")]
@@ -134,10 +134,10 @@ pub struct ModelArgs {
     #[arg(long)]
     pub kmeans: bool,
     /// Penalty C in target units (default: Cherkassky & Ma 2004).
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true)]
     pub c: Option<f64>,
     /// Tube half-width in target units (default: Cherkassky & Ma 2004).
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true)]
     pub epsilon: Option<f64>,
     /// Loss outside the tube: linear (l1) or squared (l2).
     #[arg(long, default_value = "l2", value_parser = ["l1", "l2"])]
