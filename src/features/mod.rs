@@ -120,6 +120,7 @@ pub trait FeatureMap: Send + Sync + std::fmt::Debug {
     fn transform_into(&self, x: ArrayView2<f64>, out: ArrayViewMut2<f64>);
 
     /// Allocating form of [`FeatureMap::transform_into`].
+    #[track_caller]
     fn transform(&self, x: ArrayView2<f64>) -> Array2<f64> {
         let mut out = Array2::zeros((x.nrows(), self.output_dim()));
         self.transform_into(x, out.view_mut());
@@ -277,6 +278,7 @@ pub(crate) fn saved_array<'a>(
 /// Checks shapes and runs `f(x_chunk, out_chunk)` over chunks of [`chunk_rows`] rows in
 /// parallel on the current rayon pool. Each output row depends only on its input row, so
 /// neither the chunk size nor the thread count changes any result.
+#[track_caller]
 pub(crate) fn par_row_chunks<F>(
     map: &dyn FeatureMap,
     x: ArrayView2<f64>,
