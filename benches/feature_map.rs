@@ -15,13 +15,14 @@ use rayon::prelude::*;
 
 const ROWS: usize = 16_384;
 const D_IN: usize = 20;
-const CHUNK: usize = 256;
 
-/// The bare product `out = x W` in the transforms' layout: chunks of 256 rows in parallel.
+/// The bare product `out = x W` in the transforms' layout: chunks whose output block is
+/// about 512 KiB (16 to 256 rows, as in `kernlake::features`), in parallel.
 fn chunked_product(x: ArrayView2<f64>, w: ArrayView2<f64>, mut out: ArrayViewMut2<f64>) {
-    out.axis_chunks_iter_mut(Axis(0), CHUNK)
+    let rows = (512 * 1024 / (8 * w.ncols())).clamp(16, 256);
+    out.axis_chunks_iter_mut(Axis(0), rows)
         .into_par_iter()
-        .zip(x.axis_chunks_iter(Axis(0), CHUNK).into_par_iter())
+        .zip(x.axis_chunks_iter(Axis(0), rows).into_par_iter())
         .for_each(|(mut o, xc)| ndarray::linalg::general_mat_mul(1.0, &xc, &w, 0.0, &mut o));
 }
 

@@ -161,6 +161,7 @@ impl Kernel {
     ///
     /// # Panics
     /// If `a` and `b` differ in columns or `out` is not `a.nrows() × b.nrows()`.
+    #[track_caller]
     pub fn block_into(&self, a: ArrayView2<f64>, b: ArrayView2<f64>, mut out: ArrayViewMut2<f64>) {
         check_block_shapes(&a, &b, &out);
         // Chunks of rows of `a` keep the product's output in cache and run in parallel.
@@ -183,6 +184,7 @@ impl Kernel {
     ///
     /// # Panics
     /// If `a` and `b` differ in columns or `out` is not `a.nrows() × b.nrows()`.
+    #[track_caller]
     pub fn block_into_seq(
         &self,
         a: ArrayView2<f64>,
@@ -215,6 +217,7 @@ impl Kernel {
     }
 
     /// Allocating form of [`Kernel::block_into`].
+    #[track_caller]
     pub fn block(&self, a: ArrayView2<f64>, b: ArrayView2<f64>) -> ndarray::Array2<f64> {
         let mut out = ndarray::Array2::zeros((a.nrows(), b.nrows()));
         self.block_into(a, b, out.view_mut());
@@ -222,6 +225,7 @@ impl Kernel {
     }
 }
 
+#[track_caller]
 fn check_block_shapes(a: &ArrayView2<f64>, b: &ArrayView2<f64>, out: &ArrayViewMut2<f64>) {
     assert_eq!(a.ncols(), b.ncols(), "kernel block: column counts differ");
     assert_eq!(

@@ -120,6 +120,7 @@ pub trait FeatureMap: Send + Sync + std::fmt::Debug {
     fn transform_into(&self, x: ArrayView2<f64>, out: ArrayViewMut2<f64>);
 
     /// Allocating form of [`FeatureMap::transform_into`].
+    #[track_caller]
     fn transform(&self, x: ArrayView2<f64>) -> Array2<f64> {
         let mut out = Array2::zeros((x.nrows(), self.output_dim()));
         self.transform_into(x, out.view_mut());
@@ -200,9 +201,15 @@ pub fn map_from_parts(parts: &MapParts) -> Result<Box<dyn FeatureMap>> {
     })
 }
 
-/// Rows per parallel work item in the transforms: the output block of 256 rows stays in
-/// cache while the cosine runs over it.
-pub(crate) const CHUNK_ROWS: usize = 256;
+/// Rows per parallel work item in the transforms, at most 256 and at least 16: the
+/// output block of a chunk is kept near [`CHUNK_BYTES`] so that it stays in the level-2
+/// cache while the cosine runs over it after the product has written it.
+pub(crate) fn chunk_rows(output_dim: usize) -> usize {
+    (CHUNK_BYTES / (8 * output_dim.max(1))).clamp(16, 256)
+}
+
+/// Target size of one chunk's output block (512 KiB).
+pub(crate) const CHUNK_BYTES: usize = 512 * 1024;
 
 /// The error for a malformed saved map.
 pub(crate) fn bad_parts(reason: impl Into<String>) -> Error {
@@ -268,8 +275,10 @@ pub(crate) fn saved_array<'a>(
     Ok(a)
 }
 
-/// Checks shapes and runs `f(x_chunk, out_chunk)` over chunks of [`CHUNK_ROWS`] rows in
-/// parallel on the current rayon pool. Each output row depends only on its input row.
+/// Checks shapes and runs `f(x_chunk, out_chunk)` over chunks of [`chunk_rows`] rows in
+/// parallel on the current rayon pool. Each output row depends only on its input row, so
+/// neither the chunk size nor the thread count changes any result.
+#[track_caller]
 pub(crate) fn par_row_chunks<F>(
     map: &dyn FeatureMap,
     x: ArrayView2<f64>,
@@ -299,9 +308,10 @@ pub(crate) fn par_row_chunks<F>(
         x.nrows(),
         out.nrows()
     );
-    out.axis_chunks_iter_mut(Axis(0), CHUNK_ROWS)
+    let rows = chunk_rows(map.output_dim());
+    out.axis_chunks_iter_mut(Axis(0), rows)
         .into_par_iter()
-        .zip(x.axis_chunks_iter(Axis(0), CHUNK_ROWS).into_par_iter())
+        .zip(x.axis_chunks_iter(Axis(0), rows).into_par_iter())
         .for_each(|(o, xc)| f(xc, o));
 }
 

@@ -220,6 +220,7 @@ impl FeatureMap for NystromMap {
         self.projection.ncols()
     }
 
+    #[track_caller]
     fn transform_into(&self, x: ArrayView2<f64>, out: ArrayViewMut2<f64>) {
         par_row_chunks(self, x, out, |xc, oc| self.map_chunk(xc, oc));
     }
