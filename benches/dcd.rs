@@ -185,7 +185,16 @@ fn main() {
 
     let dim = if full { 1000 } else { 200 };
     let z = rff(x.view(), dim, 42);
-    let max_epochs = if full { 100 } else { 5 };
+    let max_epochs = if full {
+        std::env::var("DCD_BENCH_EPOCHS")
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(100)
+    } else {
+        5
+    };
+    // Optional filter, e.g. DCD_BENCH_PROBLEMS="L1:10,L1:100".
+    let only = std::env::var("DCD_BENCH_PROBLEMS").unwrap_or_default();
     let variants = [
         Variant {
             name: "plain: 1 sweep, no shrink, no cache",
@@ -209,7 +218,7 @@ fn main() {
             cache: None,
         },
         Variant {
-            name: "100 sweeps+shrink+free-SV cache",
+            name: "100 sweeps+shrink+free-SV cache (L1)",
             shrinking: true,
             sweeps: 100,
             block: 1024,
@@ -229,7 +238,13 @@ fn main() {
         (Loss::L1, 10.0),
         (Loss::L1, 100.0),
     ] {
+        if !only.is_empty() && !only.split(',').any(|p| p == format!("{loss:?}:{c}")) {
+            continue;
+        }
         for v in &variants {
+            if v.name.ends_with("(L1)") && loss != Loss::L1 {
+                continue;
+            }
             let settings = DcdSettings {
                 c,
                 epsilon: 0.05,
