@@ -65,6 +65,8 @@ impl DcdFit {
 /// in target units), and epochs of [`solve_block`] run over blocks of `block_rows`
 /// consecutive rows, the block order reshuffled every epoch from `settings.seed`, until
 /// the relative duality gap is at most `settings.tol` or `settings.max_epochs` passed.
+/// The free support vectors are kept in memory from block to block
+/// ([`BlockWorkspace::new`]), which is what lets several blocks converge together.
 /// A constant target gives the constant model (no weights, intercept = the mean).
 ///
 /// # Errors
