@@ -44,9 +44,15 @@ impl Coverage {
     /// Chooses landmarks from the first [`COVERAGE_LANDMARKS`] rows of a standardized
     /// uniform sample and the threshold from the remaining sample rows (or from
     /// `reference` rows when given).
-    pub fn fit(sample: ArrayView2<f64>, kernel: Kernel, reference: Option<ArrayView2<f64>>) -> Result<Coverage> {
+    pub fn fit(
+        sample: ArrayView2<f64>,
+        kernel: Kernel,
+        reference: Option<ArrayView2<f64>>,
+    ) -> Result<Coverage> {
         if sample.nrows() == 0 {
-            return Err(Error::NoRows("coverage needs at least one sample row".into()));
+            return Err(Error::NoRows(
+                "coverage needs at least one sample row".into(),
+            ));
         }
         let m = sample.nrows().min(COVERAGE_LANDMARKS);
         let landmarks = sample.slice(ndarray::s![..m, ..]).to_owned();
@@ -73,15 +79,24 @@ impl Coverage {
     /// # Panics
     /// If `x` has a different width from the landmarks or `out` the wrong length.
     pub fn values_into(&self, x: ArrayView2<f64>, mut out: ArrayViewMut1<f64>) {
-        assert_eq!(x.ncols(), self.landmarks.ncols(), "coverage: wrong input width");
-        assert_eq!(x.nrows(), out.len(), "coverage: output length differs from rows");
+        assert_eq!(
+            x.ncols(),
+            self.landmarks.ncols(),
+            "coverage: wrong input width"
+        );
+        assert_eq!(
+            x.nrows(),
+            out.len(),
+            "coverage: output length differs from rows"
+        );
         let mut block = Array2::zeros((CHUNK.min(x.nrows()), self.landmarks.nrows()));
         for (xc, mut oc) in x
             .axis_chunks_iter(Axis(0), CHUNK)
             .zip(out.axis_chunks_iter_mut(Axis(0), CHUNK))
         {
             let mut kb = block.slice_mut(ndarray::s![..xc.nrows(), ..]);
-            self.kernel.block_into(xc, self.landmarks.view(), kb.view_mut());
+            self.kernel
+                .block_into(xc, self.landmarks.view(), kb.view_mut());
             for (o, row) in oc.iter_mut().zip(kb.axis_iter(Axis(0))) {
                 *o = row.iter().fold(0.0f64, |a, &b| a.max(b));
             }

@@ -6,10 +6,8 @@ use std::time::Instant;
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 use serde::{Deserialize, Serialize};
 
-use crate::data::{
-    splitmix64, survey, ResolvedColumns, Survey, SurveySettings, TableReader,
-};
 use crate::coverage::Coverage;
+use crate::data::{splitmix64, survey, ResolvedColumns, Survey, SurveySettings, TableReader};
 use crate::error::{Error, Result};
 use crate::features::{build_map, MapSpec};
 use crate::kernel::{Kernel, KernelKind};
@@ -208,7 +206,10 @@ impl Fitter {
             }
         }
         if let Some(r) = y.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite { row: r, column: x.ncols() });
+            return Err(Error::NonFinite {
+                row: r,
+                column: x.ncols(),
+            });
         }
         let n = x.nrows() as u64;
         let scaler = Standardizer::fit(x);
@@ -266,7 +267,8 @@ impl Fitter {
         t0: Instant,
     ) -> Result<Model> {
         let o = &self.opts;
-        let train_rows = ((facts.rows_total - facts.rows_skipped) as f64 * (1.0 - o.holdout)) as u64;
+        let train_rows =
+            ((facts.rows_total - facts.rows_skipped) as f64 * (1.0 - o.holdout)) as u64;
         let need_defaults = o.gamma.is_none() || o.c.is_none() || o.epsilon.is_none();
         let defaults = if need_defaults {
             Some(Defaults::from_sample(
@@ -280,11 +282,34 @@ impl Fitter {
             None
         };
         let rule = |given: Option<f64>, default: Option<f64>, why: &str| match given {
-            Some(v) => Choice { value: v, source: "given".into() },
-            None => Choice { value: default.unwrap_or(f64::NAN), source: why.into() },
+            Some(v) => Choice {
+                value: v,
+                source: "given".into(),
+            },
+            None => Choice {
+                value: default.unwrap_or(f64::NAN),
+                source: why.into(),
+            },
         };
-        let gamma = rule(o.gamma, defaults.map(|d| d.gamma), "median heuristic: 1 / median squared distance of standardized sample rows");
-        let c = rule(o.c, defaults.map(|d| d.c), "Cherkassky & Ma (2004): max |mean ± 3 sd| of the target");
+        let gamma = rule(
+            o.gamma,
+            defaults.map(|d| d.gamma),
+            "median heuristic: 1 / median squared distance of standardized sample rows",
+        );
+        // Cherkassky & Ma's C is in target units, as C is for the linear loss. For the
+        // squared loss C multiplies squared residuals and is unit-free, so kernlake divides
+        // the rule's value by the target's standard deviation.
+        let (c_default, c_why) = match o.loss {
+            Loss::L1 => (
+                defaults.map(|d| d.c),
+                "Cherkassky & Ma (2004): max |mean ± 3 sd| of the target",
+            ),
+            Loss::L2 => (
+                defaults.map(|d| d.c / facts.target.sd),
+                "Cherkassky & Ma (2004) max |mean ± 3 sd| of the target, divided by sd for the squared loss",
+            ),
+        };
+        let c = rule(o.c, c_default, c_why);
         let epsilon = rule(
             o.epsilon,
             defaults.map(|d| d.epsilon),
@@ -294,7 +319,12 @@ impl Fitter {
             ),
         );
         let kernel = Kernel::new(o.kernel, gamma.value)?;
-        let map = build_map(&o.map, kernel, facts.scaler.dim(), Some(facts.sample_x.view()))?;
+        let map = build_map(
+            &o.map,
+            kernel,
+            facts.scaler.dim(),
+            Some(facts.sample_x.view()),
+        )?;
         let dcd = DcdSettings {
             c: c.value,
             epsilon: epsilon.value,
@@ -339,7 +369,11 @@ impl Fitter {
             updates: out.updates,
             history: out.history,
             seconds: t0.elapsed().as_secs_f64(),
-            threads: if o.threads == 0 { rayon::current_num_threads() } else { o.threads },
+            threads: if o.threads == 0 {
+                rayon::current_num_threads()
+            } else {
+                o.threads
+            },
         };
         let coverage = Coverage::fit(facts.sample_x.view(), kernel, None)?;
         let mut model = Model::new(
@@ -417,15 +451,24 @@ fn facts_from_survey(s: Survey, reader: &TableReader) -> Result<(Facts, TableRea
     let mut skipped_by_column: Vec<ColumnSkips> = s
         .features
         .iter()
-        .map(|c| ColumnSkips { column: c.name.clone(), rows: c.missing })
+        .map(|c| ColumnSkips {
+            column: c.name.clone(),
+            rows: c.missing,
+        })
         .collect();
-    skipped_by_column.push(ColumnSkips { column: target.name.clone(), rows: target.missing });
+    skipped_by_column.push(ColumnSkips {
+        column: target.name.clone(),
+        rows: target.missing,
+    });
     skipped_by_column.retain(|c| c.rows > 0);
     let sd = target.variance.sqrt();
     let facts = Facts {
         columns: columns.clone(),
         scaler,
-        target: TargetScale { mean: target.mean, sd: if sd > 0.0 { sd } else { 1.0 } },
+        target: TargetScale {
+            mean: target.mean,
+            sd: if sd > 0.0 { sd } else { 1.0 },
+        },
         sample_x,
         sample_y,
         rows_total: s.rows_total,
@@ -450,7 +493,11 @@ impl BlockSource for FileSource<'_> {
         self.reader.files().len()
     }
 
-    fn read_unit(&self, unit: usize, sink: &mut dyn FnMut(crate::data::Block) -> Result<()>) -> Result<()> {
+    fn read_unit(
+        &self,
+        unit: usize,
+        sink: &mut dyn FnMut(crate::data::Block) -> Result<()>,
+    ) -> Result<()> {
         for b in self.reader.file_blocks(unit)? {
             sink(b?)?;
         }

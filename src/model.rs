@@ -80,9 +80,21 @@ impl Model {
         solver: DcdSettings,
         report: TrainingReport,
     ) -> Self {
-        assert_eq!(scaler.dim(), map.input_dim(), "scaler and map disagree on inputs");
-        assert_eq!(columns.features.len(), map.input_dim(), "contract and map disagree");
-        assert_eq!(weights.len(), map.output_dim(), "weights and map disagree on D");
+        assert_eq!(
+            scaler.dim(),
+            map.input_dim(),
+            "scaler and map disagree on inputs"
+        );
+        assert_eq!(
+            columns.features.len(),
+            map.input_dim(),
+            "contract and map disagree"
+        );
+        assert_eq!(
+            weights.len(),
+            map.output_dim(),
+            "weights and map disagree on D"
+        );
         Model {
             columns,
             scaler,
@@ -114,12 +126,23 @@ impl Model {
     /// # Panics
     /// If `x` has the wrong number of columns or `out` the wrong length.
     pub fn predict_into(&self, x: ArrayView2<f64>, mut out: ArrayViewMut1<f64>) {
-        assert_eq!(x.ncols(), self.input_dim(), "predict: wrong number of input columns");
-        assert_eq!(out.len(), x.nrows(), "predict: output length differs from rows");
+        assert_eq!(
+            x.ncols(),
+            self.input_dim(),
+            "predict: wrong number of input columns"
+        );
+        assert_eq!(
+            out.len(),
+            x.nrows(),
+            "predict: output length differs from rows"
+        );
         let d_out = self.map.output_dim();
         x.axis_chunks_iter(Axis(0), PREDICT_CHUNK)
             .into_par_iter()
-            .zip(out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK).into_par_iter())
+            .zip(
+                out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK)
+                    .into_par_iter(),
+            )
             .for_each(|(xc, mut oc)| {
                 let mut xs = xc.to_owned();
                 self.scaler.apply(xs.view_mut());
@@ -158,7 +181,10 @@ impl Model {
         let mut arrays = vec![
             ("scaler.mean".to_string(), row(&self.scaler.mean)),
             ("scaler.scale".to_string(), row(&self.scaler.scale)),
-            ("weights".to_string(), row(self.weights.as_slice().expect("contiguous"))),
+            (
+                "weights".to_string(),
+                row(self.weights.as_slice().expect("contiguous")),
+            ),
             ("intercept".to_string(), row(&[self.intercept])),
         ];
         if let Some(c) = &self.coverage {
@@ -180,7 +206,10 @@ impl Model {
         let meta: Meta = serde_json::from_value(file.meta.clone())
             .map_err(|e| bad(format!("its description is not a kernlake model ({e})")))?;
         if meta.kind != MODEL_KIND {
-            return Err(bad(format!("holds a '{}', not a kernlake model", meta.kind)));
+            return Err(bad(format!(
+                "holds a '{}', not a kernlake model",
+                meta.kind
+            )));
         }
         let vector = |name: &str| -> Result<Vec<f64>> {
             let a = file
@@ -205,7 +234,8 @@ impl Model {
                 .filter_map(|(n, a)| n.strip_prefix("map.").map(|s| (s.to_string(), a.clone())))
                 .collect(),
         };
-        let map = map_from_parts(&parts).map_err(|e| bad(format!("has an unusable feature map: {e}")))?;
+        let map =
+            map_from_parts(&parts).map_err(|e| bad(format!("has an unusable feature map: {e}")))?;
         let d = meta.columns.features.len();
         if scaler.mean.len() != d || scaler.scale.len() != d || map.input_dim() != d {
             return Err(bad(format!(
@@ -219,7 +249,10 @@ impl Model {
                 map.output_dim()
             )));
         }
-        let coverage = match (file.array("coverage.landmarks"), file.array("coverage.threshold")) {
+        let coverage = match (
+            file.array("coverage.landmarks"),
+            file.array("coverage.threshold"),
+        ) {
             (Some(l), Some(t)) if l.ncols() == d && t.len() == 1 => Some(Coverage {
                 landmarks: l.clone(),
                 kernel: meta.kernel,

@@ -28,13 +28,18 @@ fn small_lake(dir: &Path, rows: usize, parts: usize) {
 }
 
 fn fit_args<'a>(src: &'a str, out: &'a str) -> Vec<&'a str> {
-    vec!["fit", src, "--target", "PE", "--out", out, "-D", "64", "--quiet", "--epochs", "20"]
+    vec![
+        "fit", src, "--target", "PE", "--out", out, "-D", "64", "--quiet", "--epochs", "20",
+    ]
 }
 
 fn no_temp_files(dir: &Path) {
     for e in std::fs::read_dir(dir).unwrap() {
         let name = e.unwrap().file_name().to_string_lossy().into_owned();
-        assert!(!kernlake::atomic::is_temp_name(&name), "temporary file left: {name}");
+        assert!(
+            !kernlake::atomic::is_temp_name(&name),
+            "temporary file left: {name}"
+        );
     }
 }
 
@@ -71,7 +76,10 @@ fn help_carries_the_safety_note() {
         let o = kernlake(args);
         let text = String::from_utf8_lossy(&o.stdout);
         let flat = text.split_whitespace().collect::<Vec<_>>().join(" ");
-        assert!(flat.contains("no substitute for protective systems"), "{text}");
+        assert!(
+            flat.contains("no substitute for protective systems"),
+            "{text}"
+        );
     }
 }
 
@@ -95,7 +103,10 @@ fn bad_sources_fail_with_one_clear_sentence() {
     let out_s = out.to_str().unwrap();
 
     // missing target column
-    fails_with(&["fit", lake_s, "--target", "nope", "--out", out_s, "--quiet"], &["nope"]);
+    fails_with(
+        &["fit", lake_s, "--target", "nope", "--out", out_s, "--quiet"],
+        &["nope"],
+    );
     // a folder with no data files
     let empty = dir.path().join("empty");
     std::fs::create_dir_all(&empty).unwrap();
@@ -108,7 +119,10 @@ fn bad_sources_fail_with_one_clear_sentence() {
     // schema disagreement between files names both files
     let mixed = dir.path().join("mixed");
     small_lake(&mixed, 200, 1);
-    let strs: Vec<String> = ["AT", "V", "AP", "RH", "PE"].iter().map(|s| s.to_string()).collect();
+    let strs: Vec<String> = ["AT", "V", "AP", "RH", "PE"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
     let mut other = strs.clone();
     other[1] = "V2".into();
     write_parquet(&mixed.join("zz.parquet"), &other, &vec![vec![1.0; 5]; 5]);
@@ -135,22 +149,43 @@ fn missing_values_are_skipped_or_fail_by_policy() {
     let n = 200;
     let a: Vec<f64> = (0..n).map(|i| i as f64 / 10.0).collect();
     let mut b: Vec<f64> = (0..n).map(|i| ((i * 7) % 13) as f64).collect();
-    let y: Vec<f64> = (0..n).map(|i| (i as f64 / 10.0).sin() + ((i * 7) % 13) as f64 / 13.0).collect();
+    let y: Vec<f64> = (0..n)
+        .map(|i| (i as f64 / 10.0).sin() + ((i * 7) % 13) as f64 / 13.0)
+        .collect();
     b[10] = f64::NAN;
     b[20] = f64::INFINITY;
     write_parquet(&lake.join("p.parquet"), &names, &[a, b, y]);
     let out = dir.path().join("m.klm");
     let report = dir.path().join("r.json");
     let o = kernlake(&[
-        "fit", lake.to_str().unwrap(), "--target", "y", "--out", out.to_str().unwrap(),
-        "--report", report.to_str().unwrap(), "--quiet", "-D", "32",
+        "fit",
+        lake.to_str().unwrap(),
+        "--target",
+        "y",
+        "--out",
+        out.to_str().unwrap(),
+        "--report",
+        report.to_str().unwrap(),
+        "--quiet",
+        "-D",
+        "32",
     ]);
     assert!(o.status.success(), "{}", stderr(&o));
     let json: serde_json::Value = serde_json::from_slice(&std::fs::read(&report).unwrap()).unwrap();
     assert_eq!(json["rows_skipped"], 2);
     std::fs::remove_file(&out).unwrap();
     fails_with(
-        &["fit", lake.to_str().unwrap(), "--target", "y", "--out", out.to_str().unwrap(), "--quiet", "--missing", "fail"],
+        &[
+            "fit",
+            lake.to_str().unwrap(),
+            "--target",
+            "y",
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+            "--missing",
+            "fail",
+        ],
         &["p.parquet", "row 11", "'b'"],
     );
     assert!(!out.exists());
@@ -177,5 +212,8 @@ fn damaged_models_fail_to_load_clearly() {
     let fpath = dir.path().join("f.klm");
     std::fs::write(&fpath, &flipped).unwrap();
     fails_with(&["inspect", fpath.to_str().unwrap()], &["f.klm"]);
-    fails_with(&["inspect", dir.path().join("none.klm").to_str().unwrap()], &["none.klm"]);
+    fails_with(
+        &["inspect", dir.path().join("none.klm").to_str().unwrap()],
+        &["none.klm"],
+    );
 }

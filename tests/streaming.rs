@@ -17,7 +17,10 @@ fn names(d: usize) -> Vec<String> {
 
 fn reader_for(dir: &std::path::Path, block_rows: usize) -> TableReader {
     let files = discover(&[dir.display().to_string()]).unwrap();
-    let sel = ColumnSelection { target: Some("y".into()), ..Default::default() };
+    let sel = ColumnSelection {
+        target: Some("y".into()),
+        ..Default::default()
+    };
     let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
     TableReader::new(files, cols).with_batch_rows(block_rows)
 }
@@ -44,8 +47,13 @@ fn ten_parquet_files_give_the_in_memory_model() {
         .with_block_rows(200)
         .fit_files(&reader_for(dir.path(), 200), &Silent, &|_| {})
         .unwrap();
-    let memory = fitter().with_block_rows(200).fit(x.view(), y.view()).unwrap();
-    let diff = (&streamed.weights - &memory.weights).mapv(f64::abs).fold(0.0f64, |a, &b| a.max(b));
+    let memory = fitter()
+        .with_block_rows(200)
+        .fit(x.view(), y.view())
+        .unwrap();
+    let diff = (&streamed.weights - &memory.weights)
+        .mapv(f64::abs)
+        .fold(0.0f64, |a, &b| a.max(b));
     assert!(diff <= 1e-10, "weights differ by {diff}");
     assert!((streamed.intercept - memory.intercept).abs() <= 1e-10);
 }
@@ -85,7 +93,9 @@ fn two_block_sizes_converge_to_the_same_predictions() {
     };
     let (a, b) = (fit(50), fit(160));
     let xs = x.slice(s![..200, ..]);
-    let diff = (&a.predict(xs) - &b.predict(xs)).mapv(f64::abs).fold(0.0f64, |m, &v| m.max(v));
+    let diff = (&a.predict(xs) - &b.predict(xs))
+        .mapv(f64::abs)
+        .fold(0.0f64, |m, &v| m.max(v));
     assert!(diff <= 1e-9, "predictions differ by {diff}");
 }
 
@@ -97,12 +107,19 @@ fn ccpp_streamed_holdout_matches_the_in_memory_fit() {
     let dir = tempfile::tempdir().unwrap();
     write_parts(dir.path(), &header, &x, &y, 6);
     let files = discover(&[dir.path().display().to_string()]).unwrap();
-    let sel = ColumnSelection { target: Some("PE".into()), ..Default::default() };
+    let sel = ColumnSelection {
+        target: Some("PE".into()),
+        ..Default::default()
+    };
     let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
     let reader = TableReader::new(files, cols);
-    let f = Fitter::new().with_components(1_000).with_seed(2).with_holdout(0.2).with_tol(1e-4);
+    let f = Fitter::new()
+        .with_components(1_000)
+        .with_seed(2)
+        .with_holdout(0.2)
+        .with_tol(1e-4);
     let streamed = f.clone().fit_files(&reader, &Silent, &|_| {}).unwrap();
-    let m = streamed.report.holdout.clone().unwrap();
+    let m = streamed.report.holdout.unwrap();
     // The same split in memory: rows the trainer holds out, by its own hash rule.
     let hold: Vec<usize> = (0..x.nrows())
         .filter(|&i| kernlake::solver::blocks::is_holdout(i as u64, 2, 0.2))
@@ -110,10 +127,24 @@ fn ccpp_streamed_holdout_matches_the_in_memory_fit() {
     let train: Vec<usize> = (0..x.nrows()).filter(|i| !hold.contains(i)).collect();
     let mem = f
         .with_holdout(0.0)
-        .fit(x.select(Axis(0), &train).view(), y.select(Axis(0), &train).view())
+        .fit(
+            x.select(Axis(0), &train).view(),
+            y.select(Axis(0), &train).view(),
+        )
         .unwrap();
-    let e_mem = common::rmse(&mem.predict(x.select(Axis(0), &hold).view()), &y.select(Axis(0), &hold));
-    eprintln!("ccpp streamed holdout {:.4} MW, in-memory {:.4} MW", m.rmse, e_mem);
+    let e_mem = common::rmse(
+        &mem.predict(x.select(Axis(0), &hold).view()),
+        &y.select(Axis(0), &hold),
+    );
+    eprintln!(
+        "ccpp streamed holdout {:.4} MW, in-memory {:.4} MW",
+        m.rmse, e_mem
+    );
     assert_eq!(m.n as usize, hold.len());
-    assert!((m.rmse - e_mem).abs() <= 0.02 * e_mem, "{} vs {}", m.rmse, e_mem);
+    assert!(
+        (m.rmse - e_mem).abs() <= 0.02 * e_mem,
+        "{} vs {}",
+        m.rmse,
+        e_mem
+    );
 }

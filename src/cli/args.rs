@@ -11,7 +11,8 @@ use crate::fit::FitOptions;
 use crate::kernel::KernelKind;
 use crate::solver::dcd::Loss;
 
-const ABOUT: &str = "Fit non-linear epsilon-insensitive support vector regression on tables larger \
+const ABOUT: &str =
+    "Fit non-linear epsilon-insensitive support vector regression on tables larger \
 than memory (Parquet or CSV), through random Fourier, orthogonal or Nyström features.";
 
 /// kernlake: non-linear epsilon-SVR for data lakes.
@@ -31,7 +32,7 @@ pub struct Cli {
 pub enum Command {
     /// Train a model on Parquet/CSV sources, streaming them block by block.
     #[command(after_help = super::SAFETY)]
-    Fit(FitArgs),
+    Fit(Box<FitArgs>),
     /// Show a model's input columns, parameters and training report.
     Inspect(InspectArgs),
     /// Generate the cold-store demo data, fit on all months but the last, and report.
@@ -210,9 +211,13 @@ pub struct DemoArgs {
 /// Parses sizes such as `1GiB`, `512MiB`, `800MB` or a plain byte count.
 pub fn parse_bytes(s: &str) -> std::result::Result<usize, String> {
     let t = s.trim();
-    let split = t.find(|c: char| !(c.is_ascii_digit() || c == '.')).unwrap_or(t.len());
+    let split = t
+        .find(|c: char| !(c.is_ascii_digit() || c == '.'))
+        .unwrap_or(t.len());
     let (num, unit) = t.split_at(split);
-    let v: f64 = num.parse().map_err(|_| format!("'{s}' is not a size such as 512MiB or 2GiB"))?;
+    let v: f64 = num
+        .parse()
+        .map_err(|_| format!("'{s}' is not a size such as 512MiB or 2GiB"))?;
     let mult = match unit.trim().to_ascii_lowercase().as_str() {
         "" | "b" => 1.0,
         "k" | "kb" => 1e3,
@@ -239,9 +244,14 @@ impl SourceArgs {
     /// CSV options.
     pub fn csv(&self) -> Result<CsvOptions> {
         if !self.delimiter.is_ascii() {
-            return Err(Error::invalid("delimiter", "must be a single ASCII character"));
+            return Err(Error::invalid(
+                "delimiter",
+                "must be a single ASCII character",
+            ));
         }
-        Ok(CsvOptions { delimiter: self.delimiter as u8 })
+        Ok(CsvOptions {
+            delimiter: self.delimiter as u8,
+        })
     }
 
     /// Missing-value policy.
@@ -269,13 +279,24 @@ impl ModelArgs {
             MapArg::Nystrom => MapKind::Nystrom,
         };
         if !(0.0..=0.5).contains(&self.holdout) {
-            return Err(Error::invalid("--holdout", format!("must be between 0 and 0.5, got {}", self.holdout)));
+            return Err(Error::invalid(
+                "--holdout",
+                format!("must be between 0 and 0.5, got {}", self.holdout),
+            ));
         }
         let map = MapSpec {
             kind,
             components: self.components,
-            variant: if self.phase { FourierVariant::CosPhase } else { FourierVariant::SinCos },
-            landmarks: if self.kmeans { Landmarks::KMeans } else { Landmarks::Uniform },
+            variant: if self.phase {
+                FourierVariant::CosPhase
+            } else {
+                FourierVariant::SinCos
+            },
+            landmarks: if self.kmeans {
+                Landmarks::KMeans
+            } else {
+                Landmarks::Uniform
+            },
             seed: self.seed,
             ..MapSpec::default()
         };
@@ -285,7 +306,11 @@ impl ModelArgs {
             map,
             c: self.c,
             epsilon: self.epsilon,
-            loss: if self.loss == "l1" { Loss::L1 } else { Loss::L2 },
+            loss: if self.loss == "l1" {
+                Loss::L1
+            } else {
+                Loss::L2
+            },
             tol: self.tol,
             max_epochs: self.epochs,
             sweeps_per_block: self.sweeps,

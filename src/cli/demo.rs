@@ -56,9 +56,8 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     let all_months = months(&spec);
     let last = all_months.last().cloned().unwrap_or_default();
     let files = discover(&[data_dir.display().to_string()])?;
-    let is_last = |f: &crate::data::SourceFile| {
-        f.partitions.iter().any(|(k, v)| k == "month" && *v == last)
-    };
+    let is_last =
+        |f: &crate::data::SourceFile| f.partitions.iter().any(|(k, v)| k == "month" && *v == last);
     let (test_files, train_files): (Vec<_>, Vec<_>) = files.into_iter().partition(is_last);
     let columns = ResolvedColumns {
         features: DEMO_FEATURES.iter().map(|s| s.to_string()).collect(),
@@ -83,7 +82,8 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     }
     let survey_bar = rows_bar(quiet, train_rows, "survey");
     let epochs = EpochBars::new(quiet, train_rows);
-    let model = Fitter::from_options(opts).fit_files(&reader, &epochs, &|r| survey_bar.set_position(r))?;
+    let model =
+        Fitter::from_options(opts).fit_files(&reader, &epochs, &|r| survey_bar.set_position(r))?;
     survey_bar.finish_and_clear();
     let model_path = a.dir.join("cold-store.klm");
     model.save(&model_path)?;

@@ -19,7 +19,7 @@ procedures and defer to qualified engineers for any decision about equipment.";
 /// Runs one parsed command; returns the process exit code on success.
 pub fn run(cli: Cli) -> Result<i32> {
     match cli.command {
-        Command::Fit(a) => fit::run(a, cli.quiet),
+        Command::Fit(a) => fit::run(*a, cli.quiet),
         Command::Inspect(a) => inspect::run(a),
         Command::Demo(a) => demo::run(a, cli.quiet),
     }

@@ -25,25 +25,49 @@ pub fn render_training(r: &TrainingReport) -> String {
         line(&mut s, "constant, dropped", r.constant_columns.join(", "));
     }
     let _ = writeln!(s, "parameters");
-    line(&mut s, "gamma", format!("{:.6}  ({})", r.gamma.value, r.gamma.source));
+    line(
+        &mut s,
+        "gamma",
+        format!("{:.6}  ({})", r.gamma.value, r.gamma.source),
+    );
     line(&mut s, "C", format!("{:.6}  ({})", r.c.value, r.c.source));
-    line(&mut s, "epsilon", format!("{:.6}  ({})", r.epsilon.value, r.epsilon.source));
+    line(
+        &mut s,
+        "epsilon",
+        format!("{:.6}  ({})", r.epsilon.value, r.epsilon.source),
+    );
     line(&mut s, "mapped features D", r.features);
     let _ = writeln!(s, "solver");
-    line(&mut s, "epochs", format!("{}  (stopped: {:?})", r.epochs, r.stop).to_lowercase());
+    line(
+        &mut s,
+        "epochs",
+        format!("{}  (stopped: {:?})", r.epochs, r.stop).to_lowercase(),
+    );
     line(&mut s, "primal", format!("{:.6e}", r.objective.primal));
     line(&mut s, "dual", format!("{:.6e}", r.objective.dual));
     line(&mut s, "relative gap", format!("{:.3e}", r.objective.gap));
-    line(&mut s, "support vectors", format!("{:.1}% of rows", 100.0 * r.support_share));
+    line(
+        &mut s,
+        "support vectors",
+        format!("{:.1}% of rows", 100.0 * r.support_share),
+    );
     if r.threads > 0 {
-        line(&mut s, "time", format!("{:.1} s on {} thread(s)", r.seconds, r.threads));
+        line(
+            &mut s,
+            "time",
+            format!("{:.1} s on {} thread(s)", r.seconds, r.threads),
+        );
     }
     if let Some(m) = &r.holdout {
         let _ = writeln!(s, "holdout ({} rows, target units)", m.n);
         line(&mut s, "RMSE", format!("{:.4}", m.rmse));
         line(&mut s, "MAE", format!("{:.4}", m.mae));
         line(&mut s, "R²", format!("{:.4}", m.r2));
-        line(&mut s, "inside the tube", format!("{:.1}%", 100.0 * m.tube_share));
+        line(
+            &mut s,
+            "inside the tube",
+            format!("{:.1}%", 100.0 * m.tube_share),
+        );
     }
     s
 }
@@ -63,10 +87,22 @@ pub fn render_model(m: &Model) -> String {
         line(&mut s, "target", t);
     }
     let _ = writeln!(s, "feature map");
-    line(&mut s, "kernel", format!("{} (gamma {:.6})", m.kernel.kind.name(), m.kernel.gamma));
-    line(&mut s, "map", format!("{:?}", m.map_spec.kind).to_lowercase());
+    line(
+        &mut s,
+        "kernel",
+        format!("{} (gamma {:.6})", m.kernel.kind.name(), m.kernel.gamma),
+    );
+    line(
+        &mut s,
+        "map",
+        format!("{:?}", m.map_spec.kind).to_lowercase(),
+    );
     line(&mut s, "features D", m.weights.len());
-    line(&mut s, "loss", format!("{:?}", m.solver.loss).to_lowercase());
+    line(
+        &mut s,
+        "loss",
+        format!("{:?}", m.solver.loss).to_lowercase(),
+    );
     line(&mut s, "intercept", format!("{:.6}", m.intercept));
     s.push_str(&render_training(&m.report));
     s

@@ -259,13 +259,18 @@ pub struct Trainer<'a> {
 impl Trainer<'_> {
     /// Standardizes, maps and splits one raw block.
     fn prepare(&self, mut b: Block) -> Result<MappedBlock> {
-        let y_raw = b.y.take().ok_or_else(|| {
-            Error::NoRows("the training data has no target column".to_string())
-        })?;
+        let y_raw = b
+            .y
+            .take()
+            .ok_or_else(|| Error::NoRows("the training data has no target column".to_string()))?;
         self.scaler.apply(b.x.view_mut());
         let share = self.settings.holdout;
         let seed = self.settings.dcd.seed;
-        let hold: Vec<bool> = b.row_ids.iter().map(|&r| is_holdout(r, seed, share)).collect();
+        let hold: Vec<bool> = b
+            .row_ids
+            .iter()
+            .map(|&r| is_holdout(r, seed, share))
+            .collect();
         let n_hold = hold.iter().filter(|&&h| h).count();
         let n_train = hold.len() - n_hold;
         let d = b.x.ncols();
@@ -300,7 +305,11 @@ impl Trainer<'_> {
     }
 
     /// Runs block minimization over `source` until a stopping rule fires.
-    pub fn run(&self, source: &dyn BlockSource, observer: &dyn TrainObserver) -> Result<TrainOutcome> {
+    pub fn run(
+        &self,
+        source: &dyn BlockSource,
+        observer: &dyn TrainObserver,
+    ) -> Result<TrainOutcome> {
         self.settings.validate()?;
         let pool = rayon::ThreadPoolBuilder::new()
             .num_threads(self.settings.threads)
@@ -443,7 +452,7 @@ impl Trainer<'_> {
             let record = EpochRecord {
                 epoch,
                 start_objective,
-                holdout: holdout.clone(),
+                holdout,
                 updates,
                 seconds: t0.elapsed().as_secs_f64(),
                 resident_blocks,
@@ -498,7 +507,11 @@ impl Trainer<'_> {
             rows_trained,
             rows_holdout: holdout_y.len() as u64,
             holdout,
-            support_share: if rows_trained > 0 { nonzero / rows_trained as f64 } else { 0.0 },
+            support_share: if rows_trained > 0 {
+                nonzero / rows_trained as f64
+            } else {
+                0.0
+            },
             updates: updates_total,
         })
     }
@@ -530,7 +543,10 @@ impl Trainer<'_> {
                 })?,
             }
         }
-        Ok(objective(0.5 * w.dot(&w) + dcd.c * loss, state.dual_value(dcd)))
+        Ok(objective(
+            0.5 * w.dot(&w) + dcd.c * loss,
+            state.dual_value(dcd),
+        ))
     }
 
     fn holdout_metrics(
@@ -552,7 +568,9 @@ impl Trainer<'_> {
                 continue;
             }
             let z = pool.install(|| self.map.transform(x.view()));
-            let f = z.dot(&w.slice(s![..dim])).mapv(|v| self.target.mean + sd * (v + w[dim]));
+            let f = z
+                .dot(&w.slice(s![..dim]))
+                .mapv(|v| self.target.mean + sd * (v + w[dim]));
             let y = ArrayView1::from(&ys[offset..offset + x.nrows()]);
             acc.add(y, f.view());
             offset += x.nrows();
@@ -578,7 +596,12 @@ fn objective(primal: f64, dual: f64) -> Objective {
 
 /// Σ ℓ(y_i − wᵀ[z_i, 1]) for one block: the epsilon-insensitive loss (L1) or its square
 /// (L2), as in the primal of Ho & Lin (JMLR 2012).
-pub fn loss_sum(w: ArrayView1<f64>, z: ArrayView2<f64>, y: ArrayView1<f64>, dcd: &DcdSettings) -> f64 {
+pub fn loss_sum(
+    w: ArrayView1<f64>,
+    z: ArrayView2<f64>,
+    y: ArrayView1<f64>,
+    dcd: &DcdSettings,
+) -> f64 {
     let dim = z.ncols();
     let wz = w.slice(s![..dim]);
     let b = w[dim];

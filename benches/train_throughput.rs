@@ -1,0 +1,179 @@
+//! Throughput harness for out-of-core training (run by `scripts/bench`).
+//!
+//! Generates the demo scenario (default 10 million rows) as partitioned Parquet in a
+//! temporary folder, then measures in one run:
+//! 1. a bare read-and-map pass: read every block, standardize, map to D features;
+//! 2. streamed training epochs from disk with a memory budget too small to keep mapped
+//!    blocks resident, so every epoch reads and maps again;
+//!
+//! and prints rows/s for each, the ratio of one training epoch to the bare pass, the
+//! epochs and wall time to the gap tolerance, and the peak resident set size.
+//!
+//! `cargo bench --bench train_throughput -- [--rows N] [--components D] [--epochs E]
+//! [--tol T] [--memory BYTES] [--dir PATH]`. Without `--bench` (as under `cargo test`) it
+//! runs a tiny smoke configuration.
+
+use std::time::Instant;
+
+use kernlake::data::{discover, survey, ResolvedColumns, SurveySettings, TableReader};
+use kernlake::demo::{generate, DemoSpec};
+use kernlake::features::{build_map, MapSpec};
+use kernlake::fit::{FitOptions, Fitter};
+use kernlake::kernel::Kernel;
+use kernlake::scale::Standardizer;
+use kernlake::solver::blocks::{EpochRecord, TrainObserver};
+use ndarray::Array2;
+
+const FEATURES: [&str; 8] = [
+    "outdoor_temp",
+    "outdoor_rh",
+    "room_setpoint",
+    "room_temp",
+    "door_open_min",
+    "product_load_t",
+    "defrost",
+    "hour",
+];
+
+fn peak_rss_mib() -> f64 {
+    let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
+    s.lines()
+        .find(|l| l.starts_with("VmHWM:"))
+        .and_then(|l| l.split_whitespace().nth(1))
+        .and_then(|v| v.parse::<f64>().ok())
+        .map(|kb| kb / 1024.0)
+        .unwrap_or(f64::NAN)
+}
+
+struct Epochs;
+impl TrainObserver for Epochs {
+    fn epoch_finished(&self, r: &EpochRecord) {
+        eprintln!(
+            "  epoch {:>3}: {:.2} s, gap(start) {:.3e}, from memory {} blocks, holdout rmse {:?}",
+            r.epoch,
+            r.seconds,
+            r.start_objective.gap,
+            r.resident_blocks,
+            r.holdout.map(|m| m.rmse)
+        );
+    }
+}
+
+fn arg<T: std::str::FromStr>(args: &[String], name: &str, default: T) -> T {
+    args.iter()
+        .position(|a| a == name)
+        .and_then(|i| args.get(i + 1))
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(default)
+}
+
+fn main() {
+    let args: Vec<String> = std::env::args().collect();
+    let bench = args.iter().any(|a| a == "--bench");
+    let rows: u64 = arg(&args, "--rows", if bench { 10_000_000 } else { 20_000 });
+    let d_out: usize = arg(&args, "--components", if bench { 1024 } else { 64 });
+    let epochs: usize = arg(&args, "--epochs", if bench { 10 } else { 2 });
+    let tol: f64 = arg(&args, "--tol", 1e-3);
+    let memory: usize = arg(&args, "--memory", 64 << 20);
+    let tmp = tempfile::tempdir().expect("temporary folder");
+    let dir = args
+        .iter()
+        .position(|a| a == "--dir")
+        .and_then(|i| args.get(i + 1))
+        .map(std::path::PathBuf::from)
+        .unwrap_or_else(|| tmp.path().to_path_buf());
+
+    let t = Instant::now();
+    if discover(&[dir.display().to_string()]).is_err() {
+        let spec = DemoSpec {
+            rows,
+            sites: 40,
+            seed: 7,
+            start_year: 2025,
+        };
+        generate(&dir, &spec, &|_| {}).expect("demo data");
+        eprintln!(
+            "generated {rows} rows in {:.1} s",
+            t.elapsed().as_secs_f64()
+        );
+    }
+    let files = discover(&[dir.display().to_string()]).expect("files");
+    let columns = ResolvedColumns {
+        features: FEATURES.iter().map(|s| s.to_string()).collect(),
+        target: Some("compressor_kw".into()),
+    };
+    let reader = TableReader::new(files, columns);
+
+    // 1. Bare read-and-map pass.
+    let s = survey(
+        &reader,
+        &SurveySettings {
+            sample_rows: 2_000,
+            seed: 1,
+            threads: 0,
+        },
+        &|_| {},
+    )
+    .expect("survey");
+    let scaler = Standardizer::from_survey(&s);
+    let kernel = Kernel::gaussian(0.1).expect("kernel");
+    let spec = MapSpec {
+        components: d_out,
+        ..MapSpec::default()
+    };
+    let map = build_map(&spec, kernel, FEATURES.len(), None).expect("map");
+    let t = Instant::now();
+    let mut n = 0u64;
+    let mut z = Array2::zeros((0, d_out));
+    for b in reader.blocks().expect("blocks") {
+        let mut b = b.expect("block");
+        scaler.apply(b.x.view_mut());
+        if z.nrows() != b.x.nrows() {
+            z = Array2::zeros((b.x.nrows(), d_out));
+        }
+        map.transform_into(b.x.view(), z.view_mut());
+        n += b.rows as u64;
+    }
+    let bare = t.elapsed().as_secs_f64();
+    eprintln!(
+        "bare read+map: {n} rows in {bare:.2} s = {:.0} rows/s",
+        n as f64 / bare
+    );
+
+    // 2. Streamed training from disk.
+    let opts = FitOptions {
+        gamma: Some(0.1),
+        map: spec,
+        max_epochs: epochs,
+        tol,
+        memory_bytes: memory,
+        holdout: 0.01,
+        patience: 0,
+        seed: 3,
+        ..FitOptions::default()
+    };
+    let t = Instant::now();
+    let model = Fitter::from_options(opts)
+        .fit_files(&reader, &Epochs, &|_| {})
+        .expect("fit");
+    let total = t.elapsed().as_secs_f64();
+    let r = &model.report;
+    let per_epoch: Vec<f64> = r.history.iter().map(|h| h.seconds).collect();
+    let mean_epoch = per_epoch.iter().sum::<f64>() / per_epoch.len().max(1) as f64;
+    println!("rows                       {n}");
+    println!("D                          {d_out}");
+    println!(
+        "bare read+map              {:.0} rows/s ({bare:.2} s)",
+        n as f64 / bare
+    );
+    println!(
+        "training epoch (mean)      {:.0} rows/s ({mean_epoch:.2} s)",
+        n as f64 / mean_epoch
+    );
+    println!("epoch / bare pass          {:.2}x", mean_epoch / bare);
+    println!(
+        "fit                        {} epochs, stop {:?}, gap {:.2e}, {total:.1} s wall",
+        r.epochs, r.stop, r.objective.gap
+    );
+    println!("peak RSS                   {:.0} MiB", peak_rss_mib());
+}
