@@ -217,3 +217,58 @@ fn damaged_models_fail_to_load_clearly() {
         &["none.klm"],
     );
 }
+
+#[test]
+fn unusable_columns_and_rows_fail_clearly() {
+    use std::sync::Arc;
+
+    use arrow_array::{ArrayRef, Float64Array, RecordBatch, StringArray};
+    use arrow_schema::{DataType, Field, Schema};
+
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("m.klm");
+    let out_s = out.to_str().unwrap();
+
+    // A chosen column that is not numeric: the error names the file and the column.
+    let text = dir.path().join("text");
+    std::fs::create_dir_all(&text).unwrap();
+    let schema = Arc::new(Schema::new(vec![
+        Field::new("label", DataType::Utf8, true),
+        Field::new("a", DataType::Float64, true),
+        Field::new("y", DataType::Float64, true),
+    ]));
+    let batch = RecordBatch::try_new(
+        schema.clone(),
+        vec![
+            Arc::new(StringArray::from(vec!["p", "q", "r"])) as ArrayRef,
+            Arc::new(Float64Array::from(vec![1.0, 2.0, 3.0])),
+            Arc::new(Float64Array::from(vec![1.0, 4.0, 9.0])),
+        ],
+    )
+    .unwrap();
+    let f = std::fs::File::create(text.join("t.parquet")).unwrap();
+    let mut w = parquet::arrow::ArrowWriter::try_new(f, schema, None).unwrap();
+    w.write(&batch).unwrap();
+    w.close().unwrap();
+    fails_with(
+        &["fit", text.to_str().unwrap(), "--target", "y", "--features", "label,a", "--out", out_s, "--quiet"],
+        &["t.parquet", "label"],
+    );
+
+    // Only an empty file: nothing to fit on.
+    let empty = dir.path().join("emptyfile");
+    let names: Vec<String> = ["a", "y"].iter().map(|s| s.to_string()).collect();
+    write_parquet(&empty.join("e.parquet"), &names, &[vec![], vec![]]);
+    let mut a = fit_args(empty.to_str().unwrap(), out_s);
+    a[3] = "y";
+    fails_with(&a, &["rows"]);
+
+    // Every row has a missing input: zero usable rows after skipping.
+    let holes = dir.path().join("holes");
+    write_parquet(&holes.join("h.parquet"), &names, &[vec![f64::NAN; 20], vec![1.0; 20]]);
+    let mut a = fit_args(holes.to_str().unwrap(), out_s);
+    a[3] = "y";
+    fails_with(&a, &["rows"]);
+    assert!(!out.exists());
+    no_temp_files(dir.path());
+}
