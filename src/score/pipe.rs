@@ -7,6 +7,7 @@ use std::time::Instant;
 
 use arrow_ipc::reader::StreamReader;
 use arrow_ipc::writer::StreamWriter;
+use arrow_schema::SchemaRef;
 
 use super::batch::{score_planned, Plan};
 use super::files::open_checked;
@@ -43,7 +44,7 @@ pub fn score_stream<R: Read, W: Write>(
     opts.validate()?;
     let pool = opts.pool()?;
     let path = Path::new(STDIN);
-    let reader = StreamReader::try_new(input, None).map_err(|e| stream_error(STDIN, e))?;
+    let reader = StreamReader::try_new_buffered(input, None).map_err(|e| stream_error(STDIN, e))?;
     let plan = Plan::new(model, reader.schema().as_ref(), &[], opts, path)?;
     let mut writer = StreamWriter::try_new(output, plan.schema()).map_err(|e| stream_error("<output>", e))?;
     let mut summary = ScoreSummary {
@@ -95,23 +96,25 @@ pub fn score_files_to_stream<W: Write>(
     };
     let mut output = Some(output);
     let mut writer: Option<StreamWriter<W>> = None;
+    let mut first_schema: Option<SchemaRef> = None;
     for file in files {
         let (reader, plan, _) = open_checked(model, file, opts)?;
-        let w = match &mut writer {
-            Some(w) => {
-                if w.schema() != plan.schema() {
-                    return Err(Error::File {
-                        path: file.path.clone(),
-                        message: "gives output columns different from the first file's, so it cannot join the same stream".into(),
-                    });
-                }
-                w
+        match &first_schema {
+            Some(s) if s != plan.schema() => {
+                return Err(Error::File {
+                    path: file.path.clone(),
+                    message: "gives output columns different from the first file's, so it cannot join the same stream".into(),
+                });
             }
+            Some(_) => {}
             None => {
                 let out = output.take().expect("the output is used once");
-                writer.insert(StreamWriter::try_new(out, plan.schema()).map_err(|e| stream_error("<output>", e))?)
+                let w = StreamWriter::try_new(out, plan.schema()).map_err(|e| stream_error("<output>", e))?;
+                writer = Some(w);
+                first_schema = Some(plan.schema().clone());
             }
-        };
+        }
+        let w = writer.as_mut().expect("the writer starts with the first file");
         let mut read = 0u64;
         for batch in reader {
             let batch = batch.map_err(|e| super::files::unreadable(&file.path, e))?;
