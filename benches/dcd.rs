@@ -99,6 +99,7 @@ struct Variant {
     name: &'static str,
     shrinking: bool,
     sweeps: usize,
+    block: usize,
 }
 
 fn first_epoch_below(history: &[f64], tol: f64) -> String {
@@ -130,37 +131,41 @@ fn main() {
 
     let dim = if full { 1000 } else { 200 };
     let z = rff(x.view(), dim, 42);
-    let block_rows = 1024;
-    let max_epochs = if full { 150 } else { 5 };
+    let max_epochs = if full { 100 } else { 5 };
     let variants = [
         Variant {
             name: "plain (1 sweep, no shrinking)",
             shrinking: false,
             sweeps: 1,
+            block: 1024,
         },
         Variant {
             name: "shrinking, 1 sweep/block",
             shrinking: true,
             sweeps: 1,
-        },
-        Variant {
-            name: "shrinking, <= 5 sweeps/block",
-            shrinking: true,
-            sweeps: 5,
+            block: 1024,
         },
         Variant {
             name: "shrinking, <= 20 sweeps/block",
             shrinking: true,
             sweeps: 20,
+            block: 1024,
         },
         Variant {
-            name: "shrinking, <= 100 sweeps/block",
+            name: "shrinking, <= 20 sweeps, 1 block",
             shrinking: true,
-            sweeps: 100,
+            sweeps: 20,
+            block: n,
+        },
+        Variant {
+            name: "shrinking, <= 200 sweeps, 1 block",
+            shrinking: true,
+            sweeps: 200,
+            block: n,
         },
     ];
     println!(
-        "\nepochs to relative gap (D = {dim}, eps = 0.05, blocks of {block_rows} rows, at most {max_epochs} epochs)"
+        "\nepochs to relative gap (D = {dim}, eps = 0.05, blocks of 1024 rows unless 1 block, at most {max_epochs} epochs)"
     );
     println!(
         "{:<5} {:>5}  {:<32} {:>8} {:>8} {:>10} {:>12} {:>8}",
@@ -184,7 +189,7 @@ fn main() {
                 seed: 7,
             };
             let t = Instant::now();
-            let f = fit(z.view(), y.view(), &settings, block_rows).expect("fit");
+            let f = fit(z.view(), y.view(), &settings, v.block).expect("fit");
             let secs = t.elapsed().as_secs_f64();
             let gaps: Vec<f64> = f.report.history.iter().map(|o| o.gap).collect();
             println!(

@@ -7,8 +7,9 @@ use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 use serde::{Deserialize, Serialize};
 
 use crate::data::{
-    survey, sample_key, ResolvedColumns, SourceFile, Survey, SurveySettings, TableReader,
+    splitmix64, survey, ResolvedColumns, Survey, SurveySettings, TableReader,
 };
+use crate::coverage::Coverage;
 use crate::error::{Error, Result};
 use crate::features::{build_map, MapSpec};
 use crate::kernel::{Kernel, KernelKind};
@@ -340,7 +341,8 @@ impl Fitter {
             seconds: t0.elapsed().as_secs_f64(),
             threads: if o.threads == 0 { rayon::current_num_threads() } else { o.threads },
         };
-        Ok(Model::new(
+        let coverage = Coverage::fit(facts.sample_x.view(), kernel, None)?;
+        let mut model = Model::new(
             facts.columns,
             facts.scaler,
             kernel,
@@ -350,7 +352,9 @@ impl Fitter {
             out.intercept,
             dcd,
             report,
-        ))
+        );
+        model.coverage = Some(coverage);
+        Ok(model)
     }
 }
 
@@ -368,9 +372,9 @@ struct Facts {
 }
 
 /// The rows of a seeded uniform sample of `k` of `n` rows: the `k` smallest keys
-/// [`sample_key`], the same rule the survey pass uses, in row order.
+/// of [`splitmix64`], the same rule as the survey pass's bottom-k sample, in row order.
 fn sample_index(n: u64, k: usize, seed: u64) -> Vec<usize> {
-    let mut keyed: Vec<(u64, usize)> = (0..n).map(|r| (sample_key(seed, r), r as usize)).collect();
+    let mut keyed: Vec<(u64, usize)> = (0..n).map(|r| (splitmix64(seed, r), r as usize)).collect();
     if keyed.len() > k {
         keyed.select_nth_unstable(k);
         keyed.truncate(k);
@@ -429,7 +433,11 @@ fn facts_from_survey(s: Survey, reader: &TableReader) -> Result<(Facts, TableRea
         skipped_by_column,
         constant_columns: s.constant_features.clone(),
     };
-    Ok((facts, reader.clone().with_columns(columns)))
+    let reader = TableReader::new(reader.files().to_vec(), columns)
+        .with_batch_rows(reader.batch_rows())
+        .with_missing(reader.missing())
+        .with_csv(reader.csv().clone());
+    Ok((facts, reader))
 }
 
 /// A [`TableReader`] as a block source: one unit per file.
@@ -443,16 +451,9 @@ impl BlockSource for FileSource<'_> {
     }
 
     fn read_unit(&self, unit: usize, sink: &mut dyn FnMut(crate::data::Block) -> Result<()>) -> Result<()> {
-        let r = self.reader.clone().with_files_subset(vec![unit]);
-        for b in r.blocks()? {
+        for b in self.reader.file_blocks(unit)? {
             sink(b?)?;
         }
         Ok(())
     }
-}
-
-/// Re-exported for the CLI: the source files as a list.
-pub fn describe_sources(files: &[SourceFile]) -> String {
-    let rows: u64 = files.iter().filter_map(|f| f.rows).sum();
-    format!("{} file(s), {} row(s) by metadata", files.len(), rows)
 }

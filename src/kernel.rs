@@ -20,7 +20,7 @@
 //! All kernels satisfy k(x, x) = 1 and k(x, y) → 0 as the distance grows: far from all
 //! training rows a model built on them predicts its constant (common practice).
 
-use ndarray::{ArrayView2, ArrayViewMut2, Axis, Zip};
+use ndarray::{ArrayView2, ArrayViewMut2, Axis};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
@@ -154,46 +154,64 @@ impl Kernel {
         }
     }
 
-    /// Fills `out[i, j] = k(a_i, b_j)` for the rows of `a` and `b`, in parallel over rows
-    /// of `a`. Squared Euclidean distances come from one matrix product,
-    /// `‖a‖² + ‖b‖² − 2abᵀ`, clamped at zero.
+    /// Fills `out[i, j] = k(a_i, b_j)` for the rows of `a` and `b`, in parallel over
+    /// chunks of 256 rows of `a` (each output row depends only on its row of `a`, so the
+    /// result does not depend on the thread count). See [`Kernel::block_into_seq`] for
+    /// how each entry is computed.
     ///
     /// # Panics
     /// If `a` and `b` differ in columns or `out` is not `a.nrows() × b.nrows()`.
     pub fn block_into(&self, a: ArrayView2<f64>, b: ArrayView2<f64>, mut out: ArrayViewMut2<f64>) {
-        assert_eq!(a.ncols(), b.ncols(), "kernel block: column counts differ");
-        assert_eq!(
-            out.dim(),
-            (a.nrows(), b.nrows()),
-            "kernel block: output has the wrong shape"
-        );
-        if self.kind == KernelKind::Laplacian {
-            Zip::from(out.axis_iter_mut(Axis(0)))
-                .and(a.axis_iter(Axis(0)))
-                .par_for_each(|mut row, ai| {
-                    for (o, bj) in row.iter_mut().zip(b.axis_iter(Axis(0))) {
-                        let l1: f64 = ai.iter().zip(bj.iter()).map(|(p, q)| (p - q).abs()).sum();
-                        *o = (-self.gamma * l1).exp();
-                    }
-                });
-            return;
-        }
-        let bn: Vec<f64> = b.axis_iter(Axis(0)).map(|r| r.dot(&r)).collect();
+        check_block_shapes(&a, &b, &out);
         // Chunks of rows of `a` keep the product's output in cache and run in parallel.
         const CHUNK: usize = 256;
         let kernel = *self;
         out.axis_chunks_iter_mut(Axis(0), CHUNK)
             .into_par_iter()
             .zip(a.axis_chunks_iter(Axis(0), CHUNK).into_par_iter())
-            .for_each(|(mut o, ac)| {
-                ndarray::linalg::general_mat_mul(-2.0, &ac, &b.t(), 0.0, &mut o);
-                for (mut orow, ar) in o.axis_iter_mut(Axis(0)).zip(ac.axis_iter(Axis(0))) {
+            .for_each(|(o, ac)| kernel.block_into_seq(ac, b, o));
+    }
+
+    /// Single-threaded form of [`Kernel::block_into`], for callers already running in
+    /// parallel over row chunks.
+    ///
+    /// Gaussian: squared distances come from one matrix product, `‖a‖² + ‖b‖² − 2abᵀ`,
+    /// clamped at zero (absolute error about `1e-16·(‖a‖² + ‖b‖²)`, harmless inside the
+    /// exponential). Laplacian and Matérn: distances from explicit differences, because
+    /// the Matérn forms depend on `√r²`, which would turn a rounding error of `1e-16` in
+    /// `r²` into `1e-8` in the kernel for nearly equal rows.
+    ///
+    /// # Panics
+    /// If `a` and `b` differ in columns or `out` is not `a.nrows() × b.nrows()`.
+    pub fn block_into_seq(
+        &self,
+        a: ArrayView2<f64>,
+        b: ArrayView2<f64>,
+        mut out: ArrayViewMut2<f64>,
+    ) {
+        check_block_shapes(&a, &b, &out);
+        match self.kind {
+            KernelKind::Gaussian => {
+                let bn: Vec<f64> = b.axis_iter(Axis(0)).map(|r| r.dot(&r)).collect();
+                ndarray::linalg::general_mat_mul(-2.0, &a, &b.t(), 0.0, &mut out);
+                for (mut orow, ar) in out.axis_iter_mut(Axis(0)).zip(a.axis_iter(Axis(0))) {
                     let an = ar.dot(&ar);
                     for (v, bnj) in orow.iter_mut().zip(&bn) {
-                        *v = kernel.from_sq_dist(*v + an + bnj);
+                        *v = self.from_sq_dist(*v + an + bnj);
                     }
                 }
-            });
+            }
+            _ => {
+                for (mut orow, ar) in out.axis_iter_mut(Axis(0)).zip(a.axis_iter(Axis(0))) {
+                    for (v, bj) in orow.iter_mut().zip(b.axis_iter(Axis(0))) {
+                        *v = match (ar.as_slice(), bj.as_slice()) {
+                            (Some(x), Some(y)) => self.eval(x, y),
+                            _ => self.eval(&ar.to_vec(), &bj.to_vec()),
+                        };
+                    }
+                }
+            }
+        }
     }
 
     /// Allocating form of [`Kernel::block_into`].
@@ -202,4 +220,13 @@ impl Kernel {
         self.block_into(a, b, out.view_mut());
         out
     }
+}
+
+fn check_block_shapes(a: &ArrayView2<f64>, b: &ArrayView2<f64>, out: &ArrayViewMut2<f64>) {
+    assert_eq!(a.ncols(), b.ncols(), "kernel block: column counts differ");
+    assert_eq!(
+        out.dim(),
+        (a.nrows(), b.nrows()),
+        "kernel block: output has the wrong shape"
+    );
 }

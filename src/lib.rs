@@ -46,6 +46,7 @@
 
 pub mod atomic;
 pub mod cli;
+pub mod coverage;
 pub mod data;
 pub mod demo;
 pub mod error;

@@ -3,9 +3,11 @@
 
 use std::path::Path;
 
-use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis, Zip};
+use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+use crate::coverage::Coverage;
 use crate::data::ResolvedColumns;
 use crate::error::{Error, Result};
 use crate::features::{map_from_parts, FeatureMap, MapParts, MapSpec};
@@ -42,6 +44,8 @@ pub struct Model {
     pub solver: DcdSettings,
     /// What happened during training.
     pub report: TrainingReport,
+    /// Coverage landmarks and flag threshold (see [`crate::coverage`]), if computed.
+    pub coverage: Option<Coverage>,
     map: Box<dyn FeatureMap>,
 }
 
@@ -88,6 +92,7 @@ impl Model {
             intercept,
             solver,
             report,
+            coverage: None,
             map,
         }
     }
@@ -112,9 +117,10 @@ impl Model {
         assert_eq!(x.ncols(), self.input_dim(), "predict: wrong number of input columns");
         assert_eq!(out.len(), x.nrows(), "predict: output length differs from rows");
         let d_out = self.map.output_dim();
-        Zip::from(x.axis_chunks_iter(Axis(0), PREDICT_CHUNK))
-            .and(out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK))
-            .par_for_each(|xc, mut oc| {
+        x.axis_chunks_iter(Axis(0), PREDICT_CHUNK)
+            .into_par_iter()
+            .zip(out.axis_chunks_iter_mut(Axis(0), PREDICT_CHUNK).into_par_iter())
+            .for_each(|(xc, mut oc)| {
                 let mut xs = xc.to_owned();
                 self.scaler.apply(xs.view_mut());
                 let mut z = Array2::zeros((xs.nrows(), d_out));
@@ -155,6 +161,10 @@ impl Model {
             ("weights".to_string(), row(self.weights.as_slice().expect("contiguous"))),
             ("intercept".to_string(), row(&[self.intercept])),
         ];
+        if let Some(c) = &self.coverage {
+            arrays.push(("coverage.landmarks".to_string(), c.landmarks.clone()));
+            arrays.push(("coverage.threshold".to_string(), row(&[c.threshold])));
+        }
         for (name, a) in parts.arrays {
             arrays.push((format!("map.{name}"), a));
         }
@@ -209,7 +219,17 @@ impl Model {
                 map.output_dim()
             )));
         }
+        let coverage = match (file.array("coverage.landmarks"), file.array("coverage.threshold")) {
+            (Some(l), Some(t)) if l.ncols() == d && t.len() == 1 => Some(Coverage {
+                landmarks: l.clone(),
+                kernel: meta.kernel,
+                threshold: t[[0, 0]],
+            }),
+            (None, None) => None,
+            _ => return Err(bad("has malformed coverage landmarks".into())),
+        };
         Ok(Model {
+            coverage,
             columns: meta.columns,
             scaler,
             kernel: meta.kernel,

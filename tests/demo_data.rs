@@ -7,7 +7,9 @@ use std::fs::File;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, Ordering};
 
-use arrow_array::{Array, Float64Array, Int32Array, RecordBatch, StringArray};
+use arrow_array::{
+    Array, Float64Array, Int32Array, RecordBatch, StringArray, TimestampMillisecondArray,
+};
 use arrow_schema::{DataType, TimeUnit};
 use kernlake::demo::{generate, months, DemoSpec};
 use kernlake::Error;
@@ -142,8 +144,16 @@ fn generated_partitions_have_the_documented_layout_and_content() {
                 assert_eq!(f.data_type(), &expected, "{}", f.name());
             }
 
-            // reference library: arrow-cast renders the timestamps; each lies in its month.
-            let ts = arrow_cast::cast(batch.column(0), &DataType::Utf8).unwrap();
+            // reference library: arrow-cast renders the timestamps (as UTC instants; this
+            // build has no time-zone database, so the zone is dropped first); each lies
+            // in its month.
+            let ts = batch
+                .column(0)
+                .as_any()
+                .downcast_ref::<TimestampMillisecondArray>()
+                .unwrap();
+            let naive = TimestampMillisecondArray::new(ts.values().clone(), None);
+            let ts = arrow_cast::cast(&naive, &DataType::Utf8).unwrap();
             let ts = ts.as_any().downcast_ref::<StringArray>().unwrap();
             let hour = i32_col(&batch, "hour");
             for i in 0..n {
@@ -195,6 +205,11 @@ fn generated_partitions_have_the_documented_layout_and_content() {
         // outside (larger lift, lower COP, more envelope heat).
         positive_slopes += usize::from(correlation(&temp_kw) > 0.0);
     }
+    println!(
+        "nulls {nulls:?}, hot site {} last-month max {hot_last_max:.1} °C vs training max \
+         {training_max:.1} °C, {positive_slopes}/40 sites with power rising with temperature",
+        summary.hot_site
+    );
     assert_eq!(total_rows as u64, ROWS);
     assert!(positive_slopes >= 36, "{positive_slopes} of 40 sites");
     for (col, n) in ["outdoor_rh", "room_temp"].iter().zip(nulls) {

@@ -13,6 +13,27 @@ use kernlake::modelfile::{ModelFile, FORMAT_VERSION};
 use kernlake::Error;
 use ndarray::{array, Array2};
 
+thread_local! {
+    /// Set when a panic starts on this thread, even one caught inside the library.
+    static PANICKED: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// Decodes `bytes` and reports whether any panic happened during decoding (the library
+/// catches a reader panic as a last resort; a clean error must not need that).
+fn decode_watching_panics(bytes: &[u8], origin: &Path) -> (kernlake::Result<ModelFile>, bool) {
+    static HOOK: std::sync::Once = std::sync::Once::new();
+    HOOK.call_once(|| {
+        let previous = std::panic::take_hook();
+        std::panic::set_hook(Box::new(move |info| {
+            PANICKED.with(|p| p.set(true));
+            previous(info);
+        }));
+    });
+    PANICKED.with(|p| p.set(false));
+    let result = ModelFile::from_bytes(bytes, origin);
+    (result, PANICKED.with(|p| p.get()))
+}
+
 /// A small model with awkward values: signed zero, subnormal, extremes, an empty array.
 fn sample_model() -> ModelFile {
     let weights = Array2::from_shape_fn((3, 4), |(i, j)| (i as f64 + 1.0) / (j as f64 + 3.0));
@@ -136,7 +157,9 @@ fn every_truncation_is_a_clean_error() {
     let bytes = sample_model().to_bytes().unwrap();
     let origin = Path::new("cut.klm");
     for len in 0..bytes.len() {
-        let message = model_error_message(ModelFile::from_bytes(&bytes[..len], origin), origin);
+        let (result, panicked) = decode_watching_panics(&bytes[..len], origin);
+        assert!(!panicked, "length {len} made the decoder panic");
+        let message = model_error_message(result, origin);
         if len == 0 {
             assert!(message.contains("empty"), "{message}");
         } else if len >= 6 {
@@ -157,7 +180,9 @@ fn every_byte_flip_errors_cleanly_or_loads_the_same_model() {
         for mask in [0x01u8, 0x80, 0xff] {
             let mut damaged = bytes.clone();
             damaged[i] ^= mask;
-            match ModelFile::from_bytes(&damaged, origin) {
+            let (result, panicked) = decode_watching_panics(&damaged, origin);
+            assert!(!panicked, "byte {i} ^ {mask:#x} made the decoder panic");
+            match result {
                 Ok(loaded) => assert_bit_identical(&loaded, &model),
                 Err(Error::ModelFile { path, message }) => {
                     assert_eq!(path, origin);

@@ -35,7 +35,17 @@ pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
     survey_bar.finish_and_clear();
     model.save(&a.out)?;
     if let Some(path) = &a.report {
-        let json = serde_json::to_vec_pretty(&model.report)
+        let mut doc = serde_json::to_value(&model.report)
+            .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))?;
+        doc["seconds"] = serde_json::json!(model.report.seconds);
+        doc["threads"] = serde_json::json!(model.report.threads);
+        doc["epoch_seconds"] = serde_json::json!(model
+            .report
+            .history
+            .iter()
+            .map(|r| r.seconds)
+            .collect::<Vec<_>>());
+        let json = serde_json::to_vec_pretty(&doc)
             .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))?;
         write_atomic(path, |f| {
             std::io::Write::write_all(f, &json).map_err(|e| Error::io(path, e))

@@ -1,1 +1,25 @@
-//! Work in progress.
+//! Data sources: finding the files of a data lake, choosing columns, streaming blocks of
+//! rows, and the survey pass that measures the data and draws a seeded sample.
+//!
+//! ```text
+//! discover(inputs) → Vec<SourceFile>          files, folders, globs; key=value partitions
+//! resolve_columns(files, selection, csv)     → ResolvedColumns (the input contract)
+//! TableReader::new(files, columns).blocks()  → Block, Block, …   (rows × features as f64)
+//! survey(&reader, settings, progress)        → Survey (moments, missing counts, sample)
+//! ```
+
+mod block;
+mod columns;
+mod csv;
+mod open;
+mod reader;
+mod sample;
+mod sources;
+mod survey;
+
+pub use block::{Block, MissingPolicy};
+pub use columns::{resolve_columns, ColumnSelection, ResolvedColumns};
+pub use reader::{Blocks, TableReader};
+pub use sample::{sample_key, splitmix64};
+pub use sources::{discover, CsvOptions, Format, SourceFile};
+pub use survey::{survey, ColumnStats, Survey, SurveySettings};

@@ -1,12 +1,91 @@
 //! Explicit feature maps z(x) whose inner products approximate a kernel:
 //! z(x)·z(y) ≈ k(x, y). A linear model on z is then an approximate kernel machine.
 //!
-//! Implementations: random Fourier features (`rff`), orthogonal random features
-//! (`orthogonal`) and Nyström (`nystrom`).
+//! Implementations: random Fourier features ([`rff`]), orthogonal random features
+//! ([`orthogonal`]) and Nyström ([`nystrom`]); [`fastcos`] holds the vectorised cosine
+//! they share. [`build_map`] makes a map from a [`MapSpec`]; [`map_from_parts`] rebuilds a
+//! saved one.
 
-use ndarray::{Array2, ArrayView2, ArrayViewMut2};
+pub mod fastcos;
+pub mod nystrom;
+pub mod orthogonal;
+pub mod rff;
 
-use crate::error::Result;
+use ndarray::{Array2, ArrayView2, ArrayViewMut2, Axis};
+use rayon::prelude::*;
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+use crate::kernel::{Kernel, KernelKind};
+
+pub use nystrom::NystromMap;
+pub use orthogonal::OrthogonalMap;
+pub use rff::FourierMap;
+
+/// Which family of feature map to build.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum MapKind {
+    /// Random Fourier features (Rahimi & Recht, NIPS 2007).
+    Fourier,
+    /// Orthogonal random features, Gaussian kernel only (Yu et al., NIPS 2016).
+    Orthogonal,
+    /// Nyström features from landmarks (Williams & Seeger, NIPS 2001).
+    Nystrom,
+}
+
+/// How random Fourier frequencies become features.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum FourierVariant {
+    /// `z = √(2/D) cos(Wᵀx + b)` with D frequencies and phases `b ~ U[0, 2π)`.
+    CosPhase,
+    /// `z = √(2/D) [cos(Wᵀx), sin(Wᵀx)]` with D/2 frequencies; lower variance
+    /// (Sutherland & Schneider, UAI 2015). D must be even.
+    SinCos,
+}
+
+/// How Nyström landmarks are chosen from the sample.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Landmarks {
+    /// Rows drawn uniformly without replacement (seeded).
+    Uniform,
+    /// k-means centres (Zhang, Tsang & Kwok, ICML 2008).
+    KMeans,
+}
+
+/// Everything needed to build a feature map, apart from the kernel and the data.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct MapSpec {
+    /// The map family.
+    pub kind: MapKind,
+    /// Output dimension D (for Nyström: the number of landmarks asked for; the output
+    /// may be smaller, see [`NystromMap`]).
+    pub components: usize,
+    /// Fourier and orthogonal maps: cos + phase or sin/cos pairs.
+    pub variant: FourierVariant,
+    /// Nyström: how landmarks are chosen.
+    pub landmarks: Landmarks,
+    /// Nyström: eigenvalues of the landmark kernel matrix at or below
+    /// `eig_threshold × λ_max` are dropped (default `1e-10`).
+    pub eig_threshold: f64,
+    /// Seed of the random generator (ChaCha8).
+    pub seed: u64,
+}
+
+impl Default for MapSpec {
+    fn default() -> Self {
+        MapSpec {
+            kind: MapKind::Fourier,
+            components: 1024,
+            variant: FourierVariant::SinCos,
+            landmarks: Landmarks::Uniform,
+            eig_threshold: 1e-10,
+            seed: 0,
+        }
+    }
+}
 
 /// The saved form of a feature map: a kind tag, scalar settings as JSON, and named
 /// arrays. A model file stores exactly this, and [`map_from_parts`] rebuilds the map
@@ -51,8 +130,195 @@ pub trait FeatureMap: Send + Sync + std::fmt::Debug {
     fn to_parts(&self) -> MapParts;
 }
 
-/// Rebuilds a map saved with [`FeatureMap::to_parts`].
+/// Builds a map; `sample` (standardized rows) is required for Nyström, ignored otherwise.
+///
+/// Errors (typed): `components = 0`, odd `components` with [`FourierVariant::SinCos`],
+/// `input_dim = 0`, a kernel whose `gamma` is not finite and positive, an orthogonal map
+/// for a non-Gaussian kernel, Nyström without a sample, with zero sample rows,
+/// non-finite sample values or no usable eigenvalue.
+///
+/// # Panics
+/// Nyström only: if `sample.ncols() != input_dim`.
+pub fn build_map(
+    spec: &MapSpec,
+    kernel: Kernel,
+    input_dim: usize,
+    sample: Option<ArrayView2<f64>>,
+) -> Result<Box<dyn FeatureMap>> {
+    Ok(match spec.kind {
+        MapKind::Fourier => Box::new(FourierMap::new(
+            kernel,
+            input_dim,
+            spec.components,
+            spec.variant,
+            spec.seed,
+        )?),
+        MapKind::Orthogonal => Box::new(OrthogonalMap::orthogonal(
+            kernel,
+            input_dim,
+            spec.components,
+            spec.variant,
+            spec.seed,
+        )?),
+        MapKind::Nystrom => {
+            let sample = sample.ok_or_else(|| {
+                Error::invalid(
+                    "sample",
+                    "a Nyström map needs a sample of rows to pick landmarks from",
+                )
+            })?;
+            assert_eq!(
+                sample.ncols(),
+                input_dim,
+                "Nyström sample has {} columns, the map expects {input_dim}",
+                sample.ncols()
+            );
+            Box::new(NystromMap::new(
+                kernel,
+                sample,
+                spec.components,
+                spec.landmarks,
+                spec.eig_threshold,
+                spec.seed,
+            )?)
+        }
+    })
+}
+
+/// Rebuilds a map saved with [`FeatureMap::to_parts`]; the rebuilt map transforms bit for
+/// bit like the saved one. Malformed parts (unknown kind, missing or misshapen arrays,
+/// bad settings, non-finite values) give a typed error.
 pub fn map_from_parts(parts: &MapParts) -> Result<Box<dyn FeatureMap>> {
-    let _ = parts;
-    unimplemented!("filled in by the feature-map work")
+    Ok(match parts.kind.as_str() {
+        rff::KIND_FOURIER | rff::KIND_ORTHOGONAL => Box::new(FourierMap::from_parts(parts)?),
+        nystrom::KIND => Box::new(NystromMap::from_parts(parts)?),
+        other => {
+            return Err(bad_parts(format!(
+                "unknown map kind '{other}' (expected fourier, orthogonal or nystrom)"
+            )))
+        }
+    })
+}
+
+/// Rows per parallel work item in the transforms: the output block of 256 rows stays in
+/// cache while the cosine runs over it.
+pub(crate) const CHUNK_ROWS: usize = 256;
+
+/// The error for a malformed saved map.
+pub(crate) fn bad_parts(reason: impl Into<String>) -> Error {
+    Error::invalid("feature map", reason)
+}
+
+/// Checks the settings shared by all maps; returns the validated kernel.
+pub(crate) fn check_kernel(kernel: Kernel) -> Result<Kernel> {
+    Kernel::new(kernel.kind, kernel.gamma)
+}
+
+/// Kernel settings as saved in [`MapParts::meta`]; gamma is also kept as its bit pattern
+/// so the round trip through JSON text is exact.
+#[derive(Serialize, Deserialize)]
+pub(crate) struct SavedKernel {
+    pub kind: KernelKind,
+    pub gamma: f64,
+    pub gamma_bits: u64,
+}
+
+impl SavedKernel {
+    pub(crate) fn from_kernel(k: Kernel) -> Self {
+        SavedKernel {
+            kind: k.kind,
+            gamma: k.gamma,
+            gamma_bits: k.gamma.to_bits(),
+        }
+    }
+
+    pub(crate) fn to_kernel(&self) -> Result<Kernel> {
+        Kernel::new(self.kind, f64::from_bits(self.gamma_bits))
+            .map_err(|e| bad_parts(format!("saved kernel is invalid: {e}")))
+    }
+}
+
+/// Finds the named array in saved parts and checks its shape (`None` = any) and values.
+pub(crate) fn saved_array<'a>(
+    parts: &'a MapParts,
+    name: &str,
+    rows: Option<usize>,
+    cols: Option<usize>,
+) -> Result<&'a Array2<f64>> {
+    let a = parts
+        .arrays
+        .iter()
+        .find(|(n, _)| n == name)
+        .map(|(_, a)| a)
+        .ok_or_else(|| bad_parts(format!("the array '{name}' is missing")))?;
+    if rows.is_some_and(|r| r != a.nrows()) || cols.is_some_and(|c| c != a.ncols()) {
+        return Err(bad_parts(format!(
+            "the array '{name}' has shape {}×{}, expected {}×{}",
+            a.nrows(),
+            a.ncols(),
+            rows.map_or("any".into(), |r| r.to_string()),
+            cols.map_or("any".into(), |c| c.to_string()),
+        )));
+    }
+    if a.iter().any(|v| !v.is_finite()) {
+        return Err(bad_parts(format!(
+            "the array '{name}' holds a non-finite value"
+        )));
+    }
+    Ok(a)
+}
+
+/// Checks shapes and runs `f(x_chunk, out_chunk)` over chunks of [`CHUNK_ROWS`] rows in
+/// parallel on the current rayon pool. Each output row depends only on its input row.
+pub(crate) fn par_row_chunks<F>(
+    map: &dyn FeatureMap,
+    x: ArrayView2<f64>,
+    mut out: ArrayViewMut2<f64>,
+    f: F,
+) where
+    F: Fn(ArrayView2<f64>, ArrayViewMut2<f64>) + Sync + Send,
+{
+    assert_eq!(
+        x.ncols(),
+        map.input_dim(),
+        "feature map: input has {} columns, the map expects {}",
+        x.ncols(),
+        map.input_dim()
+    );
+    assert_eq!(
+        out.ncols(),
+        map.output_dim(),
+        "feature map: output has {} columns, the map produces {}",
+        out.ncols(),
+        map.output_dim()
+    );
+    assert_eq!(
+        x.nrows(),
+        out.nrows(),
+        "feature map: input has {} rows but output has {}",
+        x.nrows(),
+        out.nrows()
+    );
+    out.axis_chunks_iter_mut(Axis(0), CHUNK_ROWS)
+        .into_par_iter()
+        .zip(x.axis_chunks_iter(Axis(0), CHUNK_ROWS).into_par_iter())
+        .for_each(|(o, xc)| f(xc, o));
+}
+
+/// Calls `f` on each row of `block` as a contiguous slice, copying through one scratch
+/// buffer (allocated once per call) only when a row is not contiguous.
+pub(crate) fn for_each_row_slice(mut block: ArrayViewMut2<f64>, mut f: impl FnMut(&mut [f64])) {
+    let mut scratch: Vec<f64> = Vec::new();
+    for mut row in block.axis_iter_mut(Axis(0)) {
+        if let Some(s) = row.as_slice_mut() {
+            f(s);
+        } else {
+            scratch.clear();
+            scratch.extend(row.iter());
+            f(&mut scratch);
+            for (o, v) in row.iter_mut().zip(&scratch) {
+                *o = *v;
+            }
+        }
+    }
 }

@@ -66,8 +66,11 @@ pub struct TrainingReport {
     pub updates: u64,
     /// Per-epoch figures.
     pub history: Vec<EpochRecord>,
-    /// Wall time of the whole fit in seconds (survey, map, epochs).
+    /// Wall time of the whole fit in seconds (survey, map, epochs). Not stored in the
+    /// model file, so that the same data and seed give the same bytes.
+    #[serde(skip)]
     pub seconds: f64,
-    /// Threads used for reading and mapping.
+    /// Threads used for reading and mapping (not stored in the model file).
+    #[serde(skip)]
     pub threads: usize,
 }

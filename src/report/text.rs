@@ -35,7 +35,9 @@ pub fn render_training(r: &TrainingReport) -> String {
     line(&mut s, "dual", format!("{:.6e}", r.objective.dual));
     line(&mut s, "relative gap", format!("{:.3e}", r.objective.gap));
     line(&mut s, "support vectors", format!("{:.1}% of rows", 100.0 * r.support_share));
-    line(&mut s, "time", format!("{:.1} s on {} thread(s)", r.seconds, r.threads));
+    if r.threads > 0 {
+        line(&mut s, "time", format!("{:.1} s on {} thread(s)", r.seconds, r.threads));
+    }
     if let Some(m) = &r.holdout {
         let _ = writeln!(s, "holdout ({} rows, target units)", m.n);
         line(&mut s, "RMSE", format!("{:.4}", m.rmse));

@@ -144,7 +144,8 @@ pub struct EpochRecord {
     pub holdout: Option<Metrics>,
     /// Coordinate updates made in the epoch.
     pub updates: u64,
-    /// Wall time of the epoch in seconds.
+    /// Wall time of the epoch in seconds (not stored in the model file).
+    #[serde(skip)]
     pub seconds: f64,
     /// Blocks served from memory rather than read and mapped.
     pub resident_blocks: usize,

@@ -3,6 +3,7 @@
 //! with the one-variable closed-form step of Ho & Lin (JMLR 2012, §3) and their
 //! projected-gradient shrinking (after Hsieh et al., ICML 2008).
 
+use super::cache::RowCache;
 use super::{DcdSettings, DcdState};
 use ndarray::{ArrayView1, ArrayView2};
 use rand::seq::SliceRandom;
@@ -30,32 +31,60 @@ pub struct BlockStats {
 }
 
 /// Preallocated scratch for [`solve_block`]: visiting order of the active rows, the
-/// cached diagonal ‖z_i‖² + 1 + λ, shrinking marks and the chunk order. Reused across
-/// blocks, it allocates only when a block is larger than any before.
+/// cached diagonal ‖z_i‖² + 1 + λ, shrinking marks, the chunk order, and the rows kept
+/// from block to block (the free support vectors, after Chang & Roth, KDD 2011). Reused
+/// across the blocks of one problem, it allocates only when a block is larger than any
+/// before. Use one workspace per solver state.
 #[derive(Clone, Debug, Default)]
 pub struct BlockWorkspace {
     order: Vec<usize>,
     diag: Vec<f64>,
     shrunk: Vec<bool>,
     chunks: Vec<usize>,
+    cache: RowCache,
 }
 
 impl BlockWorkspace {
-    /// An empty workspace.
+    /// An empty workspace keeping up to 2·(D + 1) free support vectors across blocks.
     pub fn new() -> Self {
         Self::default()
     }
 
-    fn prepare(&mut self, z: &ArrayView2<f64>, lambda: f64) {
+    /// An empty workspace keeping up to `rows` free support vectors across blocks
+    /// (0: plain block minimization, each block alone).
+    pub fn with_cache_rows(rows: usize) -> Self {
+        let mut ws = Self::default();
+        ws.cache.capacity = Some(rows);
+        ws
+    }
+
+    /// Rows `0..n` are the block's, `n + k` cached row `k`; sets the diagonal of both and
+    /// the visiting order of every row not already in the block.
+    fn prepare(&mut self, z: &ArrayView2<f64>, rows: &[usize], lambda: f64) {
         let n = z.nrows();
-        self.order.clear();
-        self.order.extend(0..n);
+        self.cache.begin_block(z.ncols(), rows);
         self.diag.clear();
         self.diag
             .extend(z.rows().into_iter().map(|r| r.dot(&r) + 1.0 + lambda));
+        for k in 0..self.cache.len() {
+            let r = ArrayView1::from(self.cache.row(k));
+            self.diag.push(r.dot(&r) + 1.0 + lambda);
+        }
         self.shrunk.clear();
-        self.shrunk.resize(n, false);
+        self.shrunk.resize(self.diag.len(), false);
+        fill_order(&mut self.order, n, &self.cache);
     }
+}
+
+/// Every block row, then every cached row that is not in the block.
+fn fill_order(order: &mut Vec<usize>, n: usize, cache: &RowCache) {
+    order.clear();
+    order.extend(0..n);
+    order.extend(
+        (0..cache.len())
+            .filter(|&k| !cache.in_block(k))
+            .map(|k| n + k),
+    );
 }
 
 /// Inner product of the weights with one row; 4-way unrolled on a contiguous row, in a
@@ -160,18 +189,20 @@ pub fn solve_block(
     let lambda = settings.lambda();
     let upper = settings.upper();
     let eps = settings.epsilon;
-    ws.prepare(&z, lambda);
+    ws.prepare(&z, rows, lambda);
 
     let BlockWorkspace {
         order,
         diag,
         shrunk,
         chunks,
+        cache,
     } = ws;
+    let full = order.len();
     let mut w_all = std::mem::take(&mut state.w);
     let w_slice = w_all.as_slice_mut().expect("weights are contiguous");
     let (w, bias) = w_slice.split_at_mut(d);
-    let mut active = n;
+    let mut active = full;
     let mut bound_old = f64::INFINITY;
     let mut inner_tol = 0.0;
     for sweep in 0..settings.sweeps_per_block {
@@ -182,10 +213,18 @@ pub fn solve_block(
             let start = c * CHUNK_ROWS;
             let end = (start + CHUNK_ROWS).min(active);
             for &i in &order[start..end] {
-                let zi = z.row(i);
-                let gi = rows[i];
+                let (zi, yi, gi) = if i < n {
+                    (z.row(i), y[i], rows[i])
+                } else {
+                    let k = i - n;
+                    (
+                        ArrayView1::from(cache.row(k)),
+                        cache.target(k),
+                        cache.global(k),
+                    )
+                };
                 let beta = state.beta[gi];
-                let g = dot_row(w, zi) + bias[0] - y[i] + lambda * beta;
+                let g = dot_row(w, zi) + bias[0] - yi + lambda * beta;
                 let gp = g + eps;
                 let gn = g - eps;
                 // Projected-gradient violation and the shrinking test (Ho & Lin 2012, §3):
@@ -241,7 +280,7 @@ pub fn solve_block(
                     axpy(w, delta, zi);
                     bias[0] += delta;
                     state.beta[gi] = new;
-                    state.record_change(y[i], beta, new);
+                    state.record_change(yi, beta, new);
                     stats.updates += 1;
                 }
             }
@@ -257,13 +296,12 @@ pub fn solve_block(
             active = order.len();
         }
         if max_v <= inner_tol {
-            if active == n {
+            if active == full {
                 break;
             }
             // Converged on the active set: check every row again before stopping.
-            active = n;
-            order.clear();
-            order.extend(0..n);
+            fill_order(order, n, cache);
+            active = full;
             shrunk.fill(false);
             bound_old = f64::INFINITY;
         } else {
@@ -271,6 +309,7 @@ pub fn solve_block(
         }
     }
     state.w = w_all;
+    cache.end_block(&z, &y, rows, &state.beta, upper);
     stats
 }
 

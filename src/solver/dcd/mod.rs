@@ -18,10 +18,13 @@
 //! * [`solve_block`] runs a few sweeps over one block's dual variables, with the
 //!   projected-gradient shrinking of Hsieh et al. (ICML 2008) in the form Ho & Lin
 //!   (2012, §3) give for regression;
+//!   The free support vectors are kept in memory from block to block and joined to
+//!   every block's sub-problem (selective block minimization, Chang & Roth, KDD 2011);
 //! * [`PrimalAccumulator`] gathers the primal loss over blocks for the gap;
 //! * [`fit`] drives both over an in-memory array, with the target standardized.
 
 mod block;
+mod cache;
 mod fit;
 mod objective;
 

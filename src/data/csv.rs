@@ -1,0 +1,172 @@
+//! Delimited text files with a header row: header, type inference on the first records,
+//! cell parsing and batch reading through `arrow-csv`.
+//!
+//! kernlake parses CSV cells itself so that the rules are the same for inference and for
+//! reading: an empty field is a missing value (null); `true` and `false` (any case) are
+//! 1 and 0; anything else must parse as a Rust `f64` after trimming spaces, which accepts
+//! `NaN`, `inf` and `infinity` (they then count as missing values under the policy).
+
+use std::fs::File;
+use std::path::Path;
+use std::sync::Arc;
+
+use arrow_array::cast::AsArray;
+use arrow_array::{Array, Float64Array};
+use arrow_csv::reader::Format as CsvFormat;
+use arrow_schema::{DataType, Field, Schema};
+
+use super::columns::Kind;
+use super::sources::CsvOptions;
+use crate::error::{Error, Result};
+
+/// Records read to infer the type of each column.
+pub(crate) const INFER_RECORDS: usize = 1_000;
+
+/// A CSV reader yielding Arrow batches of text columns.
+pub(crate) type CsvBatches = arrow_csv::Reader<File>;
+
+/// Column names from the header row (empty for an empty file).
+pub(crate) fn header(path: &Path, opts: &CsvOptions) -> Result<Vec<String>> {
+    let file = File::open(path).map_err(|e| Error::io(path, e))?;
+    let (schema, _) = CsvFormat::default()
+        .with_header(true)
+        .with_delimiter(opts.delimiter)
+        .infer_schema(file, Some(0))
+        .map_err(|e| Error::File {
+            path: path.to_path_buf(),
+            message: format!("has an unreadable header row ({e})"),
+        })?;
+    Ok(schema.fields().iter().map(|f| f.name().clone()).collect())
+}
+
+/// Opens `path` reading the columns at `projection` (indices into `names`) as text.
+pub(crate) fn open(
+    path: &Path,
+    names: &[String],
+    projection: Vec<usize>,
+    opts: &CsvOptions,
+    batch_rows: usize,
+) -> Result<CsvBatches> {
+    let schema = Schema::new(
+        names
+            .iter()
+            .map(|n| Field::new(n, DataType::Utf8, true))
+            .collect::<Vec<_>>(),
+    );
+    let file = File::open(path).map_err(|e| Error::io(path, e))?;
+    arrow_csv::ReaderBuilder::new(Arc::new(schema))
+        .with_header(true)
+        .with_delimiter(opts.delimiter)
+        .with_batch_size(batch_rows)
+        .with_projection(projection)
+        .build(file)
+        .map_err(|e| Error::File {
+            path: path.to_path_buf(),
+            message: format!("could not be opened as CSV ({e})"),
+        })
+}
+
+/// Parses one non-empty cell; `None` when it is not a number or boolean.
+pub(crate) fn parse_cell(s: &str) -> Option<f64> {
+    let t = s.trim();
+    if t.eq_ignore_ascii_case("true") {
+        Some(1.0)
+    } else if t.eq_ignore_ascii_case("false") {
+        Some(0.0)
+    } else {
+        t.parse::<f64>().ok()
+    }
+}
+
+/// Converts a text column of a batch to `Float64` (nulls kept). `first_row` is the
+/// 1-based row within the file of the batch's first row, for the error message.
+pub(crate) fn to_f64(
+    array: &dyn Array,
+    path: &Path,
+    column: &str,
+    first_row: u64,
+) -> Result<Float64Array> {
+    let text = array.as_string::<i32>();
+    let mut out = Vec::with_capacity(text.len());
+    for (i, cell) in text.iter().enumerate() {
+        match cell {
+            None => out.push(None),
+            Some(s) if s.trim().is_empty() => out.push(None),
+            Some(s) => match parse_cell(s) {
+                Some(v) => out.push(Some(v)),
+                None => {
+                    return Err(Error::Cell {
+                        path: path.to_path_buf(),
+                        row: first_row + i as u64,
+                        column: column.to_string(),
+                        message: format!("'{s}' is not a number"),
+                    })
+                }
+            },
+        }
+    }
+    Ok(Float64Array::from(out))
+}
+
+/// Column names and inferred kinds from the header and the first [`INFER_RECORDS`]
+/// records; `None` for a file without a header row (empty file).
+pub(crate) fn infer(path: &Path, opts: &CsvOptions) -> Result<Option<Vec<(String, Kind)>>> {
+    let names = header(path, opts)?;
+    if names.is_empty() {
+        return Ok(None);
+    }
+    let projection: Vec<usize> = (0..names.len()).collect();
+    let mut reader = open(path, &names, projection, opts, INFER_RECORDS)?;
+    // 0 = nothing seen, 1 = numbers (or booleans) only, 2 = text seen
+    let mut seen = vec![0u8; names.len()];
+    if let Some(batch) = reader.next() {
+        let batch = batch.map_err(|e| Error::File {
+            path: path.to_path_buf(),
+            message: format!("could not be parsed as CSV ({e})"),
+        })?;
+        for (c, col) in batch.columns().iter().enumerate() {
+            for s in col.as_string::<i32>().iter().flatten() {
+                if s.trim().is_empty() {
+                    continue;
+                }
+                let state = if parse_cell(s).is_some() { 1 } else { 2 };
+                seen[c] = seen[c].max(state);
+                if seen[c] == 2 {
+                    break;
+                }
+            }
+        }
+    }
+    Ok(Some(
+        names
+            .into_iter()
+            .zip(seen)
+            .map(|(n, s)| {
+                let kind = match s {
+                    0 => Kind::Unknown,
+                    1 => Kind::Numeric,
+                    _ => Kind::Other("text".into()),
+                };
+                (n, kind)
+            })
+            .collect(),
+    ))
+}
+
+/// Number of data rows of a CSV file (a full parse of its first column).
+pub(crate) fn count_rows(path: &Path, opts: &CsvOptions, batch_rows: usize) -> Result<u64> {
+    let names = header(path, opts)?;
+    if names.is_empty() {
+        return Ok(0);
+    }
+    let reader = open(path, &names, vec![0], opts, batch_rows)?;
+    let mut rows = 0u64;
+    for batch in reader {
+        let batch = batch.map_err(|e| Error::File {
+            path: path.to_path_buf(),
+            message: format!("could not be parsed as CSV ({e})"),
+        })?;
+        rows += batch.num_rows() as u64;
+    }
+    Ok(rows)
+}
