@@ -19,7 +19,8 @@ use kernlake::data::discover;
 use kernlake::fit::Fitter;
 use kernlake::model::Model;
 use kernlake::score::{score_files, Quiet, ScoreOptions};
-use ndarray::{Array1, Array2, Axis, Zip};
+use ndarray::{Array1, Array2, Axis};
+use rayon::prelude::*;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
@@ -125,9 +126,10 @@ fn main() {
                 // Same chunked, parallel layout as the scoring pipeline.
                 let t = Instant::now();
                 let mut v = Array1::zeros(n);
-                Zip::from(x.axis_chunks_iter(Axis(0), 1024))
-                    .and(v.axis_chunks_iter_mut(Axis(0), 1024))
-                    .par_for_each(|xc, oc| {
+                x.axis_chunks_iter(Axis(0), 1024)
+                    .into_par_iter()
+                    .zip(v.axis_chunks_iter_mut(Axis(0), 1024).into_par_iter())
+                    .for_each(|(xc, oc)| {
                         let mut xs = xc.to_owned();
                         model.scaler.apply(xs.view_mut());
                         c.values_into(xs.view(), oc);

@@ -7,7 +7,8 @@ use std::sync::Arc;
 
 use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, RecordBatch};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
-use ndarray::{Array1, Array2, Axis, Zip};
+use ndarray::{Array1, Array2, Axis};
+use rayon::prelude::*;
 
 use super::{MissingRows, ScoreOptions, COVERAGE_COLUMN, COVERED_COLUMN};
 use crate::error::{Error, Result};
@@ -301,9 +302,10 @@ pub(crate) fn score_planned(
     let cov = if plan.coverage {
         let c = model.coverage.as_ref().expect("plan checked coverage");
         let mut v = Array1::<f64>::zeros(m);
-        Zip::from(x.axis_chunks_iter(Axis(0), COVERAGE_CHUNK))
-            .and(v.axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK))
-            .par_for_each(|xc, oc| {
+        x.axis_chunks_iter(Axis(0), COVERAGE_CHUNK)
+            .into_par_iter()
+            .zip(v.axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK).into_par_iter())
+            .for_each(|(xc, oc)| {
                 let mut xs = xc.to_owned();
                 model.scaler.apply(xs.view_mut());
                 c.values_into(xs.view(), oc);
