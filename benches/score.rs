@@ -20,16 +20,19 @@ use kernlake::fit::Fitter;
 use kernlake::model::Model;
 use kernlake::score::{score_files, Quiet, ScoreOptions};
 use ndarray::{Array1, Array2, Axis};
-use rayon::prelude::*;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
+use rayon::prelude::*;
 
 const D_IN: usize = 20;
 const BATCH: usize = 65_536;
 
 fn env_usize(name: &str, default: usize) -> usize {
-    std::env::var(name).ok().and_then(|v| v.parse().ok()).unwrap_or(default)
+    std::env::var(name)
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(default)
 }
 
 /// Rows `lo..lo+n` of the synthetic table (deterministic per row block seed).
@@ -46,7 +49,11 @@ fn names() -> Vec<String> {
 /// from seed `b` so the in-memory pass can regenerate the same rows.
 fn write_data(dir: &Path, files: usize, per_file: usize) {
     let mut fields = vec![Field::new("id", DataType::Int64, false)];
-    fields.extend(names().iter().map(|n| Field::new(n, DataType::Float64, false)));
+    fields.extend(
+        names()
+            .iter()
+            .map(|n| Field::new(n, DataType::Float64, false)),
+    );
     let schema = Arc::new(Schema::new(fields));
     let mut seed = 0u64;
     let mut id = 0i64;
@@ -60,11 +67,13 @@ fn write_data(dir: &Path, files: usize, per_file: usize) {
             let n = left.min(BATCH);
             let x = rows(seed, n);
             seed += 1;
-            let mut cols: Vec<ArrayRef> = vec![Arc::new(Int64Array::from_iter_values(id..id + n as i64))];
+            let mut cols: Vec<ArrayRef> =
+                vec![Arc::new(Int64Array::from_iter_values(id..id + n as i64))];
             for j in 0..D_IN {
                 cols.push(Arc::new(Float64Array::from(x.column(j).to_vec())));
             }
-            w.write(&RecordBatch::try_new(schema.clone(), cols).unwrap()).unwrap();
+            w.write(&RecordBatch::try_new(schema.clone(), cols).unwrap())
+                .unwrap();
             id += n as i64;
             left -= n;
         }
@@ -92,7 +101,10 @@ fn model() -> Model {
 
 fn main() {
     let full = std::env::args().any(|a| a == "--bench");
-    let total = env_usize("KERNLAKE_BENCH_ROWS", if full { 2_000_000 } else { 100_000 });
+    let total = env_usize(
+        "KERNLAKE_BENCH_ROWS",
+        if full { 2_000_000 } else { 100_000 },
+    );
     let files = env_usize("KERNLAKE_BENCH_FILES", 20);
     let per_file = total / files;
     let total = per_file * files;
@@ -104,7 +116,10 @@ fn main() {
     let _ = std::fs::remove_dir_all(&data);
     let t = Instant::now();
     write_data(&data, files, per_file);
-    eprintln!("wrote {total} rows × {D_IN} in {files} files: {:.1}s", t.elapsed().as_secs_f64());
+    eprintln!(
+        "wrote {total} rows × {D_IN} in {files} files: {:.1}s",
+        t.elapsed().as_secs_f64()
+    );
     let model = model();
     model.save(&root.join("model.klm")).unwrap();
 
@@ -144,7 +159,11 @@ fn main() {
     let sources = discover(&[data.display().to_string()]).unwrap();
     let mut e2e = Vec::new();
     for coverage in [false, true] {
-        let out = root.join(if coverage { "out-coverage" } else { "out-plain" });
+        let out = root.join(if coverage {
+            "out-coverage"
+        } else {
+            "out-plain"
+        });
         let _ = std::fs::remove_dir_all(&out);
         let opts = ScoreOptions {
             out_dir: out.clone(),
@@ -158,11 +177,24 @@ fn main() {
         let _ = std::fs::remove_dir_all(&out);
     }
     let rate = |s: f64| total as f64 / s;
-    println!("rows {total}, files {files}, inputs {D_IN}, D 1024, threads {}", rayon::current_num_threads());
-    println!("map only (predict, in memory)      {:>12.0} rows/s", rate(map_s));
-    println!("end-to-end, no coverage            {:>12.0} rows/s   ratio {:.2}", rate(e2e[0]), map_s / e2e[0]);
+    println!(
+        "rows {total}, files {files}, inputs {D_IN}, D 1024, threads {}",
+        rayon::current_num_threads()
+    );
+    println!(
+        "map only (predict, in memory)      {:>12.0} rows/s",
+        rate(map_s)
+    );
+    println!(
+        "end-to-end, no coverage            {:>12.0} rows/s   ratio {:.2}",
+        rate(e2e[0]),
+        map_s / e2e[0]
+    );
     if model.coverage.is_some() {
-        println!("map + coverage (in memory)         {:>12.0} rows/s", rate(map_s + cov_s));
+        println!(
+            "map + coverage (in memory)         {:>12.0} rows/s",
+            rate(map_s + cov_s)
+        );
         println!(
             "end-to-end, with coverage          {:>12.0} rows/s   ratio {:.2} (vs map only), {:.2} (vs map + coverage)",
             rate(e2e[1]),

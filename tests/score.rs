@@ -10,7 +10,9 @@ use std::sync::Arc;
 
 use arrow_array::cast::AsArray;
 use arrow_array::types::Float64Type;
-use arrow_array::{ArrayRef, Float64Array, Int64Array, RecordBatch, RecordBatchReader, StringArray};
+use arrow_array::{
+    ArrayRef, Float64Array, Int64Array, RecordBatch, RecordBatchReader, StringArray,
+};
 use arrow_schema::{DataType, Field, Schema};
 use kernlake::data::{discover, SourceFile};
 use kernlake::fit::Fitter;
@@ -37,7 +39,10 @@ fn ccpp_model() -> Model {
         .unwrap();
     m.columns.features = NAMES.iter().map(|s| s.to_string()).collect();
     m.columns.target = Some("PE".into());
-    assert!(m.coverage.is_some(), "a fitted model stores coverage landmarks");
+    assert!(
+        m.coverage.is_some(),
+        "a fitted model stores coverage landmarks"
+    );
     m
 }
 
@@ -49,11 +54,15 @@ fn ccpp_batch(x: &Array2<f64>, y: &Array1<f64>, lo: usize, hi: usize) -> RecordB
     ];
     let mut cols: Vec<ArrayRef> = vec![
         Arc::new(Int64Array::from_iter_values(lo as i64..hi as i64)),
-        Arc::new(StringArray::from_iter_values((lo..hi).map(|i| format!("r{i}")))),
+        Arc::new(StringArray::from_iter_values(
+            (lo..hi).map(|i| format!("r{i}")),
+        )),
     ];
     for (j, n) in NAMES.iter().enumerate() {
         fields.push(Field::new(*n, DataType::Float64, true));
-        cols.push(Arc::new(Float64Array::from(x.slice(s![lo..hi, j]).to_vec())));
+        cols.push(Arc::new(Float64Array::from(
+            x.slice(s![lo..hi, j]).to_vec(),
+        )));
     }
     fields.push(Field::new("PE", DataType::Float64, true));
     cols.push(Arc::new(Float64Array::from(y.slice(s![lo..hi]).to_vec())));
@@ -70,14 +79,21 @@ fn write_batch(path: &Path, batch: &RecordBatch) {
 
 fn read_parquet(path: &Path) -> RecordBatch {
     let f = std::fs::File::open(path).unwrap();
-    let r = ParquetRecordBatchReaderBuilder::try_new(f).unwrap().build().unwrap();
+    let r = ParquetRecordBatchReaderBuilder::try_new(f)
+        .unwrap()
+        .build()
+        .unwrap();
     let schema = r.schema();
     let batches: Vec<RecordBatch> = r.map(|b| b.unwrap()).collect();
     arrow_select::concat::concat_batches(&schema, &batches).unwrap()
 }
 
 fn f64s(b: &RecordBatch, name: &str) -> Vec<Option<f64>> {
-    b.column_by_name(name).unwrap().as_primitive::<Float64Type>().iter().collect()
+    b.column_by_name(name)
+        .unwrap()
+        .as_primitive::<Float64Type>()
+        .iter()
+        .collect()
 }
 
 /// CCPP rows 0..6000 as six files in partition folders `site=1..3/part-k.parquet`.
@@ -85,7 +101,9 @@ fn lake(dir: &Path) -> (Vec<PathBuf>, Array2<f64>, Array1<f64>) {
     let (_, x, y) = common::ccpp();
     let mut paths = Vec::new();
     for k in 0..6 {
-        let p = dir.join(format!("site={}", k / 2 + 1)).join(format!("part-{k}.parquet"));
+        let p = dir
+            .join(format!("site={}", k / 2 + 1))
+            .join(format!("part-{k}.parquet"));
         write_batch(&p, &ccpp_batch(&x, &y, k * 1000, (k + 1) * 1000));
         paths.push(p);
     }
@@ -112,13 +130,21 @@ fn scores_equal_predict_bit_for_bit_whatever_threads_and_batches() {
     for (threads, batch) in [(1, 1000), (2, 777), (2, 65_536)] {
         let out = tmp.path().join(format!("out-{threads}-{batch}"));
         let sum = score_files(&model, &files, &opts(&out, threads, batch), &Quiet).unwrap();
-        assert_eq!((sum.files_scored, sum.rows_read, sum.rows_written), (6, 6000, 6000));
+        assert_eq!(
+            (sum.files_scored, sum.rows_read, sum.rows_written),
+            (6, 6000, 6000)
+        );
         let mut preds = Vec::new();
         for k in 0..6 {
             // Outputs mirror the input folders (partition folders kept).
-            let p = out.join(format!("site={}", k / 2 + 1)).join(format!("part-{k}.parquet"));
+            let p = out
+                .join(format!("site={}", k / 2 + 1))
+                .join(format!("part-{k}.parquet"));
             let b = read_parquet(&p);
-            let ids = b.column_by_name("id").unwrap().as_primitive::<arrow_array::types::Int64Type>();
+            let ids = b
+                .column_by_name("id")
+                .unwrap()
+                .as_primitive::<arrow_array::types::Int64Type>();
             assert_eq!(ids.value(0), (k * 1000) as i64);
             preds.extend(f64s(&b, "prediction").into_iter().map(Option::unwrap));
         }
@@ -140,7 +166,13 @@ fn output_schema_and_columns() {
     write_batch(&p, &ccpp_batch(&x, &y, 0, 500));
     let file = SourceFile::open(p.clone()).unwrap();
     let out = tmp.path().join("out");
-    score_files(&model, &[file.clone()], &opts(&out, 1, 128), &Quiet).unwrap();
+    score_files(
+        &model,
+        std::slice::from_ref(&file),
+        &opts(&out, 1, 128),
+        &Quiet,
+    )
+    .unwrap();
     let b = read_parquet(&out.join("a.parquet"));
     let names: Vec<(String, DataType)> = b
         .schema()
@@ -157,7 +189,10 @@ fn output_schema_and_columns() {
         ("coverage", DataType::Float64),
         ("covered", DataType::Boolean),
     ];
-    let want: Vec<(String, DataType)> = want.iter().map(|(n, t)| (n.to_string(), t.clone())).collect();
+    let want: Vec<(String, DataType)> = want
+        .iter()
+        .map(|(n, t)| (n.to_string(), t.clone()))
+        .collect();
     assert_eq!(names, want);
     assert_eq!(b.num_rows(), 500);
 
@@ -172,7 +207,12 @@ fn output_schema_and_columns() {
     };
     score_files(&model, &[file], &o, &Quiet).unwrap();
     let b = read_parquet(&out.join("a.parquet"));
-    let names: Vec<&str> = b.schema_ref().fields().iter().map(|f| f.name().as_str()).collect();
+    let names: Vec<&str> = b
+        .schema_ref()
+        .fields()
+        .iter()
+        .map(|f| f.name().as_str())
+        .collect();
     assert_eq!(names, ["tag", "AT", "V", "AP", "RH", "pe_hat"]);
 }
 
@@ -181,25 +221,51 @@ fn coverage_high_in_distribution_and_near_zero_far_away() {
     let model = ccpp_model();
     let (_, x, y) = common::ccpp();
     // Held-out rows from the same plant (rows 6000..7000 were not used to fit).
-    let near = score_batch(&model, &ccpp_batch(&x, &y, 6000, 7000), &ScoreOptions::default()).unwrap();
-    let cov: Vec<f64> = f64s(&near, "coverage").into_iter().map(Option::unwrap).collect();
+    let near = score_batch(
+        &model,
+        &ccpp_batch(&x, &y, 6000, 7000),
+        &ScoreOptions::default(),
+    )
+    .unwrap();
+    let cov: Vec<f64> = f64s(&near, "coverage")
+        .into_iter()
+        .map(Option::unwrap)
+        .collect();
     let mean = cov.iter().sum::<f64>() / cov.len() as f64;
-    let flagged = near.column_by_name("covered").unwrap().as_boolean().false_count();
+    let flagged = near
+        .column_by_name("covered")
+        .unwrap()
+        .as_boolean()
+        .false_count();
     // The threshold is the 1% quantile of held-out coverage: few rows like the training
     // data are flagged (allow 5% for sampling).
     assert!(mean > 0.5, "mean coverage {mean}");
-    assert!(flagged <= 50, "{flagged} of 1000 in-distribution rows flagged");
+    assert!(
+        flagged <= 50,
+        "{flagged} of 1000 in-distribution rows flagged"
+    );
     // Far outside: every input shifted by 50 standard deviations. common practice:
     // a Gaussian kernel k → 0 with distance, so coverage → 0 and every row is flagged.
     let mut far_x = x.clone();
     for (j, mut c) in far_x.axis_iter_mut(Axis(1)).enumerate() {
         c += 50.0 * model.scaler.scale[j];
     }
-    let far = score_batch(&model, &ccpp_batch(&far_x, &y, 6000, 7000), &ScoreOptions::default()).unwrap();
+    let far = score_batch(
+        &model,
+        &ccpp_batch(&far_x, &y, 6000, 7000),
+        &ScoreOptions::default(),
+    )
+    .unwrap();
     for c in f64s(&far, "coverage") {
         assert!(c.unwrap() < 1e-6, "far coverage {c:?}");
     }
-    assert_eq!(far.column_by_name("covered").unwrap().as_boolean().true_count(), 0);
+    assert_eq!(
+        far.column_by_name("covered")
+            .unwrap()
+            .as_boolean()
+            .true_count(),
+        0
+    );
 }
 
 #[test]
@@ -227,13 +293,22 @@ fn missing_inputs_null_skip_fail() {
             assert_eq!(p[i].unwrap().to_bits(), expected[i].to_bits(), "row {i}");
         }
     }
-    let skip = ScoreOptions { missing: MissingRows::Skip, ..ScoreOptions::default() };
+    let skip = ScoreOptions {
+        missing: MissingRows::Skip,
+        ..ScoreOptions::default()
+    };
     let out = score_batch(&model, &batch, &skip).unwrap();
     assert_eq!(out.num_rows(), 17);
-    let ids = out.column_by_name("id").unwrap().as_primitive::<arrow_array::types::Int64Type>();
+    let ids = out
+        .column_by_name("id")
+        .unwrap()
+        .as_primitive::<arrow_array::types::Int64Type>();
     assert!(ids.iter().all(|i| !bad.contains(&(i.unwrap() as usize))));
 
-    let fail = ScoreOptions { missing: MissingRows::Fail, ..ScoreOptions::default() };
+    let fail = ScoreOptions {
+        missing: MissingRows::Fail,
+        ..ScoreOptions::default()
+    };
     match score_batch(&model, &batch, &fail) {
         Err(Error::Cell { row, column, .. }) => assert_eq!((row, column.as_str()), (4, "V")),
         other => panic!("expected a cell error, got {other:?}"),
@@ -251,7 +326,10 @@ fn rerun_skips_complete_outputs_and_redoes_changed_ones() {
     let first = score_files(&model, &files, &o, &Quiet).unwrap();
     assert_eq!(first.files_scored, 6);
     let again = score_files(&model, &files, &o, &Quiet).unwrap();
-    assert_eq!((again.files_scored, again.files_skipped, again.rows_read), (0, 6, 0));
+    assert_eq!(
+        (again.files_scored, again.files_skipped, again.rows_read),
+        (0, 6, 0)
+    );
 
     // A truncated output is not complete; a changed input is rescored.
     let out0 = out.join("site=1").join("part-0.parquet");
@@ -261,14 +339,33 @@ fn rerun_skips_complete_outputs_and_redoes_changed_ones() {
     let files = discover(&[tmp.path().join("lake").display().to_string()]).unwrap();
     let third = score_files(&model, &files, &o, &Quiet).unwrap();
     assert_eq!((third.files_scored, third.files_skipped), (2, 4));
-    assert_eq!(read_parquet(&out.join("site=3").join("part-5.parquet")).num_rows(), 500);
+    assert_eq!(
+        read_parquet(&out.join("site=3").join("part-5.parquet")).num_rows(),
+        500
+    );
     assert_eq!(std::fs::read(&out0).unwrap(), bytes);
 
     // Different settings or --overwrite: everything again.
-    let renamed = ScoreOptions { prediction_name: "p".into(), ..o.clone() };
-    assert_eq!(score_files(&model, &files, &renamed, &Quiet).unwrap().files_scored, 6);
-    let over = ScoreOptions { overwrite: true, ..o };
-    assert_eq!(score_files(&model, &files, &over, &Quiet).unwrap().files_scored, 6);
+    let renamed = ScoreOptions {
+        prediction_name: "p".into(),
+        ..o.clone()
+    };
+    assert_eq!(
+        score_files(&model, &files, &renamed, &Quiet)
+            .unwrap()
+            .files_scored,
+        6
+    );
+    let over = ScoreOptions {
+        overwrite: true,
+        ..o
+    };
+    assert_eq!(
+        score_files(&model, &files, &over, &Quiet)
+            .unwrap()
+            .files_scored,
+        6
+    );
 }
 
 #[test]
@@ -280,10 +377,17 @@ fn contract_failures_name_file_and_column_and_write_nothing() {
     let good = ccpp_batch(&x, &y, 0, 100);
     let no_rh = good.project(&[0, 1, 2, 3, 4, 6]).unwrap();
     write_batch(&tmp.path().join("lake/site=9/part-9.parquet"), &no_rh);
-    let mut fields: Vec<Field> = good.schema().fields().iter().map(|f| f.as_ref().clone()).collect();
+    let mut fields: Vec<Field> = good
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| f.as_ref().clone())
+        .collect();
     fields[2] = Field::new("AT", DataType::Utf8, true);
     let mut cols = good.columns().to_vec();
-    cols[2] = Arc::new(StringArray::from_iter_values((0..100).map(|i| format!("{i}"))));
+    cols[2] = Arc::new(StringArray::from_iter_values(
+        (0..100).map(|i| format!("{i}")),
+    ));
     let text = RecordBatch::try_new(Arc::new(Schema::new(fields)), cols).unwrap();
     write_batch(&tmp.path().join("lake/site=8/part-8.parquet"), &text);
     let files = discover(&[tmp.path().join("lake").display().to_string()]).unwrap();
@@ -296,11 +400,18 @@ fn contract_failures_name_file_and_column_and_write_nothing() {
         }
         other => panic!("expected a column error, got {other:?}"),
     }
-    let keep_going = ScoreOptions { keep_going: true, ..opts(&out, 2, 1000) };
+    let keep_going = ScoreOptions {
+        keep_going: true,
+        ..opts(&out, 2, 1000)
+    };
     let sum = score_files(&model, &files, &keep_going, &Quiet).unwrap();
     assert_eq!(sum.files_scored + sum.files_skipped, 6);
     assert_eq!(sum.failures.len(), 2);
-    assert!(sum.failures[1].message.contains("'RH'"), "{}", sum.failures[1].message);
+    assert!(
+        sum.failures[1].message.contains("'RH'"),
+        "{}",
+        sum.failures[1].message
+    );
     assert!(!out.join("site=9/part-9.parquet").exists());
     assert!(!out.join("site=8").exists());
 }
@@ -313,7 +424,10 @@ fn bad_outputs_corrupt_and_empty_inputs() {
     let files = discover(&[tmp.path().join("lake").display().to_string()]).unwrap();
     // Output folder inside the input folder.
     let inside = opts(&tmp.path().join("lake/scored"), 1, 1000);
-    assert!(matches!(score_files(&model, &files, &inside, &Quiet), Err(Error::InvalidParameter { .. })));
+    assert!(matches!(
+        score_files(&model, &files, &inside, &Quiet),
+        Err(Error::InvalidParameter { .. })
+    ));
     // Unwritable output folder: below a regular file.
     std::fs::write(tmp.path().join("plain"), b"x").unwrap();
     let blocked = tmp.path().join("plain").join("out");
@@ -325,8 +439,18 @@ fn bad_outputs_corrupt_and_empty_inputs() {
     let bad = tmp.path().join("other/bad.parquet");
     std::fs::create_dir_all(bad.parent().unwrap()).unwrap();
     std::fs::write(&bad, b"PAR1 this is not a parquet file PAR1").unwrap();
-    let bad_file = SourceFile { path: bad.clone(), format: kernlake::data::Format::Parquet, partitions: vec![], rows: None };
-    match score_files(&model, &[bad_file], &opts(&tmp.path().join("o2"), 1, 1000), &Quiet) {
+    let bad_file = SourceFile {
+        path: bad.clone(),
+        format: kernlake::data::Format::Parquet,
+        partitions: vec![],
+        rows: None,
+    };
+    match score_files(
+        &model,
+        &[bad_file],
+        &opts(&tmp.path().join("o2"), 1, 1000),
+        &Quiet,
+    ) {
         Err(e @ Error::File { .. }) => assert!(e.to_string().contains("bad.parquet"), "{e}"),
         other => panic!("expected a file error, got {other:?}"),
     }
@@ -339,8 +463,16 @@ fn bad_outputs_corrupt_and_empty_inputs() {
     assert_eq!((sum.files_scored, sum.rows_written), (1, 0));
     let b = read_parquet(&out.join("empty.parquet"));
     assert_eq!(b.num_rows(), 0);
-    let names: Vec<&str> = b.schema_ref().fields().iter().map(|f| f.name().as_str()).collect();
-    assert_eq!(names, ["id", "tag", "PE", "prediction", "coverage", "covered"]);
+    let names: Vec<&str> = b
+        .schema_ref()
+        .fields()
+        .iter()
+        .map(|f| f.name().as_str())
+        .collect();
+    assert_eq!(
+        names,
+        ["id", "tag", "PE", "prediction", "coverage", "covered"]
+    );
 }
 
 fn kernlake() -> Command {
@@ -356,7 +488,12 @@ fn cli_scores_files_pipes_and_refuses_a_damaged_model() {
     model.save(&mpath).unwrap();
     let out = tmp.path().join("out");
     let st = kernlake()
-        .args(["score", "-q", mpath.to_str().unwrap(), tmp.path().join("lake").to_str().unwrap()])
+        .args([
+            "score",
+            "-q",
+            mpath.to_str().unwrap(),
+            tmp.path().join("lake").to_str().unwrap(),
+        ])
         .args(["--out", out.to_str().unwrap(), "--threads", "2"])
         .status()
         .unwrap();
@@ -377,7 +514,16 @@ fn cli_scores_files_pipes_and_refuses_a_damaged_model() {
         w.finish().unwrap();
     }
     let mut child = kernlake()
-        .args(["score", "-q", mpath.to_str().unwrap(), "-", "--out", "-", "--batch-rows", "64"])
+        .args([
+            "score",
+            "-q",
+            mpath.to_str().unwrap(),
+            "-",
+            "--out",
+            "-",
+            "--batch-rows",
+            "64",
+        ])
         .stdin(std::process::Stdio::piped())
         .stdout(std::process::Stdio::piped())
         .spawn()
@@ -385,7 +531,8 @@ fn cli_scores_files_pipes_and_refuses_a_damaged_model() {
     std::io::Write::write_all(&mut child.stdin.take().unwrap(), &input).unwrap();
     let got = child.wait_with_output().unwrap();
     assert!(got.status.success());
-    let r = arrow_ipc::reader::StreamReader::try_new(std::io::Cursor::new(got.stdout), None).unwrap();
+    let r =
+        arrow_ipc::reader::StreamReader::try_new(std::io::Cursor::new(got.stdout), None).unwrap();
     let batches: Vec<RecordBatch> = r.map(|b| b.unwrap()).collect();
     let all = arrow_select::concat::concat_batches(&batches[0].schema(), &batches).unwrap();
     let expected = model.predict(xa.slice(s![100..400, ..]));
@@ -400,7 +547,12 @@ fn cli_scores_files_pipes_and_refuses_a_damaged_model() {
     let broken = tmp.path().join("broken.klm");
     std::fs::write(&broken, bytes).unwrap();
     let got = kernlake()
-        .args(["score", "-q", broken.to_str().unwrap(), tmp.path().join("lake").to_str().unwrap()])
+        .args([
+            "score",
+            "-q",
+            broken.to_str().unwrap(),
+            tmp.path().join("lake").to_str().unwrap(),
+        ])
         .args(["--out", tmp.path().join("o9").to_str().unwrap()])
         .output()
         .unwrap();

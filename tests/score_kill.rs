@@ -15,7 +15,9 @@ use ndarray::s;
 /// Every file below `dir`, relative paths sorted, with hidden (temporary) names apart.
 fn listing(dir: &Path) -> (Vec<PathBuf>, Vec<PathBuf>) {
     fn walk(root: &Path, dir: &Path, files: &mut Vec<PathBuf>, temps: &mut Vec<PathBuf>) {
-        let Ok(rd) = std::fs::read_dir(dir) else { return };
+        let Ok(rd) = std::fs::read_dir(dir) else {
+            return;
+        };
         for e in rd {
             let p = e.unwrap().path();
             if p.is_dir() {
@@ -36,10 +38,22 @@ fn listing(dir: &Path) -> (Vec<PathBuf>, Vec<PathBuf>) {
 
 fn score_cmd(model: &Path, lake: &Path, out: &Path) -> Command {
     let mut c = Command::new(env!("CARGO_BIN_EXE_kernlake"));
-    c.args(["score", "-q", model.to_str().unwrap(), lake.to_str().unwrap()])
-        .args(["--out", out.to_str().unwrap(), "--threads", "2", "--batch-rows", "2000"])
-        .stdout(Stdio::null())
-        .stderr(Stdio::null());
+    c.args([
+        "score",
+        "-q",
+        model.to_str().unwrap(),
+        lake.to_str().unwrap(),
+    ])
+    .args([
+        "--out",
+        out.to_str().unwrap(),
+        "--threads",
+        "2",
+        "--batch-rows",
+        "2000",
+    ])
+    .stdout(Stdio::null())
+    .stderr(Stdio::null());
     c
 }
 
@@ -71,7 +85,10 @@ fn killed_runs_leave_no_partial_outputs_and_rerun_matches() {
 
     let reference = tmp.path().join("reference");
     let t0 = std::time::Instant::now();
-    assert!(score_cmd(&mpath, &lake, &reference).status().unwrap().success());
+    assert!(score_cmd(&mpath, &lake, &reference)
+        .status()
+        .unwrap()
+        .success());
     eprintln!("uninterrupted run: {} ms", t0.elapsed().as_millis());
     let (ref_files, ref_temps) = listing(&reference);
     assert_eq!(ref_files.len(), 16);
@@ -86,7 +103,11 @@ fn killed_runs_leave_no_partial_outputs_and_rerun_matches() {
         child.wait().unwrap();
         // Whatever sits under a final name is complete and equal to the reference.
         let (files, temps) = listing(&out);
-        eprintln!("killed at {delay_ms} ms: {} outputs, {} temporary files", files.len(), temps.len());
+        eprintln!(
+            "killed at {delay_ms} ms: {} outputs, {} temporary files",
+            files.len(),
+            temps.len()
+        );
         if files.len() < 16 && !temps.is_empty() {
             part_way += 1;
         }
@@ -105,6 +126,10 @@ fn killed_runs_leave_no_partial_outputs_and_rerun_matches() {
     assert_eq!(files, ref_files);
     assert!(temps.is_empty(), "temporary files left: {temps:?}");
     for f in &files {
-        assert_eq!(std::fs::read(out.join(f)).unwrap(), std::fs::read(reference.join(f)).unwrap(), "{f:?}");
+        assert_eq!(
+            std::fs::read(out.join(f)).unwrap(),
+            std::fs::read(reference.join(f)).unwrap(),
+            "{f:?}"
+        );
     }
 }

@@ -128,7 +128,9 @@ impl Plan {
                 }
                 v
             }
-            None => (0..schema.fields().len()).filter(|&i| !is_input(i)).collect(),
+            None => (0..schema.fields().len())
+                .filter(|&i| !is_input(i))
+                .collect(),
         };
         if opts.with_inputs {
             for inp in &inputs {
@@ -146,10 +148,7 @@ impl Plan {
                 "the model stores no coverage landmarks, so score with coverage switched off",
             ));
         }
-        let mut fields: Vec<Field> = copied
-            .iter()
-            .map(|&i| schema.field(i).clone())
-            .collect();
+        let mut fields: Vec<Field> = copied.iter().map(|&i| schema.field(i).clone()).collect();
         let mut added = vec![opts.prediction_name.clone()];
         if coverage {
             added.push(COVERAGE_COLUMN.to_string());
@@ -198,7 +197,11 @@ impl Plan {
     /// The same plan for batches holding only the columns `needed` (sorted, from
     /// [`Plan::needed`]), in that order.
     pub(crate) fn projected(&self, needed: &[usize]) -> Plan {
-        let pos = |i: usize| needed.binary_search(&i).expect("column is in the projection");
+        let pos = |i: usize| {
+            needed
+                .binary_search(&i)
+                .expect("column is in the projection")
+        };
         Plan {
             inputs: self
                 .inputs
@@ -237,7 +240,11 @@ pub(crate) fn score_planned(
         match *inp {
             Input::Column(i) => {
                 let cast = arrow_cast::cast(batch.column(i), &DataType::Float64).map_err(|e| {
-                    column_error(path, &names[j], format!("could not be read as numbers ({e})"))
+                    column_error(
+                        path,
+                        &names[j],
+                        format!("could not be read as numbers ({e})"),
+                    )
                 })?;
                 let f = cast
                     .as_any()
@@ -276,8 +283,7 @@ pub(crate) fn score_planned(
             path: path.to_path_buf(),
             row: first_row + r as u64 + 1,
             column: names[j].clone(),
-            message: "is missing (null, NaN or infinite) and the missing-row policy is fail"
-                .into(),
+            message: "is missing (null, NaN or infinite) and the missing-row policy is fail".into(),
         });
     }
     // Compact the usable rows into x (rows × inputs, contract order).
@@ -304,7 +310,10 @@ pub(crate) fn score_planned(
         let mut v = Array1::<f64>::zeros(m);
         x.axis_chunks_iter(Axis(0), COVERAGE_CHUNK)
             .into_par_iter()
-            .zip(v.axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK).into_par_iter())
+            .zip(
+                v.axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK)
+                    .into_par_iter(),
+            )
             .for_each(|(xc, oc)| {
                 let mut xs = xc.to_owned();
                 model.scaler.apply(xs.view_mut());

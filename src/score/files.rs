@@ -39,7 +39,11 @@ pub(crate) fn open_checked(
     model: &Model,
     file: &SourceFile,
     opts: &ScoreOptions,
-) -> Result<(parquet::arrow::arrow_reader::ParquetRecordBatchReader, Plan, u64)> {
+) -> Result<(
+    parquet::arrow::arrow_reader::ParquetRecordBatchReader,
+    Plan,
+    u64,
+)> {
     if file.format != Format::Parquet {
         return Err(Error::File {
             path: file.path.clone(),
@@ -47,7 +51,8 @@ pub(crate) fn open_checked(
         });
     }
     let f = File::open(&file.path).map_err(|e| Error::io(&file.path, e))?;
-    let builder = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(&file.path, e))?;
+    let builder =
+        ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(&file.path, e))?;
     let plan = Plan::new(model, builder.schema(), &file.partitions, opts, &file.path)?;
     let rows = u64::try_from(builder.metadata().file_metadata().num_rows()).unwrap_or(0);
     let needed = plan.needed();

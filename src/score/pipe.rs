@@ -46,7 +46,8 @@ pub fn score_stream<R: Read, W: Write>(
     let path = Path::new(STDIN);
     let reader = StreamReader::try_new_buffered(input, None).map_err(|e| stream_error(STDIN, e))?;
     let plan = Plan::new(model, reader.schema().as_ref(), &[], opts, path)?;
-    let mut writer = StreamWriter::try_new(output, plan.schema()).map_err(|e| stream_error("<output>", e))?;
+    let mut writer =
+        StreamWriter::try_new(output, plan.schema()).map_err(|e| stream_error("<output>", e))?;
     let mut summary = ScoreSummary {
         files: 1,
         ..ScoreSummary::default()
@@ -59,7 +60,9 @@ pub fn score_stream<R: Read, W: Write>(
             let part = batch.slice(offset, len);
             let first = summary.rows_read;
             let scored = pool.install(|| score_planned(model, &plan, &part, opts, path, first))?;
-            writer.write(&scored.batch).map_err(|e| stream_error("<output>", e))?;
+            writer
+                .write(&scored.batch)
+                .map_err(|e| stream_error("<output>", e))?;
             summary.rows_read += len as u64;
             summary.rows_written += scored.batch.num_rows() as u64;
             summary.rows_missing += scored.missing;
@@ -109,17 +112,22 @@ pub fn score_files_to_stream<W: Write>(
             Some(_) => {}
             None => {
                 let out = output.take().expect("the output is used once");
-                let w = StreamWriter::try_new(out, plan.schema()).map_err(|e| stream_error("<output>", e))?;
+                let w = StreamWriter::try_new(out, plan.schema())
+                    .map_err(|e| stream_error("<output>", e))?;
                 writer = Some(w);
                 first_schema = Some(plan.schema().clone());
             }
         }
-        let w = writer.as_mut().expect("the writer starts with the first file");
+        let w = writer
+            .as_mut()
+            .expect("the writer starts with the first file");
         let mut read = 0u64;
         for batch in reader {
             let batch = batch.map_err(|e| super::files::unreadable(&file.path, e))?;
-            let scored = pool.install(|| score_planned(model, &plan, &batch, opts, &file.path, read))?;
-            w.write(&scored.batch).map_err(|e| stream_error("<output>", e))?;
+            let scored =
+                pool.install(|| score_planned(model, &plan, &batch, opts, &file.path, read))?;
+            w.write(&scored.batch)
+                .map_err(|e| stream_error("<output>", e))?;
             read += batch.num_rows() as u64;
             summary.rows_written += scored.batch.num_rows() as u64;
             summary.rows_missing += scored.missing;

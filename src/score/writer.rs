@@ -42,7 +42,12 @@ pub(crate) struct Stamp {
 
 impl Stamp {
     /// The stamp expected for `input` (output rows not yet known, 0).
-    pub(crate) fn for_input(input: &Path, rows: u64, model_crc32: &str, settings: &str) -> Result<Stamp> {
+    pub(crate) fn for_input(
+        input: &Path,
+        rows: u64,
+        model_crc32: &str,
+        settings: &str,
+    ) -> Result<Stamp> {
         let meta = std::fs::metadata(input).map_err(|e| Error::io(input, e))?;
         let modified = meta
             .modified()
@@ -97,7 +102,11 @@ pub(crate) struct OutputFile {
 impl OutputFile {
     /// Starts `path` (creating its folder) with `schema`; row groups hold at most
     /// `row_group_rows` rows so memory stays bounded.
-    pub(crate) fn create(path: &Path, schema: arrow_schema::SchemaRef, row_group_rows: usize) -> Result<OutputFile> {
+    pub(crate) fn create(
+        path: &Path,
+        schema: arrow_schema::SchemaRef,
+        row_group_rows: usize,
+    ) -> Result<OutputFile> {
         if let Some(dir) = path.parent() {
             std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
         }
@@ -106,7 +115,8 @@ impl OutputFile {
             .set_compression(Compression::SNAPPY)
             .set_max_row_group_row_count(Some(row_group_rows.max(1)))
             .build();
-        let writer = ArrowWriter::try_new(atomic, schema, Some(props)).map_err(|e| write_error(path, e))?;
+        let writer =
+            ArrowWriter::try_new(atomic, schema, Some(props)).map_err(|e| write_error(path, e))?;
         Ok(OutputFile { writer, rows: 0 })
     }
 
@@ -168,7 +178,10 @@ pub(crate) fn common_root(files: &[PathBuf]) -> PathBuf {
         None => return PathBuf::from("/"),
     };
     for f in &files[1..] {
-        let parent: Vec<Component> = f.parent().map(|p| p.components().collect()).unwrap_or_default();
+        let parent: Vec<Component> = f
+            .parent()
+            .map(|p| p.components().collect())
+            .unwrap_or_default();
         let same = root.iter().zip(&parent).take_while(|(a, b)| a == b).count();
         root.truncate(same);
     }

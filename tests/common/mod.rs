@@ -20,7 +20,12 @@ pub fn data_dir() -> PathBuf {
 pub fn ccpp() -> (Vec<String>, Array2<f64>, Array1<f64>) {
     let text = std::fs::read_to_string(data_dir().join("ccpp_folds5x2_sheet1.csv")).unwrap();
     let mut lines = text.lines();
-    let header: Vec<String> = lines.next().unwrap().split(',').map(str::to_string).collect();
+    let header: Vec<String> = lines
+        .next()
+        .unwrap()
+        .split(',')
+        .map(str::to_string)
+        .collect();
     let rows: Vec<Vec<f64>> = lines
         .filter(|l| !l.trim().is_empty())
         .map(|l| l.split(',').map(|v| v.trim().parse().unwrap()).collect())
@@ -73,14 +78,22 @@ pub fn write_parquet(path: &Path, names: &[String], cols: &[Vec<f64>]) {
 
 /// Writes rows `x`, `y` as `parts` Parquet files of consecutive rows under `dir`
 /// (`part-00.parquet`, …), columns named `names` (inputs then target).
-pub fn write_parts(dir: &Path, names: &[String], x: &Array2<f64>, y: &Array1<f64>, parts: usize) -> Vec<PathBuf> {
+pub fn write_parts(
+    dir: &Path,
+    names: &[String],
+    x: &Array2<f64>,
+    y: &Array1<f64>,
+    parts: usize,
+) -> Vec<PathBuf> {
     let n = x.nrows();
     let per = n.div_ceil(parts);
     let mut out = Vec::new();
     for p in 0..parts {
         let lo = p * per;
         let hi = ((p + 1) * per).min(n);
-        let mut cols: Vec<Vec<f64>> = (0..x.ncols()).map(|j| x.column(j).slice(ndarray::s![lo..hi]).to_vec()).collect();
+        let mut cols: Vec<Vec<f64>> = (0..x.ncols())
+            .map(|j| x.column(j).slice(ndarray::s![lo..hi]).to_vec())
+            .collect();
         cols.push(y.slice(ndarray::s![lo..hi]).to_vec());
         let path = dir.join(format!("part-{p:02}.parquet"));
         write_parquet(&path, names, &cols);
