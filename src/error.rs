@@ -103,6 +103,12 @@ pub enum Error {
         /// Zero-based row in the array.
         row: usize,
     },
+
+    // --- score: batch scoring ---
+    /// Scoring of a file stopped part-way because another file failed (its temporary
+    /// output was removed; the other file's error is the one reported).
+    #[error("scoring stopped because another file failed")]
+    ScoreStopped,
 }
 
 impl Error {

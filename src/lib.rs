@@ -58,6 +58,7 @@ pub mod model;
 pub mod modelfile;
 pub mod report;
 pub mod scale;
+pub mod score;
 pub mod solver;
 pub mod tune;
 

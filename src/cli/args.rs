@@ -38,6 +38,9 @@ pub enum Command {
     /// Generate the cold-store demo data, fit on all months but the last, and report.
     #[command(after_help = super::SAFETY)]
     Demo(DemoArgs),
+    /// Score Parquet files with a model: one output file per input, restartable.
+    #[command(after_help = super::SAFETY)]
+    Score(super::score::ScoreArgs),
 }
 
 /// Kernel families on the command line.

@@ -1,0 +1,177 @@
+//! `kernlake score`: flags, wiring, progress bar and the closing summary; the work is
+//! done by [`crate::score`].
+
+use std::path::PathBuf;
+use std::sync::atomic::{AtomicU64, Ordering};
+
+use clap::{Args, ValueEnum};
+use indicatif::{ProgressBar, ProgressStyle};
+
+use crate::data::discover;
+use crate::error::{Error, Result};
+use crate::model::Model;
+use crate::score::{
+    score_files, score_files_to_stream, score_stream, MissingRows, ScoreObserver, ScoreOptions,
+    ScoreSummary,
+};
+
+/// `kernlake score`.
+#[derive(Debug, Args)]
+pub struct ScoreArgs {
+    /// The model file.
+    #[arg(value_name = "MODEL")]
+    pub model: PathBuf,
+    /// Parquet files, folders (searched recursively) or glob patterns; `-` reads an
+    /// Arrow IPC stream from standard input.
+    #[arg(required = true, value_name = "SOURCE")]
+    pub sources: Vec<String>,
+    /// Output folder (one Parquet file per input, mirroring the input folders), or `-`
+    /// for an Arrow IPC stream on standard output.
+    #[arg(long, short = 'o', value_name = "DIR")]
+    pub out: String,
+    /// Input columns copied to the output, comma separated (default: every column that
+    /// is not a model input).
+    #[arg(long, value_delimiter = ',', value_name = "COLS")]
+    pub keep: Option<Vec<String>>,
+    /// Name of the prediction column.
+    #[arg(long, default_value = "prediction", value_name = "COL")]
+    pub name: String,
+    /// Also copy the model's input columns to the output.
+    #[arg(long)]
+    pub with_inputs: bool,
+    /// Leave out the coverage and covered columns.
+    #[arg(long)]
+    pub no_coverage: bool,
+    /// What to do with a row whose inputs hold a null, NaN or infinity.
+    #[arg(long, value_enum, default_value = "null")]
+    pub missing: MissingArg,
+    /// Score the other files after one fails, and end with a list of failures.
+    #[arg(long)]
+    pub keep_going: bool,
+    /// Rewrite outputs that are already complete.
+    #[arg(long)]
+    pub overwrite: bool,
+    /// Threads (0 = all cores).
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+    /// Rows per batch (memory is about threads × batch rows × columns × 8 bytes).
+    #[arg(long, default_value_t = 65_536)]
+    pub batch_rows: usize,
+}
+
+/// Missing-input policies on the command line.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum MissingArg {
+    /// Keep the row with a null prediction.
+    Null,
+    /// Leave the row out.
+    Skip,
+    /// Stop at the first one, naming file, row and column.
+    Fail,
+}
+
+/// The progress bar: rows, rows/s, ETA, and files in the message.
+struct Bar {
+    bar: ProgressBar,
+    files: usize,
+    done: AtomicU64,
+}
+
+impl ScoreObserver for Bar {
+    fn rows_done(&self, rows: u64) {
+        self.bar.inc(rows);
+    }
+    fn file_done(&self) {
+        let d = self.done.fetch_add(1, Ordering::Relaxed) + 1;
+        self.bar.set_message(format!("files {d}/{}", self.files));
+    }
+}
+
+fn bar(quiet: bool, rows: u64, files: usize) -> Bar {
+    let bar = if quiet {
+        ProgressBar::hidden()
+    } else {
+        let b = ProgressBar::new(rows);
+        b.set_style(
+            ProgressStyle::with_template(
+                "     score [{bar:32}] {human_pos}/{human_len} rows  {per_sec}  eta {eta}  {msg}",
+            )
+            .expect("valid template")
+            .progress_chars("=> "),
+        );
+        b.set_message(format!("files 0/{files}"));
+        b
+    };
+    Bar {
+        bar,
+        files,
+        done: AtomicU64::new(0),
+    }
+}
+
+fn print_summary(s: &ScoreSummary) {
+    eprintln!(
+        "kernlake: {} file(s): {} scored, {} already complete, {} failed; {} rows read, {} written, {} with missing inputs, {} out of coverage; {:.1}s",
+        s.files,
+        s.files_scored,
+        s.files_skipped,
+        s.failures.len(),
+        s.rows_read,
+        s.rows_written,
+        s.rows_missing,
+        s.rows_uncovered,
+        s.seconds
+    );
+    for f in &s.failures {
+        eprintln!("  failed: {}: {}", f.path.display(), f.message);
+    }
+}
+
+/// Runs `kernlake score`; exits 1 when files failed under `--keep-going`.
+pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
+    let model = Model::load(&a.model)?;
+    let opts = ScoreOptions {
+        out_dir: PathBuf::from(&a.out),
+        prediction_name: a.name.clone(),
+        keep: a.keep.clone(),
+        with_inputs: a.with_inputs,
+        coverage: !a.no_coverage,
+        missing: match a.missing {
+            MissingArg::Null => MissingRows::Null,
+            MissingArg::Skip => MissingRows::Skip,
+            MissingArg::Fail => MissingRows::Fail,
+        },
+        batch_rows: a.batch_rows,
+        threads: a.threads,
+        overwrite: a.overwrite,
+        keep_going: a.keep_going,
+    };
+    let to_stdout = a.out == "-";
+    let summary = if a.sources.iter().any(|s| s == "-") {
+        if a.sources.len() != 1 || !to_stdout {
+            return Err(Error::invalid(
+                "sources",
+                "standard input ('-') is scored alone and only into standard output (--out -)",
+            ));
+        }
+        let stdin = std::io::stdin().lock();
+        let stdout = std::io::BufWriter::new(std::io::stdout().lock());
+        score_stream(&model, stdin, stdout, &opts)?
+    } else {
+        let files = discover(&a.sources)?;
+        let rows: u64 = files.iter().filter_map(|f| f.rows).sum();
+        let progress = bar(quiet || to_stdout, rows, files.len());
+        let s = if to_stdout {
+            let stdout = std::io::BufWriter::new(std::io::stdout().lock());
+            score_files_to_stream(&model, &files, &opts, stdout, &progress)?
+        } else {
+            score_files(&model, &files, &opts, &progress)?
+        };
+        progress.bar.finish_and_clear();
+        s
+    };
+    if !quiet {
+        print_summary(&summary);
+    }
+    Ok(if summary.failures.is_empty() { 0 } else { 1 })
+}

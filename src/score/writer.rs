@@ -1,0 +1,276 @@
+//! Output files: where each goes (mirroring the inputs' folders), the stamp that proves
+//! an output complete, the atomic Parquet write, and removal of stale temporary files.
+
+use std::fs::File;
+use std::path::{Component, Path, PathBuf};
+
+use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+use parquet::arrow::ArrowWriter;
+use parquet::basic::Compression;
+use parquet::file::metadata::KeyValue;
+use parquet::file::properties::WriterProperties;
+use serde::{Deserialize, Serialize};
+
+use crate::atomic::{is_temp_name, AtomicFile};
+use crate::error::{Error, Result};
+
+/// Key of the stamp in an output file's Parquet key-value metadata.
+pub const STAMP_KEY: &str = "kernlake.score";
+
+/// Version of the stamp's layout.
+const STAMP_VERSION: u32 = 1;
+
+/// What an output file records about how it was made; a rerun skips an output whose
+/// stamp matches the input file, model and settings at hand and whose row count matches.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub(crate) struct Stamp {
+    /// Layout version of the stamp.
+    pub version: u32,
+    /// Input file size in bytes.
+    pub input_bytes: u64,
+    /// Input modification time, nanoseconds since the Unix epoch.
+    pub input_modified_ns: u64,
+    /// Rows in the input file (from its footer).
+    pub input_rows: u64,
+    /// CRC-32 of the model's encoded bytes, 8 hex digits.
+    pub model_crc32: String,
+    /// The output-shaping settings (prediction name, kept columns, policies).
+    pub settings: String,
+    /// Rows written; filled in when the output is complete.
+    pub output_rows: u64,
+}
+
+impl Stamp {
+    /// The stamp expected for `input` (output rows not yet known, 0).
+    pub(crate) fn for_input(
+        input: &Path,
+        rows: u64,
+        model_crc32: &str,
+        settings: &str,
+    ) -> Result<Stamp> {
+        let meta = std::fs::metadata(input).map_err(|e| Error::io(input, e))?;
+        let modified = meta
+            .modified()
+            .ok()
+            .and_then(|t| t.duration_since(std::time::UNIX_EPOCH).ok())
+            .map(|d| d.as_nanos() as u64)
+            .unwrap_or(0);
+        Ok(Stamp {
+            version: STAMP_VERSION,
+            input_bytes: meta.len(),
+            input_modified_ns: modified,
+            input_rows: rows,
+            model_crc32: model_crc32.to_string(),
+            settings: settings.to_string(),
+            output_rows: 0,
+        })
+    }
+}
+
+/// True when `output` exists, its Parquet footer reads, its stamp matches `expected`
+/// (all fields but the output row count) and its row count equals the stamped one.
+pub(crate) fn is_complete(output: &Path, expected: &Stamp) -> bool {
+    let Ok(file) = File::open(output) else {
+        return false;
+    };
+    let Ok(builder) = ParquetRecordBatchReaderBuilder::try_new(file) else {
+        return false;
+    };
+    let meta = builder.metadata().file_metadata();
+    let Some(stamp) = meta
+        .key_value_metadata()
+        .and_then(|kv| kv.iter().find(|k| k.key == STAMP_KEY))
+        .and_then(|k| k.value.as_deref())
+        .and_then(|v| serde_json::from_str::<Stamp>(v).ok())
+    else {
+        return false;
+    };
+    let rows = u64::try_from(meta.num_rows()).unwrap_or(u64::MAX);
+    stamp.output_rows == rows
+        && Stamp {
+            output_rows: 0,
+            ..stamp
+        } == *expected
+}
+
+/// An output Parquet file being written under a temporary name.
+pub(crate) struct OutputFile {
+    writer: ArrowWriter<AtomicFile>,
+    rows: u64,
+}
+
+impl OutputFile {
+    /// Starts `path` (creating its folder) with `schema`; row groups hold at most
+    /// `row_group_rows` rows so memory stays bounded.
+    pub(crate) fn create(
+        path: &Path,
+        schema: arrow_schema::SchemaRef,
+        row_group_rows: usize,
+    ) -> Result<OutputFile> {
+        if let Some(dir) = path.parent() {
+            std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+        }
+        let atomic = AtomicFile::create(path)?;
+        let props = WriterProperties::builder()
+            .set_compression(Compression::SNAPPY)
+            .set_max_row_group_row_count(Some(row_group_rows.max(1)))
+            .build();
+        let writer =
+            ArrowWriter::try_new(atomic, schema, Some(props)).map_err(|e| write_error(path, e))?;
+        Ok(OutputFile { writer, rows: 0 })
+    }
+
+    /// Appends one batch.
+    pub(crate) fn write(&mut self, batch: &arrow_array::RecordBatch, path: &Path) -> Result<()> {
+        self.writer.write(batch).map_err(|e| write_error(path, e))?;
+        self.rows += batch.num_rows() as u64;
+        Ok(())
+    }
+
+    /// Writes the stamp (with the row count) and the footer, then renames the file onto
+    /// its final name. Returns the rows written.
+    pub(crate) fn commit(mut self, mut stamp: Stamp, path: &Path) -> Result<u64> {
+        stamp.output_rows = self.rows;
+        let json = serde_json::to_string(&stamp).expect("a stamp encodes as JSON");
+        self.writer
+            .append_key_value_metadata(KeyValue::new(STAMP_KEY.to_string(), json));
+        let atomic = self.writer.into_inner().map_err(|e| write_error(path, e))?;
+        atomic.commit()?;
+        Ok(self.rows)
+    }
+}
+
+fn write_error(path: &Path, e: impl std::fmt::Display) -> Error {
+    Error::File {
+        path: path.to_path_buf(),
+        message: format!("could not be written as Parquet ({e})"),
+    }
+}
+
+/// An absolute, normalised form of `path` that need not exist yet: the nearest existing
+/// ancestor is canonicalised (symbolic links resolved) and the rest appended.
+pub(crate) fn absolute(path: &Path) -> Result<PathBuf> {
+    let abs = std::path::absolute(path).map_err(|e| Error::io(path, e))?;
+    let mut rest = Vec::new();
+    let mut cur = abs.as_path();
+    loop {
+        if let Ok(c) = cur.canonicalize() {
+            let mut out = c;
+            for part in rest.iter().rev() {
+                out.push(part);
+            }
+            return Ok(out);
+        }
+        match (cur.parent(), cur.file_name()) {
+            (Some(p), Some(name)) => {
+                rest.push(name.to_os_string());
+                cur = p;
+            }
+            _ => return Ok(abs),
+        }
+    }
+}
+
+/// The deepest folder holding every one of `files` (absolute paths).
+pub(crate) fn common_root(files: &[PathBuf]) -> PathBuf {
+    let mut root: Vec<Component> = match files.first().and_then(|f| f.parent()) {
+        Some(p) => p.components().collect(),
+        None => return PathBuf::from("/"),
+    };
+    for f in &files[1..] {
+        let parent: Vec<Component> = f
+            .parent()
+            .map(|p| p.components().collect())
+            .unwrap_or_default();
+        let same = root.iter().zip(&parent).take_while(|(a, b)| a == b).count();
+        root.truncate(same);
+    }
+    root.iter().collect()
+}
+
+/// Output paths for `inputs` under `out_dir`: each input's path relative to the inputs'
+/// common folder, below `out_dir`. Creates `out_dir`.
+///
+/// Errors: `out_dir` inside that common folder (one sentence naming both); `out_dir`
+/// not creatable or not writable (naming it).
+pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<PathBuf>> {
+    let mut abs = Vec::with_capacity(inputs.len());
+    for p in inputs {
+        abs.push(p.canonicalize().map_err(|e| Error::io(p, e))?);
+    }
+    let root = common_root(&abs);
+    let out = absolute(out_dir)?;
+    if out.starts_with(&root) {
+        return Err(Error::invalid(
+            "output folder",
+            format!(
+                "{} lies inside the input folder {}; choose a folder outside it",
+                out_dir.display(),
+                root.display()
+            ),
+        ));
+    }
+    std::fs::create_dir_all(out_dir).map_err(|e| Error::io(out_dir, e))?;
+    // Probe that the folder takes files (create then drop a temporary file).
+    drop(AtomicFile::create(&out_dir.join("write-probe"))?);
+    Ok(abs
+        .iter()
+        .map(|p| out_dir.join(p.strip_prefix(&root).expect("root holds every input")))
+        .collect())
+}
+
+/// Removes temporary files left under `dir` (recursively) by killed runs: names that
+/// [`is_temp_name`] recognises whose process no longer runs. Returns how many were
+/// removed.
+pub(crate) fn remove_stale_temps(dir: &Path) -> Result<usize> {
+    let mut removed = 0;
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return Ok(0);
+    };
+    for entry in entries {
+        let entry = entry.map_err(|e| Error::io(dir, e))?;
+        let path = entry.path();
+        let kind = entry.file_type().map_err(|e| Error::io(&path, e))?;
+        if kind.is_dir() {
+            removed += remove_stale_temps(&path)?;
+            continue;
+        }
+        let name = entry.file_name();
+        let Some(name) = name.to_str() else { continue };
+        if is_temp_name(name) && !owner_alive(name) {
+            std::fs::remove_file(&path).map_err(|e| Error::io(&path, e))?;
+            removed += 1;
+        }
+    }
+    Ok(removed)
+}
+
+/// Whether the process that named a temporary file still runs (Linux `/proc`; elsewhere
+/// only our own process counts as alive).
+fn owner_alive(temp_name: &str) -> bool {
+    let pid = temp_name
+        .rsplit_once(".part-")
+        .and_then(|(_, s)| s.split_once('-'))
+        .and_then(|(p, _)| p.parse::<u32>().ok());
+    match pid {
+        Some(p) if p == std::process::id() => true,
+        Some(p) => Path::new("/proc/self").exists() && Path::new(&format!("/proc/{p}")).exists(),
+        None => false,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn common_root_of_paths() {
+        // common practice: the deepest shared folder
+        let v = vec![
+            PathBuf::from("/a/b/site=1/x.parquet"),
+            PathBuf::from("/a/b/site=2/m=3/y.parquet"),
+        ];
+        assert_eq!(common_root(&v), PathBuf::from("/a/b"));
+        assert_eq!(common_root(&v[..1]), PathBuf::from("/a/b/site=1"));
+    }
+}
