@@ -37,6 +37,9 @@ pub enum Command {
     /// Generate the cold-store demo data, fit on all months but the last, and report.
     #[command(after_help = super::SAFETY)]
     Demo(DemoArgs),
+    /// Compare the exact kernel machine with approximate ones (or a fitted model) on a
+    /// sample: accuracy, agreement and kernel error against D.
+    Audit(super::audit::AuditArgs),
 }
 
 /// Kernel families on the command line.
