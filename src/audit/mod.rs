@@ -82,7 +82,10 @@ pub struct AuditOptions {
     pub cache_bytes: usize,
     /// Stopping tolerance of SMO on the maximal violation, in standardized target units.
     pub smo_tol: f64,
-    /// Stopping tolerance of the linear solver on the relative duality gap.
+    /// Stopping tolerance of the linear solver on the relative duality gap. With the L1
+    /// loss and a large C, dual coordinate descent converges slowly (the report shows
+    /// whether the gap was reached); the agreement then includes the remaining
+    /// optimisation error, as it would for a model fitted with the same settings.
     pub dcd_tol: f64,
     /// Most passes of the linear solver over the fit part.
     pub dcd_epochs: usize,
@@ -96,8 +99,9 @@ pub struct AuditOptions {
 
 impl Default for AuditOptions {
     /// Gaussian kernel, data-driven gamma/C/epsilon, all maps, D = 256…4096, agree 0.02,
-    /// 80/20 split, 1 GiB cache, SMO tol 1e-3, DCD gap 1e-4 within 400 epochs, 500 rows
-    /// for the kernel error, seed 0.
+    /// 80/20 split, 1 GiB cache, SMO tol 1e-3, the linear solver's own defaults (relative
+    /// gap 1e-3 within 100 epochs, as `kernlake fit`), 500 rows for the kernel error,
+    /// seed 0.
     fn default() -> Self {
         AuditOptions {
             kernel: KernelKind::Gaussian,
@@ -111,8 +115,8 @@ impl Default for AuditOptions {
             split: 0.8,
             cache_bytes: 1 << 30,
             smo_tol: 1e-3,
-            dcd_tol: 1e-4,
-            dcd_epochs: 400,
+            dcd_tol: 1e-3,
+            dcd_epochs: 100,
             kernel_rows: 500,
             seed: 0,
             threads: 0,
