@@ -5,7 +5,7 @@ mod common;
 use common::{ccpp, write_parts};
 use kernlake::audit::plot::render_svg;
 use kernlake::audit::{audit, map_name, AuditOptions, AuditReport};
-use kernlake::features::{Landmarks, MapKind, NystromMap, FeatureMap};
+use kernlake::features::{FeatureMap, Landmarks, MapKind, NystromMap};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
 use kernlake::solver::dcd::{self, DcdSettings, Loss};
@@ -16,7 +16,10 @@ use ndarray::{s, Array1, Array2, Axis};
 /// CCPP rows `lo..hi` (dataset: Tüfekci 2014).
 fn ccpp_rows(lo: usize, hi: usize) -> (Array2<f64>, Array1<f64>) {
     let (_, x, y) = ccpp();
-    (x.slice(s![lo..hi, ..]).to_owned(), y.slice(s![lo..hi]).to_owned())
+    (
+        x.slice(s![lo..hi, ..]).to_owned(),
+        y.slice(s![lo..hi]).to_owned(),
+    )
 }
 
 fn sd(y: &Array1<f64>) -> f64 {
@@ -69,7 +72,12 @@ fn nystrom_on_every_row_with_l1_dcd_matches_smo() {
         xf,
         yf,
         kernel,
-        &SmoSettings { c, epsilon: eps, tol: 1e-8, ..SmoSettings::default() },
+        &SmoSettings {
+            c,
+            epsilon: eps,
+            tol: 1e-8,
+            ..SmoSettings::default()
+        },
     )
     .unwrap();
     assert!(exact.report.converged);
@@ -81,7 +89,10 @@ fn nystrom_on_every_row_with_l1_dcd_matches_smo() {
     );
     // published: Williams & Seeger 2001 (exact reproduction) + Ho & Lin 2012; tolerance
     // reasoned above (bias nearly free at s = 30).
-    assert!(diff <= 1e-3, "Nyström+DCD and SMO differ by {diff:.3e} target sd");
+    assert!(
+        diff <= 1e-3,
+        "Nyström+DCD and SMO differ by {diff:.3e} target sd"
+    );
 }
 
 /// CCPP (dataset: Tüfekci 2014): exact Gaussian-kernel SVR on a 5,000-row fit part, and
@@ -106,7 +117,11 @@ fn ccpp_exact_accuracy_and_agreement_improves_with_d() {
     // the paper's 5×2 CV, from memory); 3.95 MW leaves room for the epsilon-SVR loss and
     // default (not tuned) gamma, C and epsilon.
     assert!(r.exact.converged);
-    assert!(r.exact.check.rmse <= 3.95, "exact RMSE {} MW", r.exact.check.rmse);
+    assert!(
+        r.exact.check.rmse <= 3.95,
+        "exact RMSE {} MW",
+        r.exact.check.rmse
+    );
     // Slack for "monotone within noise": each D is one seeded draw, so a doubling of D
     // (expected error factor 1/√2, published: Rahimi & Recht 2007) may be undone by the
     // draw's spread; allow a 15% rise. Below 0.01 sd the figures are set by the solvers'
@@ -114,19 +129,45 @@ fn ccpp_exact_accuracy_and_agreement_improves_with_d() {
     // and DCD's bias is penalised), not by D, so rises within 0.01 sd are also allowed.
     let floor = 0.01;
     for m in [MapKind::Fourier, MapKind::Nystrom] {
-        let a: Vec<f64> = r.rows.iter().filter(|row| row.map == m).map(|row| row.agreement).collect();
+        let a: Vec<f64> = r
+            .rows
+            .iter()
+            .filter(|row| row.map == m)
+            .map(|row| row.agreement)
+            .collect();
         for w in a.windows(2) {
-            assert!(w[1] <= 1.15 * w[0] + floor, "{}: agreement rose from {} to {}", map_name(m), w[0], w[1]);
+            assert!(
+                w[1] <= 1.15 * w[0] + floor,
+                "{}: agreement rose from {} to {}",
+                map_name(m),
+                w[0],
+                w[1]
+            );
         }
         assert!(a[2] <= a[0] + floor, "{}: agreement {:?}", map_name(m), a);
         // published: Rahimi & Recht 2007, Drineas & Mahoney 2005: the kernel matrix error
         // itself falls with D (no solver involved)
-        let k: Vec<f64> = r.rows.iter().filter(|row| row.map == m).map(|row| row.kernel_error).collect();
-        assert!(k[2] < k[1] && k[1] < k[0], "{}: kernel error {:?}", map_name(m), k);
+        let k: Vec<f64> = r
+            .rows
+            .iter()
+            .filter(|row| row.map == m)
+            .map(|row| row.kernel_error)
+            .collect();
+        assert!(
+            k[2] < k[1] && k[1] < k[0],
+            "{}: kernel error {:?}",
+            map_name(m),
+            k
+        );
     }
     // Fourier agreement is well above the floor at D = 256 (≈ 0.05 sd), so there it must
     // fall clearly over 4× more features (expected factor 1/2; accept 0.8).
-    let f: Vec<f64> = r.rows.iter().filter(|row| row.map == MapKind::Fourier).map(|row| row.agreement).collect();
+    let f: Vec<f64> = r
+        .rows
+        .iter()
+        .filter(|row| row.map == MapKind::Fourier)
+        .map(|row| row.agreement)
+        .collect();
     assert!(f[2] <= 0.8 * f[0], "fourier agreement {f:?}");
 }
 
@@ -148,7 +189,10 @@ fn assert_well_formed(text: &str) {
     let mut rest = text;
     while let Some(open) = rest.find('<') {
         let between = &rest[..open];
-        assert!(!between.contains('&') && !between.contains('>'), "stray text: {between}");
+        assert!(
+            !between.contains('&') && !between.contains('>'),
+            "stray text: {between}"
+        );
         let close = rest[open..].find('>').expect("unterminated tag") + open;
         let tag = &rest[open + 1..close];
         rest = &rest[close + 1..];
@@ -178,8 +222,16 @@ fn svg_and_json_hold_every_map_and_row() {
         assert_eq!(svg.matches(&class).count(), 2, "{class}");
         assert!(svg.contains(map_name(m)), "legend lacks {}", map_name(m));
     }
-    assert_eq!(svg.matches(r#"class="exact""#).count(), 1, "exact reference line");
-    assert_eq!(svg.matches(r#"class="tolerance""#).count(), 1, "tolerance line");
+    assert_eq!(
+        svg.matches(r#"class="exact""#).count(),
+        1,
+        "exact reference line"
+    );
+    assert_eq!(
+        svg.matches(r#"class="tolerance""#).count(),
+        1,
+        "tolerance line"
+    );
     assert!(svg.contains("log2") && svg.contains("RMSE"), "axis labels");
 
     let json = serde_json::to_string(&r).unwrap();
@@ -217,7 +269,13 @@ fn same_seed_same_report_whatever_the_threads() {
             ..AuditOptions::default()
         };
         let r = audit(x.view(), y.view(), &opts).unwrap();
-        (r.exact.check, r.rows.iter().map(|row| (row.check, row.agreement, row.kernel_error)).collect::<Vec<_>>())
+        (
+            r.exact.check,
+            r.rows
+                .iter()
+                .map(|row| (row.check, row.agreement, row.kernel_error))
+                .collect::<Vec<_>>(),
+        )
     };
     assert_eq!(run(1), run(2));
 }
@@ -226,7 +284,11 @@ fn same_seed_same_report_whatever_the_threads() {
 fn bad_input_gives_typed_errors_or_notes() {
     let (x, y) = ccpp_rows(3_000, 3_200);
     // a cache too small for two kernel rows: the exact solver refuses (common practice)
-    let tiny = AuditOptions { cache_bytes: 100, components: vec![16], ..AuditOptions::default() };
+    let tiny = AuditOptions {
+        cache_bytes: 100,
+        components: vec![16],
+        ..AuditOptions::default()
+    };
     match audit(x.view(), y.view(), &tiny) {
         Err(Error::InvalidParameter { name, .. }) => assert_eq!(name, "cache_bytes"),
         other => panic!("expected a cache error, got {other:?}"),
@@ -237,32 +299,63 @@ fn bad_input_gives_typed_errors_or_notes() {
         maps: vec![MapKind::Orthogonal],
         ..AuditOptions::default()
     };
-    assert!(matches!(audit(x.view(), y.view(), &lap), Err(Error::InvalidParameter { .. })));
+    assert!(matches!(
+        audit(x.view(), y.view(), &lap),
+        Err(Error::InvalidParameter { .. })
+    ));
     // one row cannot be split
-    assert!(matches!(audit(x.slice(s![..1, ..]), y.slice(s![..1]), &tiny), Err(Error::NoRows(_))));
+    assert!(matches!(
+        audit(x.slice(s![..1, ..]), y.slice(s![..1]), &tiny),
+        Err(Error::NoRows(_))
+    ));
     // non-finite input
     let mut bad = x.clone();
     bad[[7, 2]] = f64::NAN;
-    assert!(matches!(audit(bad.view(), y.view(), &tiny), Err(Error::NonFinite { .. })));
+    assert!(matches!(
+        audit(bad.view(), y.view(), &tiny),
+        Err(Error::NonFinite { .. })
+    ));
 
     // duplicated rows: every row twice; Nyström keeps distinct landmarks only
     let x2 = ndarray::concatenate(Axis(0), &[x.view(), x.view()]).unwrap();
     let y2 = ndarray::concatenate(Axis(0), &[y.view(), y.view()]).unwrap();
-    let opts = AuditOptions { maps: vec![MapKind::Nystrom], components: vec![400], ..AuditOptions::default() };
+    let opts = AuditOptions {
+        maps: vec![MapKind::Nystrom],
+        components: vec![400],
+        ..AuditOptions::default()
+    };
     let r = audit(x2.view(), y2.view(), &opts).unwrap();
-    assert!(r.notes.iter().any(|n| n.contains("repeat")), "{:?}", r.notes);
+    assert!(
+        r.notes.iter().any(|n| n.contains("repeat")),
+        "{:?}",
+        r.notes
+    );
     // common practice: at most 200 distinct rows exist, so at most 200 features
     assert!(r.rows[0].features <= 200, "features {}", r.rows[0].features);
 
     // constant target: every machine predicts the constant (common practice: SVR with
     // a constant target has all coefficients zero)
     let yc = Array1::from_elem(x.nrows(), 450.0);
-    let opts = AuditOptions { components: vec![32], ..AuditOptions::default() };
+    let opts = AuditOptions {
+        components: vec![32],
+        ..AuditOptions::default()
+    };
     let r = audit(x.view(), yc.view(), &opts).unwrap();
-    assert!(r.notes.iter().any(|n| n.contains("constant")), "{:?}", r.notes);
-    assert!(r.exact.check.rmse <= 1e-9 * 450.0, "exact rmse {}", r.exact.check.rmse);
+    assert!(
+        r.notes.iter().any(|n| n.contains("constant")),
+        "{:?}",
+        r.notes
+    );
+    assert!(
+        r.exact.check.rmse <= 1e-9 * 450.0,
+        "exact rmse {}",
+        r.exact.check.rmse
+    );
     for row in &r.rows {
-        assert!(row.check.rmse <= 1e-9 * 450.0 && row.agreement <= 1e-9 * 450.0, "{row:?}");
+        assert!(
+            row.check.rmse <= 1e-9 * 450.0 && row.agreement <= 1e-9 * 450.0,
+            "{row:?}"
+        );
     }
 }
 
@@ -273,30 +366,67 @@ fn cli_audit_on_parquet_and_model_audit() {
     let dir = tempfile::tempdir().unwrap();
     let lake = dir.path().join("lake");
     let (header, x, y) = ccpp();
-    write_parts(&lake, &header, &x.slice(s![..600, ..]).to_owned(), &y.slice(s![..600]).to_owned(), 3);
+    write_parts(
+        &lake,
+        &header,
+        &x.slice(s![..600, ..]).to_owned(),
+        &y.slice(s![..600]).to_owned(),
+        3,
+    );
     let bin = env!("CARGO_BIN_EXE_kernlake");
     let json = dir.path().join("a.json");
     let svg = dir.path().join("a.svg");
     let o = Command::new(bin)
-        .args(["audit", lake.to_str().unwrap(), "--target", "PE", "--sample", "1000"])
+        .args([
+            "audit",
+            lake.to_str().unwrap(),
+            "--target",
+            "PE",
+            "--sample",
+            "1000",
+        ])
         .args(["-D", "32,64", "--maps", "fourier,nystrom", "--seed", "4"])
-        .args(["--json", json.to_str().unwrap(), "--plot", svg.to_str().unwrap()])
+        .args([
+            "--json",
+            json.to_str().unwrap(),
+            "--plot",
+            svg.to_str().unwrap(),
+        ])
         .output()
         .unwrap();
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(o.status.success(), "{err}");
-    assert!(err.contains("600 usable row(s), fewer than the 1000"), "{err}");
+    assert!(
+        err.contains("600 usable row(s), fewer than the 1000"),
+        "{err}"
+    );
     let out = String::from_utf8_lossy(&o.stdout);
-    assert!(out.contains("exact") && out.contains("nystrom") && out.contains("recommended"), "{out}");
+    assert!(
+        out.contains("exact") && out.contains("nystrom") && out.contains("recommended"),
+        "{out}"
+    );
     let v: serde_json::Value = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
     assert_eq!(v["rows"].as_array().unwrap().len(), 4);
-    assert_eq!(v["rows_fit"].as_u64().unwrap() + v["rows_check"].as_u64().unwrap(), 600);
+    assert_eq!(
+        v["rows_fit"].as_u64().unwrap() + v["rows_check"].as_u64().unwrap(),
+        600
+    );
     let text = std::fs::read_to_string(&svg).unwrap();
     assert_eq!(text.matches("<polyline").count(), 4);
 
     // a cache budget below two kernel rows: a clear error, non-zero exit
     let o = Command::new(bin)
-        .args(["audit", lake.to_str().unwrap(), "--target", "PE", "--cache", "100B", "-D", "16", "--quiet"])
+        .args([
+            "audit",
+            lake.to_str().unwrap(),
+            "--target",
+            "PE",
+            "--cache",
+            "100B",
+            "-D",
+            "16",
+            "--quiet",
+        ])
         .output()
         .unwrap();
     assert!(!o.status.success());
@@ -305,13 +435,28 @@ fn cli_audit_on_parquet_and_model_audit() {
     // audit a fitted model: the exact machine with the model's own parameters
     let model = dir.path().join("m.klm");
     let o = Command::new(bin)
-        .args(["fit", lake.to_str().unwrap(), "--target", "PE", "--out", model.to_str().unwrap()])
+        .args([
+            "fit",
+            lake.to_str().unwrap(),
+            "--target",
+            "PE",
+            "--out",
+            model.to_str().unwrap(),
+        ])
         .args(["-D", "128", "--quiet", "--loss", "l1", "--epochs", "50"])
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let o = Command::new(bin)
-        .args(["audit", "--model", model.to_str().unwrap(), lake.to_str().unwrap(), "--json", "-", "--quiet"])
+        .args([
+            "audit",
+            "--model",
+            model.to_str().unwrap(),
+            lake.to_str().unwrap(),
+            "--json",
+            "-",
+            "--quiet",
+        ])
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));

@@ -160,7 +160,10 @@ impl AuditOptions {
         if !(self.split > 0.0 && self.split < 1.0) {
             return Err(Error::invalid(
                 "split",
-                format!("the fit share must lie strictly between 0 and 1, got {}", self.split),
+                format!(
+                    "the fit share must lie strictly between 0 and 1, got {}",
+                    self.split
+                ),
             ));
         }
         if !(self.agree.is_finite() && self.agree > 0.0) {

@@ -109,7 +109,10 @@ pub fn audit_model(
     if !(opts.split > 0.0 && opts.split < 1.0) {
         return Err(Error::invalid(
             "split",
-            format!("the fit share must lie strictly between 0 and 1, got {}", opts.split),
+            format!(
+                "the fit share must lie strictly between 0 and 1, got {}",
+                opts.split
+            ),
         ));
     }
     check_finite(x, y)?;

@@ -56,11 +56,23 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
     }
     let ymin = ys.iter().copied().fold(f64::INFINITY, f64::min).min(0.0);
     let ymax = ys.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let (ymin, ymax) = if ymax.is_finite() { (ymin, ymax * 1.08 + 1e-12) } else { (0.0, 1.0) };
-    let lx: Vec<f64> = r.rows.iter().map(|row| (row.components as f64).log2()).collect();
+    let (ymin, ymax) = if ymax.is_finite() {
+        (ymin, ymax * 1.08 + 1e-12)
+    } else {
+        (0.0, 1.0)
+    };
+    let lx: Vec<f64> = r
+        .rows
+        .iter()
+        .map(|row| (row.components as f64).log2())
+        .collect();
     let xmin = lx.iter().copied().fold(f64::INFINITY, f64::min);
     let xmax = lx.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let (xmin, xmax) = if xmin < xmax { (xmin - 0.25, xmax + 0.25) } else { (xmin - 1.0, xmin + 1.0) };
+    let (xmin, xmax) = if xmin < xmax {
+        (xmin - 0.25, xmax + 0.25)
+    } else {
+        (xmin - 1.0, xmin + 1.0)
+    };
     let (x0, x1, y0, y1) = (p.x0, p.x0 + PANEL_W, TOP + PANEL_H, TOP);
     let px = |l: f64| scale(l, xmin, xmax, x0, x1);
     let py = |v: f64| scale(v, ymin, ymax, y0, y1);
@@ -131,7 +143,13 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
             .rows
             .iter()
             .filter(|row| row.map == m && (p.value)(row).is_finite())
-            .map(|row| format!("{:.1},{:.1}", px((row.components as f64).log2()), py((p.value)(row))))
+            .map(|row| {
+                format!(
+                    "{:.1},{:.1}",
+                    px((row.components as f64).log2()),
+                    py((p.value)(row))
+                )
+            })
             .collect();
         let _ = writeln!(
             s,
@@ -142,7 +160,11 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
         );
         for pt in &pts {
             let (cx, cy) = pt.split_once(',').unwrap_or(("0", "0"));
-            let _ = writeln!(s, r#"<circle cx="{cx}" cy="{cy}" r="3" fill="{}"/>"#, colour(m));
+            let _ = writeln!(
+                s,
+                r#"<circle cx="{cx}" cy="{cy}" r="3" fill="{}"/>"#,
+                colour(m)
+            );
         }
     }
 }
@@ -174,7 +196,11 @@ pub fn render_svg(report: &AuditReport) -> String {
             title: "agreement with the exact machine",
             ylabel: "rms difference / target sd",
             value: |row| row.agreement,
-            reference: Some((report.agree, format!("tolerance {}", tick(report.agree)), "tolerance")),
+            reference: Some((
+                report.agree,
+                format!("tolerance {}", tick(report.agree)),
+                "tolerance",
+            )),
         },
     );
     draw_panel(
@@ -186,7 +212,11 @@ pub fn render_svg(report: &AuditReport) -> String {
             title: "check RMSE",
             ylabel: "RMSE (target units)",
             value: |row| row.check.rmse,
-            reference: Some((report.exact.check.rmse, format!("exact {}", tick(report.exact.check.rmse)), "exact")),
+            reference: Some((
+                report.exact.check.rmse,
+                format!("exact {}", tick(report.exact.check.rmse)),
+                "exact",
+            )),
         },
     );
     // legend

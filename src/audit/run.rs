@@ -7,9 +7,7 @@ use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
-use super::{
-    Accuracy, AuditOptions, AuditReport, AuditRow, Chosen, ExactResult, Recommendation,
-};
+use super::{Accuracy, AuditOptions, AuditReport, AuditRow, Chosen, ExactResult, Recommendation};
 use crate::error::{Error, Result};
 use crate::features::{build_map, FeatureMap, MapSpec};
 use crate::kernel::Kernel;
@@ -66,12 +64,22 @@ pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Res
         None
     };
     let choose = |given: Option<f64>, default: Option<f64>, rule: &str| match given {
-        Some(v) => Chosen { value: v, source: "given".into() },
-        None => Chosen { value: default.unwrap_or(f64::NAN), source: rule.into() },
+        Some(v) => Chosen {
+            value: v,
+            source: "given".into(),
+        },
+        None => Chosen {
+            value: default.unwrap_or(f64::NAN),
+            source: rule.into(),
+        },
     };
     let gamma = choose(opts.gamma, defaults.map(|d| d.gamma), "median heuristic");
     let c = choose(opts.c, defaults.map(|d| d.c), "Cherkassky & Ma (2004)");
-    let epsilon = choose(opts.epsilon, defaults.map(|d| d.epsilon), "Cherkassky & Ma (2004)");
+    let epsilon = choose(
+        opts.epsilon,
+        defaults.map(|d| d.epsilon),
+        "Cherkassky & Ma (2004)",
+    );
     let kernel = Kernel::new(opts.kernel, gamma.value)?;
 
     let pool = rayon::ThreadPoolBuilder::new()
@@ -80,7 +88,14 @@ pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Res
         .map_err(|e| Error::invalid("threads", format!("no thread pool could start: {e}")))?;
     let unit = if y_sd > 0.0 { y_sd } else { 1.0 };
     let (exact, exact_pred) = pool.install(|| {
-        fit_exact(&parts, kernel, c.value, epsilon.value, opts.smo_tol, opts.cache_bytes)
+        fit_exact(
+            &parts,
+            kernel,
+            c.value,
+            epsilon.value,
+            opts.smo_tol,
+            opts.cache_bytes,
+        )
     })?;
     let kblock = parts.kernel_block(opts.kernel_rows);
     let k_exact = pool.install(|| kernel.block(kblock.view(), kblock.view()));
@@ -153,7 +168,10 @@ fn recommend(
     rows: &[AuditRow],
     maps: &[crate::features::MapKind],
     agree: f64,
-) -> (Vec<Recommendation>, Option<(crate::features::MapKind, usize)>) {
+) -> (
+    Vec<Recommendation>,
+    Option<(crate::features::MapKind, usize)>,
+) {
     let within = |r: &&AuditRow| r.agreement <= agree;
     let recommended = maps
         .iter()
@@ -309,7 +327,10 @@ pub(super) fn fit_exact(
     let (mean, sd) = mean_sd(parts.y_fit.view());
     let unit = if sd > 0.0 { sd } else { 1.0 };
     if !(c.is_finite() && c > 0.0) {
-        return Err(Error::invalid("C", format!("must be a finite number > 0, got {c}")));
+        return Err(Error::invalid(
+            "C",
+            format!("must be a finite number > 0, got {c}"),
+        ));
     }
     let settings = SmoSettings {
         c: c / unit,
@@ -342,7 +363,11 @@ pub(super) fn fit_exact(
 pub(super) fn kernel_error(map: &dyn FeatureMap, xb: ArrayView2<f64>, k: ArrayView2<f64>) -> f64 {
     let z = map.transform(xb);
     let approx = z.dot(&z.t());
-    let num: f64 = k.iter().zip(approx.iter()).map(|(a, b)| (a - b) * (a - b)).sum();
+    let num: f64 = k
+        .iter()
+        .zip(approx.iter())
+        .map(|(a, b)| (a - b) * (a - b))
+        .sum();
     let den: f64 = k.iter().map(|a| a * a).sum();
     (num / den).sqrt()
 }

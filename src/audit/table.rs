@@ -54,7 +54,11 @@ pub fn render_audit(r: &AuditReport) -> String {
         "0",
         "0",
         e.fit_seconds,
-        if e.converged { "" } else { "  (SMO stopped early)" }
+        if e.converged {
+            ""
+        } else {
+            "  (SMO stopped early)"
+        }
     );
     for row in &r.rows {
         let _ = writeln!(
@@ -69,11 +73,19 @@ pub fn render_audit(r: &AuditReport) -> String {
             num(row.agreement),
             num(row.kernel_error),
             row.fit_seconds,
-            if row.converged { "" } else { "  (gap not reached)" }
+            if row.converged {
+                ""
+            } else {
+                "  (gap not reached)"
+            }
         );
     }
     let _ = writeln!(s, "\n(exact: feat = support vectors)");
-    let _ = writeln!(s, "smallest D agreeing within {} of the target sd:", num(r.agree));
+    let _ = writeln!(
+        s,
+        "smallest D agreeing within {} of the target sd:",
+        num(r.agree)
+    );
     for rec in &r.recommended {
         let v = rec
             .components
@@ -114,7 +126,11 @@ pub fn render_model_audit(r: &ModelAuditReport) -> String {
         r.rows_check,
         num(r.target_sd)
     );
-    let _ = writeln!(s, "\n{:<8} {:>10} {:>10} {:>8}", "machine", "rmse", "mae", "r2");
+    let _ = writeln!(
+        s,
+        "\n{:<8} {:>10} {:>10} {:>8}",
+        "machine", "rmse", "mae", "r2"
+    );
     for (name, a) in [("exact", &r.exact.check), ("model", &r.model)] {
         let _ = writeln!(
             s,

@@ -49,7 +49,12 @@ pub struct AuditArgs {
     #[arg(long, value_enum, value_delimiter = ',')]
     pub maps: Vec<MapArg>,
     /// Feature dimensions D to try, comma separated.
-    #[arg(long, short = 'D', value_delimiter = ',', default_value = "256,512,1024,2048,4096")]
+    #[arg(
+        long,
+        short = 'D',
+        value_delimiter = ',',
+        default_value = "256,512,1024,2048,4096"
+    )]
     pub components: Vec<usize>,
     /// Fourier features as cos + random phase instead of sin/cos pairs.
     #[arg(long)]
@@ -108,7 +113,10 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
     let target = match (&a.target, &model) {
         (Some(t), _) => t.clone(),
         (None, Some(m)) => m.columns.target.clone().ok_or_else(|| {
-            Error::invalid("--target", "the model names no target column; give --target")
+            Error::invalid(
+                "--target",
+                "the model names no target column; give --target",
+            )
         })?,
         (None, None) => return Err(Error::invalid("--target", "give the column to predict")),
     };
@@ -128,7 +136,11 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
         .with_missing(a.src.missing())
         .with_csv(csv);
     let bar = rows_bar(quiet, known_rows, "sample");
-    let settings = SurveySettings { sample_rows: a.sample, seed: a.seed, threads: a.threads };
+    let settings = SurveySettings {
+        sample_rows: a.sample,
+        seed: a.seed,
+        threads: a.threads,
+    };
     let s = survey(&reader, &settings, &|rows| bar.set_position(rows))?;
     bar.finish_and_clear();
     if (s.rows_used as usize) < a.sample && !quiet {
@@ -149,7 +161,9 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
             };
             let r = audit_model(m, x.view(), y.view(), &opts)?;
             if a.plot.is_some() && !quiet {
-                eprintln!("kernlake: --plot draws D lists; a model audit has one D, no plot written");
+                eprintln!(
+                    "kernlake: --plot draws D lists; a model audit has one D, no plot written"
+                );
             }
             (render_model_audit(&r), to_json(&r)?)
         }
@@ -161,7 +175,11 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
                 epsilon: a.epsilon,
                 maps: a.maps.iter().copied().map(map_kind).collect(),
                 components: a.components.clone(),
-                variant: if a.phase { FourierVariant::CosPhase } else { FourierVariant::SinCos },
+                variant: if a.phase {
+                    FourierVariant::CosPhase
+                } else {
+                    FourierVariant::SinCos
+                },
                 agree: a.agree,
                 split: a.split,
                 cache_bytes: a.cache,
@@ -192,8 +210,14 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
 
 /// The survey's sample as arrays, dropping constant input columns for a fresh audit
 /// (a model audit keeps the model's columns).
-fn sample_arrays(s: &Survey, drop_constant: bool) -> Result<(ndarray::Array2<f64>, ndarray::Array1<f64>)> {
-    let y = s.sample_y.clone().ok_or_else(|| Error::NoRows("no target column was read".into()))?;
+fn sample_arrays(
+    s: &Survey,
+    drop_constant: bool,
+) -> Result<(ndarray::Array2<f64>, ndarray::Array1<f64>)> {
+    let y = s
+        .sample_y
+        .clone()
+        .ok_or_else(|| Error::NoRows("no target column was read".into()))?;
     let keep: Vec<usize> = (0..s.features.len())
         .filter(|&j| !(drop_constant && s.constant_features.contains(&s.features[j].name)))
         .collect();
