@@ -46,6 +46,8 @@ struct Panel<'a> {
     ylabel: &'a str,
     value: fn(&super::AuditRow) -> f64,
     reference: Option<(f64, String, &'a str)>,
+    /// Whether the y axis starts at zero (else it spans the values with a margin).
+    from_zero: bool,
 }
 
 fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
@@ -54,12 +56,15 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
     if let Some((v, _, _)) = &p.reference {
         ys.push(*v);
     }
-    let ymin = ys.iter().copied().fold(f64::INFINITY, f64::min).min(0.0);
-    let ymax = ys.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let (ymin, ymax) = if ymax.is_finite() {
-        (ymin, ymax * 1.08 + 1e-12)
-    } else {
+    let lo = ys.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = ys.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let (ymin, ymax) = if !(lo.is_finite() && hi.is_finite()) {
         (0.0, 1.0)
+    } else if p.from_zero {
+        (lo.min(0.0), hi * 1.08 + 1e-12)
+    } else {
+        let pad = ((hi - lo) * 0.08).max(hi.abs() * 1e-3).max(1e-12);
+        (lo - pad, hi + pad)
     };
     let lx: Vec<f64> = r
         .rows
@@ -201,6 +206,7 @@ pub fn render_svg(report: &AuditReport) -> String {
                 format!("tolerance {}", tick(report.agree)),
                 "tolerance",
             )),
+            from_zero: true,
         },
     );
     draw_panel(
@@ -217,6 +223,7 @@ pub fn render_svg(report: &AuditReport) -> String {
                 format!("exact {}", tick(report.exact.check.rmse)),
                 "exact",
             )),
+            from_zero: false,
         },
     );
     // legend
