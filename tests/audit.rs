@@ -37,7 +37,7 @@ fn sd(y: &Array1<f64>) -> f64 {
 /// Σβ = 0 then becomes Σβ = b/s² (b in target sd, the target being centred): with
 /// s = 30 and |b| well below one sd, the dual mass moved is below 1/900 ≈ 1.1e-3 and the
 /// predictions move by about that times a kernel value ≤ 1, in practice far less. Both
-/// solvers run to tight tolerances (SMO 1e-8 in target units, DCD relative gap 1e-8), so
+/// solvers run to tight tolerances (SMO 1e-8 in target units; DCD 5,000 epochs, relative gap of a few 1e-6), so
 /// what is left is the agreement of the two formulations: 1e-3 of the target's sd.
 #[test]
 fn nystrom_on_every_row_with_l1_dcd_matches_smo() {
@@ -61,8 +61,8 @@ fn nystrom_on_every_row_with_l1_dcd_matches_smo() {
         loss: Loss::L1,
         shrinking: true,
         sweeps_per_block: 50,
-        tol: 1e-8,
-        max_epochs: 20_000,
+        tol: 1e-6,
+        max_epochs: 5_000,
         seed: 3,
     };
     let approx = dcd::fit(z.view(), yf, &settings, n_fit).unwrap();
