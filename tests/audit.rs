@@ -409,6 +409,13 @@ fn cli_audit_on_parquet_and_model_audit() {
     );
     let v: serde_json::Value = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
     assert_eq!(v["rows"].as_array().unwrap().len(), 4);
+    let notes = v["notes"].as_array().unwrap();
+    assert!(
+        notes
+            .iter()
+            .any(|n| n.as_str().unwrap().contains("fewer than")),
+        "{notes:?}"
+    );
     assert_eq!(
         v["rows_fit"].as_u64().unwrap() + v["rows_check"].as_u64().unwrap(),
         600

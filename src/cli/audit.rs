@@ -143,11 +143,14 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
     };
     let s = survey(&reader, &settings, &|rows| bar.set_position(rows))?;
     bar.finish_and_clear();
-    if (s.rows_used as usize) < a.sample && !quiet {
-        eprintln!(
-            "kernlake: the data hold {} usable row(s), fewer than the {} asked for; auditing on all of them",
+    let short = ((s.rows_used as usize) < a.sample).then(|| {
+        format!(
+            "the data hold {} usable row(s), fewer than the {} asked for; auditing on all of them",
             s.rows_used, a.sample
-        );
+        )
+    });
+    if let (Some(msg), false) = (&short, quiet) {
+        eprintln!("kernlake: {msg}");
     }
     let (x, y) = sample_arrays(&s, model.is_none())?;
     let (text, json) = match &model {
@@ -159,7 +162,8 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
                 threads: a.threads,
                 ..ModelAuditOptions::default()
             };
-            let r = audit_model(m, x.view(), y.view(), &opts)?;
+            let mut r = audit_model(m, x.view(), y.view(), &opts)?;
+            r.notes.extend(short);
             if a.plot.is_some() && !quiet {
                 eprintln!(
                     "kernlake: --plot draws D lists; a model audit has one D, no plot written"
@@ -187,7 +191,8 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
                 threads: a.threads,
                 ..AuditOptions::default()
             };
-            let r = audit(x.view(), y.view(), &opts)?;
+            let mut r = audit(x.view(), y.view(), &opts)?;
+            r.notes.extend(short);
             if let Some(path) = &a.plot {
                 write_file(path, render_svg(&r).as_bytes())?;
             }
