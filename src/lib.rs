@@ -45,6 +45,7 @@
 #![deny(missing_docs)]
 
 pub mod atomic;
+pub mod audit;
 pub mod cli;
 pub mod coverage;
 pub mod data;

@@ -41,6 +41,9 @@ pub enum Command {
     /// Score Parquet files with a model: one output file per input, restartable.
     #[command(after_help = super::SAFETY)]
     Score(super::score::ScoreArgs),
+    /// Compare the exact kernel machine with approximate ones (or a fitted model) on a
+    /// sample: accuracy, agreement and kernel error against D.
+    Audit(super::audit::AuditArgs),
 }
 
 /// Kernel families on the command line.

@@ -2,6 +2,7 @@
 //! piece of work is a library call.
 
 mod args;
+mod audit;
 mod demo;
 mod fit;
 mod inspect;
@@ -24,5 +25,6 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Inspect(a) => inspect::run(a),
         Command::Demo(a) => demo::run(a, cli.quiet),
         Command::Score(a) => score::run(a, cli.quiet),
+        Command::Audit(a) => audit::run(a, cli.quiet),
     }
 }
