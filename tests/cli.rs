@@ -251,7 +251,17 @@ fn unusable_columns_and_rows_fail_clearly() {
     w.write(&batch).unwrap();
     w.close().unwrap();
     fails_with(
-        &["fit", text.to_str().unwrap(), "--target", "y", "--features", "label,a", "--out", out_s, "--quiet"],
+        &[
+            "fit",
+            text.to_str().unwrap(),
+            "--target",
+            "y",
+            "--features",
+            "label,a",
+            "--out",
+            out_s,
+            "--quiet",
+        ],
         &["t.parquet", "label"],
     );
 
@@ -265,7 +275,11 @@ fn unusable_columns_and_rows_fail_clearly() {
 
     // Every row has a missing input: zero usable rows after skipping.
     let holes = dir.path().join("holes");
-    write_parquet(&holes.join("h.parquet"), &names, &[vec![f64::NAN; 20], vec![1.0; 20]]);
+    write_parquet(
+        &holes.join("h.parquet"),
+        &names,
+        &[vec![f64::NAN; 20], vec![1.0; 20]],
+    );
     let mut a = fit_args(holes.to_str().unwrap(), out_s);
     a[3] = "y";
     fails_with(&a, &["rows"]);
