@@ -1,11 +1,12 @@
 //! `kernlake demo`: the cold-store scenario end to end on generated data.
 
-use crate::data::{discover, ColumnSelection, CsvOptions, ResolvedColumns, TableReader};
+use crate::data::{discover, CsvOptions, ResolvedColumns, TableReader};
 use crate::demo::{generate, months, DemoSpec};
 use crate::error::{Error, Result};
 use crate::fit::{FitOptions, Fitter};
 use crate::metrics::MetricsAccumulator;
 use crate::report::render_training;
+use crate::score::{score_files, Quiet, ScoreOptions};
 
 use super::args::DemoArgs;
 use super::progress::{rows_bar, EpochBars};
@@ -63,7 +64,6 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         features: DEMO_FEATURES.iter().map(|s| s.to_string()).collect(),
         target: Some(DEMO_TARGET.to_string()),
     };
-    let _ = ColumnSelection::default();
     let train_rows: u64 = train_files.iter().filter_map(|f| f.rows).sum();
     let reader = TableReader::new(train_files, columns.clone()).with_csv(CsvOptions::default());
     let opts = FitOptions {
@@ -90,14 +90,36 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     print!("{}", render_training(&model.report));
     println!("model written to {}", model_path.display());
 
-    // The held-out month, scored with the saved model.
+    // The held-out month: scored to Parquet with the saved model (as `kernlake score`
+    // would), then compared with the measured power, site by site for coverage.
+    let scores_dir = a.dir.join("scores");
+    let score_opts = ScoreOptions {
+        out_dir: scores_dir.clone(),
+        threads: a.threads,
+        overwrite: true,
+        ..ScoreOptions::default()
+    };
+    let scored = score_files(&model, &test_files, &score_opts, &Quiet)?;
+    let hot = summary.hot_site.to_string();
     let test = TableReader::new(test_files, columns);
     let mut acc = MetricsAccumulator::new(model.solver.epsilon);
+    let (mut hot_rows, mut hot_flagged) = (0u64, 0u64);
     for block in test.blocks()? {
         let block = block?;
-        if let Some(y) = &block.y {
-            let f = model.predict(block.x.view());
-            acc.add(y.view(), f.view());
+        let Some(y) = &block.y else { continue };
+        let f = model.predict(block.x.view());
+        acc.add(y.view(), f.view());
+        let site = test.files()[block.file_index]
+            .partition("site")
+            .map(|s| s.trim_start_matches('0'));
+        if let (Some(cov), Some(site)) = (&model.coverage, site) {
+            if site == hot.as_str() {
+                let mut xs = block.x.clone();
+                model.scaler.apply(xs.view_mut());
+                let v = cov.values(xs.view());
+                hot_rows += v.len() as u64;
+                hot_flagged += v.iter().filter(|&&c| c < cov.threshold).count() as u64;
+            }
         }
     }
     let m = acc.finish();
@@ -105,6 +127,16 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     println!("  {:<22} {:.3}", "RMSE", m.rmse);
     println!("  {:<22} {:.3}", "MAE", m.mae);
     println!("  {:<22} {:.4}", "R²", m.r2);
+    println!(
+        "  {:<22} {} of {} rows ({} of {} at the hot-climate site {})",
+        "outside coverage",
+        scored.rows_uncovered,
+        scored.rows_written,
+        hot_flagged,
+        hot_rows,
+        summary.hot_site
+    );
+    println!("  {:<22} {}", "scores written to", scores_dir.display());
     println!();
     println!("{}", super::SAFETY);
     Ok(0)
