@@ -207,8 +207,11 @@ pub struct DemoArgs {
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
     /// Number of features D.
-    #[arg(long, short = 'D', default_value_t = 1024)]
+    #[arg(long, short = 'D', default_value_t = 512)]
     pub components: usize,
+    /// Largest number of passes over the data.
+    #[arg(long, default_value_t = 12)]
+    pub epochs: usize,
     /// Threads (0 = all cores).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,

@@ -68,6 +68,9 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     let reader = TableReader::new(train_files, columns.clone()).with_csv(CsvOptions::default());
     let opts = FitOptions {
         holdout: 0.05,
+        max_epochs: a.epochs,
+        sweeps_per_block: 3,
+        memory_bytes: 4 << 30,
         seed: a.seed,
         threads: a.threads,
         map: crate::features::MapSpec {
