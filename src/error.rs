@@ -103,6 +103,12 @@ pub enum Error {
         /// Zero-based row in the array.
         row: usize,
     },
+
+    // --- tune: validation search ---
+    /// Every candidate of a validation search failed (diverged or gave a non-finite
+    /// error); the message names the best attempt.
+    #[error("tuning failed: {0}")]
+    TuneFailed(String),
 }
 
 impl Error {
