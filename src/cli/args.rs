@@ -37,6 +37,8 @@ pub enum Command {
     /// Generate the cold-store demo data, fit on all months but the last, and report.
     #[command(after_help = super::SAFETY)]
     Demo(DemoArgs),
+    /// Choose gamma, C, epsilon and D by validation on a random sample.
+    Tune(super::tune::TuneArgs),
 }
 
 /// Kernel families on the command line.

@@ -6,6 +6,7 @@ mod demo;
 mod fit;
 mod inspect;
 mod progress;
+mod tune;
 
 pub use args::{Cli, Command};
 
@@ -22,5 +23,6 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Fit(a) => fit::run(a, cli.quiet),
         Command::Inspect(a) => inspect::run(a),
         Command::Demo(a) => demo::run(a, cli.quiet),
+        Command::Tune(a) => tune::run(a, cli.quiet),
     }
 }

@@ -6,7 +6,7 @@ use std::fmt::Write;
 
 use super::report::TuneReport;
 
-const CELL_W: f64 = 96.0;
+const CELL_W: f64 = 124.0;
 const CELL_H: f64 = 44.0;
 const LEFT: f64 = 110.0;
 const TOP: f64 = 60.0;
