@@ -29,7 +29,11 @@ fn median_heuristic_on_the_unit_cube() {
     // Sampling error: a squared distance has sd ≈ √(10·(1/15 − 1/36)) ≈ 0.62; the median of
     // all pairs of n rows moves by about 2·0.62/√n (a U-statistic), so 4 of those.
     let tol = 4.0 * 2.0 * 0.62 / (n as f64).sqrt();
-    assert!((1.0 / g - 1.625).abs() < tol, "median squared distance {} (tol {tol})", 1.0 / g);
+    assert!(
+        (1.0 / g - 1.625).abs() < tol,
+        "median squared distance {} (tol {tol})",
+        1.0 / g
+    );
     // The documented convention of the search: inputs standardized first (sd of U[0,1] is
     // 1/√12), then gamma = 1 / median squared distance, so gamma ≈ 1 / (12 · 1.625).
     let y = x.column(0).to_owned();
@@ -92,19 +96,37 @@ fn test_rmse(
 }
 
 /// Tuned against default parameters on independent test rows, both at the chosen D.
-fn tuned_against_defaults(r: &TuneReport, train: (&Array2<f64>, &Array1<f64>), test: (&Array2<f64>, &Array1<f64>), what: &str) {
+fn tuned_against_defaults(
+    r: &TuneReport,
+    train: (&Array2<f64>, &Array1<f64>),
+    test: (&Array2<f64>, &Array1<f64>),
+    what: &str,
+) {
     let d = r.chosen_components;
     let tuned = test_rmse(train, test, r.best.gamma, r.best.c, r.best.epsilon, d);
-    let def = test_rmse(train, test, r.defaults.gamma, r.defaults.c, r.defaults.epsilon, d);
+    let def = test_rmse(
+        train,
+        test,
+        r.defaults.gamma,
+        r.defaults.c,
+        r.defaults.epsilon,
+        d,
+    );
     eprintln!(
         "{what}: validation tuned {:.4} defaults {:.4}; test tuned {tuned:.4} defaults {def:.4}; D = {d}, {} epochs, {:.1} s",
         r.best.error, r.default_error, r.epochs_total, r.seconds
     );
     // common practice: a validation choice should not lose to the defaults it was centred
     // on out of sample; 2% allows for the test set's sampling noise.
-    assert!(tuned <= 1.02 * def, "{what}: tuned {tuned} worse than defaults {def}");
+    assert!(
+        tuned <= 1.02 * def,
+        "{what}: tuned {tuned} worse than defaults {def}"
+    );
     // Issue 6 acceptance: the defaults stay within 25% of the tuned result.
-    assert!(def <= 1.25 * tuned, "{what}: defaults {def} more than 25% above tuned {tuned}");
+    assert!(
+        def <= 1.25 * tuned,
+        "{what}: defaults {def} more than 25% above tuned {tuned}"
+    );
 }
 
 #[test]
@@ -119,7 +141,11 @@ fn friedman1_tuned_no_worse_than_defaults() {
         ..TuneOptions::default()
     };
     let r = tune(x.view(), y.view(), &opts).unwrap();
-    assert!(r.best.error.is_finite() && r.best.error > 0.9, "validation RMSE below the noise floor 1.0: {}", r.best.error);
+    assert!(
+        r.best.error.is_finite() && r.best.error > 0.9,
+        "validation RMSE below the noise floor 1.0: {}",
+        r.best.error
+    );
     tuned_against_defaults(&r, (&x, &y), (&xt, &ft), "Friedman #1");
 }
 
@@ -140,7 +166,11 @@ fn ccpp_tuned_no_worse_than_defaults() {
     let r = tune(xtr.view(), ytr.view(), &opts).unwrap();
     // dataset: the paper's best RMSE is about 3.8 MW and a linear fit about 4.5 MW (CHECKS.md);
     // a sample of 2,000 rows at small D lands between them or a little above.
-    assert!(r.best.error > 3.0 && r.best.error < 5.0, "validation RMSE {} MW", r.best.error);
+    assert!(
+        r.best.error > 3.0 && r.best.error < 5.0,
+        "validation RMSE {} MW",
+        r.best.error
+    );
     tuned_against_defaults(&r, (&xtr, &ytr), (&xte, &yte), "CCPP");
 }
 
@@ -163,12 +193,29 @@ fn halving_finds_the_full_grid_winner() {
         seed: 9,
         ..TuneOptions::default()
     };
-    let full = tune(x.view(), y.view(), &TuneOptions { halving: false, ..base.clone() }).unwrap();
+    let full = tune(
+        x.view(),
+        y.view(),
+        &TuneOptions {
+            halving: false,
+            ..base.clone()
+        },
+    )
+    .unwrap();
     let halved = tune(x.view(), y.view(), &base).unwrap();
-    eprintln!("full grid: {} epochs; halving: {} epochs", full.epochs_total, halved.epochs_total);
+    eprintln!(
+        "full grid: {} epochs; halving: {} epochs",
+        full.epochs_total, halved.epochs_total
+    );
     assert_eq!(full.rung_epochs, vec![base.max_epochs]);
-    assert_eq!(halved.rung_epochs, rung_budgets(18, 3, base.max_epochs, true));
-    assert!(halved.epochs_total < full.epochs_total, "halving did not save work");
+    assert_eq!(
+        halved.rung_epochs,
+        rung_budgets(18, 3, base.max_epochs, true)
+    );
+    assert!(
+        halved.epochs_total < full.epochs_total,
+        "halving did not save work"
+    );
     assert_eq!(
         (halved.best.gamma, halved.best.c, halved.best.epsilon),
         (full.best.gamma, full.best.c, full.best.epsilon),
@@ -193,7 +240,10 @@ fn same_seed_same_report_whatever_the_thread_count() {
         ..TuneOptions::default()
     };
     let run = |threads: usize| {
-        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
         let mut r = pool.install(|| tune(x.view(), y.view(), &opts)).unwrap();
         r.seconds = 0.0;
         r
@@ -205,7 +255,10 @@ fn same_seed_same_report_whatever_the_thread_count() {
 fn bad_grids_and_small_samples_are_typed_errors() {
     // common practice: refuse settings that cannot be searched, naming them.
     let (x, y, _) = friedman1(100, 1);
-    let bad = TuneOptions { c_factors: vec![1.0, -2.0], ..TuneOptions::default() };
+    let bad = TuneOptions {
+        c_factors: vec![1.0, -2.0],
+        ..TuneOptions::default()
+    };
     match tune(x.view(), y.view(), &bad) {
         Err(Error::InvalidParameter { name, reason }) => {
             assert_eq!(name, "C grid");
@@ -213,19 +266,34 @@ fn bad_grids_and_small_samples_are_typed_errors() {
         }
         other => panic!("expected InvalidParameter, got {other:?}"),
     }
-    let zero = TuneOptions { gamma_factors: vec![0.0], ..TuneOptions::default() };
+    let zero = TuneOptions {
+        gamma_factors: vec![0.0],
+        ..TuneOptions::default()
+    };
     assert!(matches!(
         tune(x.view(), y.view(), &zero),
-        Err(Error::InvalidParameter { name: "gamma grid", .. })
+        Err(Error::InvalidParameter {
+            name: "gamma grid",
+            ..
+        })
     ));
-    let few = TuneOptions { validation: Validation::KFold(5), ..TuneOptions::default() };
+    let few = TuneOptions {
+        validation: Validation::KFold(5),
+        ..TuneOptions::default()
+    };
     let (xs, ys) = (x.slice(ndarray::s![..12, ..]), y.slice(ndarray::s![..12]));
     match tune(xs, ys, &few) {
         Err(Error::NoRows(m)) => assert!(m.contains("5-fold"), "{m}"),
         other => panic!("expected NoRows, got {other:?}"),
     }
-    let one = TuneOptions { validation: Validation::KFold(1), ..TuneOptions::default() };
-    assert!(matches!(tune(x.view(), y.view(), &one), Err(Error::InvalidParameter { name: "folds", .. })));
+    let one = TuneOptions {
+        validation: Validation::KFold(1),
+        ..TuneOptions::default()
+    };
+    assert!(matches!(
+        tune(x.view(), y.view(), &one),
+        Err(Error::InvalidParameter { name: "folds", .. })
+    ));
     let mut xn = x.clone();
     xn[[3, 2]] = f64::NAN;
     assert!(matches!(
@@ -250,8 +318,106 @@ fn heatmap_has_one_cell_per_gamma_and_c() {
     };
     let r = tune(x.view(), y.view(), &opts).unwrap();
     let svg = heatmap_svg(&r);
-    assert!(svg.starts_with("<svg xmlns=\"http://www.w3.org/2000/svg\"") && svg.trim_end().ends_with("</svg>"));
+    assert!(
+        svg.starts_with("<svg xmlns=\"http://www.w3.org/2000/svg\"")
+            && svg.trim_end().ends_with("</svg>")
+    );
     // background + 6 cells + the outline of the chosen cell
     assert_eq!(svg.matches("<rect").count(), 1 + 6 + 1, "{svg}");
     assert_eq!(r.candidates.len(), 12);
+}
+
+#[test]
+fn command_line_tune_writes_report_heatmap_and_model() {
+    // dataset: Tüfekci (2014), CCPP, 1,200 rows in two Parquet parts; the chosen values
+    // must reproduce through `kernlake fit`, the JSON must carry what the table shows.
+    let dir = tempfile::tempdir().unwrap();
+    let (header, x, y) = ccpp();
+    let n = 1_200;
+    let (x, y) = (
+        x.slice(ndarray::s![..n, ..]).to_owned(),
+        y.slice(ndarray::s![..n]).to_owned(),
+    );
+    let lake = dir.path().join("lake");
+    common::write_parts(&lake, &header, &x, &y, 2);
+    let (json, svg, model) = (
+        dir.path().join("t.json"),
+        dir.path().join("h.svg"),
+        dir.path().join("m.klm"),
+    );
+    let bin = env!("CARGO_BIN_EXE_kernlake");
+    let o = std::process::Command::new(bin)
+        .args([
+            "tune",
+            lake.to_str().unwrap(),
+            "--target",
+            "PE",
+            "-q",
+            "-D",
+            "32",
+        ])
+        .args([
+            "--max-components",
+            "64",
+            "--epochs",
+            "3",
+            "--gamma-factors",
+            "0.5,1,2",
+        ])
+        .args([
+            "--c-factors",
+            "0.3,1",
+            "--epsilon-factors",
+            "1",
+            "--seed",
+            "4",
+        ])
+        .args([
+            "--json",
+            json.to_str().unwrap(),
+            "--heatmap",
+            svg.to_str().unwrap(),
+        ])
+        .args(["--fit", model.to_str().unwrap()])
+        .output()
+        .unwrap();
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        o.status.success(),
+        "{}\n{}",
+        out,
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let r: TuneReport = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
+    assert_eq!(r.rows, n);
+    assert_eq!(r.candidates.len(), 6);
+    assert!(
+        out.contains("kernlake fit ") && out.contains(&format!("--gamma {:e}", r.best.gamma)),
+        "{out}"
+    );
+    assert!(std::fs::read_to_string(&svg).unwrap().contains("</svg>"));
+    let m = kernlake::model::Model::load(&model).unwrap();
+    assert_eq!(m.report.gamma.value, r.best.gamma);
+    assert_eq!(m.report.c.value, r.best.c);
+    assert_eq!(m.report.features, r.chosen_components);
+
+    // A non-positive grid value is refused, naming the grid.
+    let o = std::process::Command::new(bin)
+        .args([
+            "tune",
+            lake.to_str().unwrap(),
+            "--target",
+            "PE",
+            "-q",
+            "--c-factors",
+            "1,-3",
+        ])
+        .output()
+        .unwrap();
+    assert!(!o.status.success());
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("C grid"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
 }

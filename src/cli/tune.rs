@@ -36,13 +36,28 @@ pub struct TuneArgs {
     #[arg(long, value_name = "SHARE", allow_negative_numbers = true)]
     pub holdout: Option<f64>,
     /// Multipliers of the median-heuristic gamma, comma separated.
-    #[arg(long, value_delimiter = ',', allow_negative_numbers = true, default_value = "0.25,0.5,1,2,4")]
+    #[arg(
+        long,
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        default_value = "0.25,0.5,1,2,4"
+    )]
     pub gamma_factors: Vec<f64>,
     /// Multipliers of the Cherkassky & Ma C, comma separated.
-    #[arg(long, value_delimiter = ',', allow_negative_numbers = true, default_value = "0.1,0.316,1,3.16,10")]
+    #[arg(
+        long,
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        default_value = "0.1,0.316,1,3.16,10"
+    )]
     pub c_factors: Vec<f64>,
     /// Multipliers of the Cherkassky & Ma epsilon, comma separated.
-    #[arg(long, value_delimiter = ',', allow_negative_numbers = true, default_value = "0.25,1,4")]
+    #[arg(
+        long,
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        default_value = "0.25,1,4"
+    )]
     pub epsilon_factors: Vec<f64>,
     /// Train every candidate with the full budget (no successive halving).
     #[arg(long)]
@@ -125,8 +140,16 @@ impl TuneArgs {
                 MapArg::Nystrom => MapKind::Nystrom,
             },
             components,
-            variant: if self.phase { FourierVariant::CosPhase } else { FourierVariant::SinCos },
-            landmarks: if self.kmeans { Landmarks::KMeans } else { Landmarks::Uniform },
+            variant: if self.phase {
+                FourierVariant::CosPhase
+            } else {
+                FourierVariant::SinCos
+            },
+            landmarks: if self.kmeans {
+                Landmarks::KMeans
+            } else {
+                Landmarks::Uniform
+            },
             seed: self.seed,
             ..MapSpec::default()
         }
@@ -204,7 +227,10 @@ impl TuneArgs {
 
 /// Quotes a word for a POSIX shell when it holds anything beyond plain characters.
 fn shell_word(s: &str) -> String {
-    if !s.is_empty() && s.chars().all(|c| c.is_ascii_alphanumeric() || "-_./=:,*+".contains(c)) {
+    if !s.is_empty()
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || "-_./=:,*+".contains(c))
+    {
         s.to_string()
     } else {
         format!("'{}'", s.replace('\'', "'\\''"))
@@ -212,7 +238,9 @@ fn shell_word(s: &str) -> String {
 }
 
 fn write_text(path: &Path, text: &[u8]) -> Result<()> {
-    write_atomic(path, |f| std::io::Write::write_all(f, text).map_err(|e| Error::io(path, e)))
+    write_atomic(path, |f| {
+        std::io::Write::write_all(f, text).map_err(|e| Error::io(path, e))
+    })
 }
 
 /// Runs `kernlake tune`.
@@ -224,7 +252,11 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
     let reader = TableReader::new(files, columns)
         .with_missing(a.src.missing())
         .with_csv(csv);
-    let settings = SurveySettings { sample_rows: a.sample, seed: a.seed, threads: a.threads };
+    let settings = SurveySettings {
+        sample_rows: a.sample,
+        seed: a.seed,
+        threads: a.threads,
+    };
     let bar = rows_bar(quiet, known_rows, "survey");
     let s = survey(&reader, &settings, &|rows| bar.set_position(rows))?;
     bar.finish_and_clear();
@@ -265,7 +297,10 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
     }
     let args = a.fit_args(&report);
     let words: Vec<String> = args.iter().map(|w| shell_word(w)).collect();
-    println!("\nto fit with these values:\n  kernlake fit {}", words.join(" "));
+    println!(
+        "\nto fit with these values:\n  kernlake fit {}",
+        words.join(" ")
+    );
     if let Some(out) = &a.fit {
         // The same fit as the printed command line, with its defaults for everything else.
         let mut argv = vec!["kernlake".to_string(), "fit".to_string()];
@@ -274,8 +309,8 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
         argv.push(out.display().to_string());
         argv.push("--threads".into());
         argv.push(a.threads.to_string());
-        let cli = Cli::try_parse_from(&argv)
-            .map_err(|e| Error::invalid("fit command", e.to_string()))?;
+        let cli =
+            Cli::try_parse_from(&argv).map_err(|e| Error::invalid("fit command", e.to_string()))?;
         match cli.command {
             Command::Fit(f) => super::fit::run(f, quiet)?,
             _ => unreachable!("the command built above is a fit"),

@@ -45,7 +45,12 @@ pub fn median_gamma(x: ArrayView2<f64>) -> Result<f64> {
         let xi = x.row(i);
         for j in 0..i {
             let xj = x.row(j);
-            d2.push(xi.iter().zip(xj).map(|(a, b)| (a - b) * (a - b)).sum::<f64>());
+            d2.push(
+                xi.iter()
+                    .zip(xj)
+                    .map(|(a, b)| (a - b) * (a - b))
+                    .sum::<f64>(),
+            );
         }
     }
     let mid = d2.len() / 2;

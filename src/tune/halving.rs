@@ -43,7 +43,13 @@ pub(crate) struct Candidate {
 }
 
 impl Candidate {
-    pub fn new(gamma: f64, c: f64, epsilon: f64, grid: Option<[usize; 3]>, folds: usize) -> Candidate {
+    pub fn new(
+        gamma: f64,
+        c: f64,
+        epsilon: f64,
+        grid: Option<[usize; 3]>,
+        folds: usize,
+    ) -> Candidate {
         Candidate {
             gamma,
             c,
@@ -116,7 +122,11 @@ pub(crate) struct Search<'a> {
 
 impl Search<'_> {
     /// The feature map for one gamma at D = `components`.
-    pub fn map(&self, gamma: f64, components: usize) -> Result<Box<dyn crate::features::FeatureMap>> {
+    pub fn map(
+        &self,
+        gamma: f64,
+        components: usize,
+    ) -> Result<Box<dyn crate::features::FeatureMap>> {
         let kernel = Kernel::new(self.opts.kernel, gamma)?;
         let spec = MapSpec {
             components,
@@ -129,7 +139,13 @@ impl Search<'_> {
 
     /// Trains the candidates `alive` to `budget` epochs on every fold, resuming their
     /// runs, and sets their validation errors.
-    pub fn run_rung(&self, cands: &mut [Candidate], alive: &[usize], rung: usize, budget: usize) -> Result<()> {
+    pub fn run_rung(
+        &self,
+        cands: &mut [Candidate],
+        alive: &[usize],
+        rung: usize,
+        budget: usize,
+    ) -> Result<()> {
         let mut gammas: Vec<f64> = alive.iter().map(|&i| cands[i].gamma).collect();
         gammas.sort_by(f64::total_cmp);
         gammas.dedup();
@@ -138,7 +154,11 @@ impl Search<'_> {
             for f in 0..self.folds.ranges.len() {
                 let fold = FoldData::new(self.folds, f, map.as_ref())?;
                 // Chains of equal epsilon, each in increasing C.
-                let mut members: Vec<usize> = alive.iter().copied().filter(|&i| cands[i].gamma == g).collect();
+                let mut members: Vec<usize> = alive
+                    .iter()
+                    .copied()
+                    .filter(|&i| cands[i].gamma == g)
+                    .collect();
                 members.sort_by(|&a, &b| {
                     cands[a]
                         .epsilon
@@ -168,9 +188,12 @@ impl Search<'_> {
                         let mut run = match slot.run.take() {
                             Some(r) => r,
                             None => match before.last().and_then(|p| p.run.as_ref()) {
-                                Some(prev) if warm => {
-                                    Run::warm(prev, &fold, &slot.settings, run_seed(seed, slot.index, f))
-                                }
+                                Some(prev) if warm => Run::warm(
+                                    prev,
+                                    &fold,
+                                    &slot.settings,
+                                    run_seed(seed, slot.index, f),
+                                ),
                                 _ => Run::cold(&fold, run_seed(seed, slot.index, f)),
                             },
                         };

@@ -24,11 +24,18 @@ fn colour(t: f64) -> String {
     let u = t - i as f64;
     let (a, b) = (STOPS[i], STOPS[i + 1]);
     let mix = |x: f64, y: f64| (x + (y - x) * u).round() as u8;
-    format!("#{:02x}{:02x}{:02x}", mix(a.0, b.0), mix(a.1, b.1), mix(a.2, b.2))
+    format!(
+        "#{:02x}{:02x}{:02x}",
+        mix(a.0, b.0),
+        mix(a.1, b.1),
+        mix(a.2, b.2)
+    )
 }
 
 fn escape(s: &str) -> String {
-    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
 }
 
 /// The heat map as an SVG document: rows are gamma factors, columns C factors, at the
@@ -59,7 +66,11 @@ pub fn heatmap_svg(r: &TuneReport) -> String {
         .filter(|e| e.is_finite() && *e > 0.0)
         .collect();
     let lo = finite.iter().copied().fold(f64::INFINITY, f64::min).ln();
-    let hi = finite.iter().copied().fold(f64::NEG_INFINITY, f64::max).ln();
+    let hi = finite
+        .iter()
+        .copied()
+        .fold(f64::NEG_INFINITY, f64::max)
+        .ln();
     let width = LEFT + CELL_W * nc as f64 + 20.0;
     let height = TOP + CELL_H * ng as f64 + 70.0;
     let mut s = String::new();
@@ -73,7 +84,11 @@ pub fn heatmap_svg(r: &TuneReport) -> String {
         r.defaults.epsilon * r.epsilon_factors.get(eps_index).copied().unwrap_or(1.0),
         r.epsilon_factors.get(eps_index).copied().unwrap_or(1.0)
     );
-    let _ = writeln!(s, r#"<text x="10" y="22" font-size="14">{}</text>"#, escape(&title));
+    let _ = writeln!(
+        s,
+        r#"<text x="10" y="22" font-size="14">{}</text>"#,
+        escape(&title)
+    );
     let _ = writeln!(
         s,
         r#"<text x="{}" y="{}" text-anchor="middle">C (× {:.4e})</text>"#,
@@ -109,14 +124,26 @@ pub fn heatmap_svg(r: &TuneReport) -> String {
                 );
                 continue;
             };
-            let t = if c.error.is_finite() && hi > lo { (c.error.ln() - lo) / (hi - lo) } else { 1.0 };
-            let fill = if c.error.is_finite() { colour(t) } else { "#cccccc".into() };
+            let t = if c.error.is_finite() && hi > lo {
+                (c.error.ln() - lo) / (hi - lo)
+            } else {
+                1.0
+            };
+            let fill = if c.error.is_finite() {
+                colour(t)
+            } else {
+                "#cccccc".into()
+            };
             let text = if t < 0.5 { "white" } else { "black" };
             let _ = writeln!(
                 s,
                 r#"<rect x="{x}" y="{y}" width="{CELL_W}" height="{CELL_H}" fill="{fill}" stroke="white"/>"#
             );
-            let note = if c.rung < last_rung { format!(" (rung {})", c.rung) } else { String::new() };
+            let note = if c.rung < last_rung {
+                format!(" (rung {})", c.rung)
+            } else {
+                String::new()
+            };
             let _ = writeln!(
                 s,
                 r#"<text x="{}" y="{}" text-anchor="middle" fill="{text}">{:.4}{}</text>"#,

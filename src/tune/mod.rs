@@ -61,7 +61,13 @@ use search::{run_seed, FoldData, Folds, Run};
 /// If `x` and `y` differ in rows.
 #[track_caller]
 pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Result<TuneReport> {
-    assert_eq!(x.nrows(), y.len(), "tune: x has {} rows but y has {}", x.nrows(), y.len());
+    assert_eq!(
+        x.nrows(),
+        y.len(),
+        "tune: x has {} rows but y has {}",
+        x.nrows(),
+        y.len()
+    );
     let t0 = Instant::now();
     opts.validate()?;
     let n = x.nrows();
@@ -129,7 +135,10 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
     };
     let (alive, budgets) = search.run(&mut cands)?;
     let winner = winner(&cands, &alive)?;
-    let default_index = cands.iter().position(|c| c.protected).expect("defaults are a candidate");
+    let default_index = cands
+        .iter()
+        .position(|c| c.protected)
+        .expect("defaults are a candidate");
     let default_error = cands[default_index].error;
 
     // Search over D at the winner's gamma, C and epsilon, cold starts, full budget.
@@ -141,7 +150,10 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
     for &d in opts.component_ladder().iter().skip(1) {
         let error = cross_validate(&search, &cands[winner], d)?;
         let prev = steps[chosen].error;
-        steps.push(ComponentStep { components: d, error });
+        steps.push(ComponentStep {
+            components: d,
+            error,
+        });
         if !(error.is_finite() && prev - error >= opts.components_tol * prev) {
             break;
         }
@@ -233,7 +245,10 @@ mod tests {
         assert_eq!(alive, vec![1, 0], "NaN ranks after infinity");
         match winner(&cands, &alive) {
             Err(Error::TuneFailed(m)) => {
-                assert!(m.contains("gamma = 2.5000e-1") && m.contains("C = 4.0000e0"), "{m}")
+                assert!(
+                    m.contains("gamma = 2.5000e-1") && m.contains("C = 4.0000e0"),
+                    "{m}"
+                )
             }
             other => panic!("expected TuneFailed, got {other:?}"),
         }

@@ -114,7 +114,10 @@ impl TuneOptions {
         check_factors("epsilon grid", &self.epsilon_factors)?;
         match self.validation {
             Validation::KFold(k) if k < 2 => {
-                return Err(Error::invalid("folds", format!("must be at least 2, got {k}")))
+                return Err(Error::invalid(
+                    "folds",
+                    format!("must be at least 2, got {k}"),
+                ))
             }
             Validation::Holdout(h) if !(h > 0.0 && h <= 0.5) => {
                 return Err(Error::invalid(
@@ -125,7 +128,10 @@ impl TuneOptions {
             _ => {}
         }
         if self.eta < 2 {
-            return Err(Error::invalid("eta", format!("must be at least 2, got {}", self.eta)));
+            return Err(Error::invalid(
+                "eta",
+                format!("must be at least 2, got {}", self.eta),
+            ));
         }
         if self.max_epochs == 0 {
             return Err(Error::invalid("epochs", "must be at least 1"));
@@ -134,7 +140,10 @@ impl TuneOptions {
             return Err(Error::invalid("sweeps", "must be at least 1"));
         }
         if !(self.tol.is_finite() && self.tol >= 0.0) {
-            return Err(Error::invalid("tol", format!("must be at least 0, got {}", self.tol)));
+            return Err(Error::invalid(
+                "tol",
+                format!("must be at least 0, got {}", self.tol),
+            ));
         }
         if self.components == 0 {
             return Err(Error::invalid("components", "must be at least 1"));

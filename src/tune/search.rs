@@ -57,11 +57,14 @@ impl Folds {
                         "{n} sample rows are too few to hold out a share of {h} (at least {MIN_FOLD_ROWS} rows on each side needed)"
                     )));
                 }
-                vec![0..m]
+                std::iter::once(0..m).collect()
             }
         };
         let mut order: Vec<usize> = (0..n).collect();
-        order.shuffle(&mut ChaCha8Rng::seed_from_u64(splitmix64(seed, 0x666f6c6473)));
+        order.shuffle(&mut ChaCha8Rng::seed_from_u64(splitmix64(
+            seed,
+            0x666f6c6473,
+        )));
         Ok(Folds {
             x: x.select(Axis(0), &order),
             y: y.select(Axis(0), &order),
