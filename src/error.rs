@@ -109,6 +109,11 @@ pub enum Error {
     /// output was removed; the other file's error is the one reported).
     #[error("scoring stopped because another file failed")]
     ScoreStopped,
+    // --- tune: validation search ---
+    /// Every candidate of a validation search failed (diverged or gave a non-finite
+    /// error); the message names the best attempt.
+    #[error("tuning failed: {0}")]
+    TuneFailed(String),
 }
 
 impl Error {

@@ -44,6 +44,8 @@ pub enum Command {
     /// Compare the exact kernel machine with approximate ones (or a fitted model) on a
     /// sample: accuracy, agreement and kernel error against D.
     Audit(super::audit::AuditArgs),
+    /// Choose gamma, C, epsilon and D by validation on a random sample.
+    Tune(super::tune::TuneArgs),
 }
 
 /// Kernel families on the command line.

@@ -8,6 +8,7 @@ mod fit;
 mod inspect;
 mod progress;
 mod score;
+mod tune;
 
 pub use args::{Cli, Command};
 
@@ -26,5 +27,6 @@ pub fn run(cli: Cli) -> Result<i32> {
         Command::Demo(a) => demo::run(a, cli.quiet),
         Command::Score(a) => score::run(a, cli.quiet),
         Command::Audit(a) => audit::run(a, cli.quiet),
+        Command::Tune(a) => tune::run(a, cli.quiet),
     }
 }

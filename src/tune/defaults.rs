@@ -20,7 +20,7 @@ use crate::error::{Error, Result};
 const MEDIAN_ROWS: usize = 2_000;
 
 /// Defaults for one dataset.
-#[derive(Clone, Copy, Debug, PartialEq)]
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Defaults {
     /// Kernel width by the median heuristic.
     pub gamma: f64,

@@ -1,0 +1,320 @@
+//! `kernlake tune`: survey the sources for a random sample, search gamma, C, epsilon and
+//! D by validation on it, print the ranked candidates and a ready `kernlake fit` command
+//! (or run that fit), and optionally write JSON and an SVG heat map.
+
+use std::path::{Path, PathBuf};
+
+use clap::{Args, Parser};
+use ndarray::Axis;
+
+use crate::atomic::write_atomic;
+use crate::data::{discover, resolve_columns, survey, SurveySettings, TableReader};
+use crate::error::{Error, Result};
+use crate::features::{FourierVariant, Landmarks, MapKind, MapSpec};
+use crate::kernel::KernelKind;
+use crate::solver::dcd::Loss;
+use crate::tune::{heatmap_svg, render_tune, tune, TuneOptions, TuneReport, Validation};
+
+use super::args::{Cli, Command, KernelArg, MapArg, SourceArgs};
+use super::progress::rows_bar;
+
+/// `kernlake tune`.
+#[derive(Debug, Args)]
+pub struct TuneArgs {
+    #[command(flatten)]
+    pub src: SourceArgs,
+    /// The column to predict.
+    #[arg(long, value_name = "COL")]
+    pub target: String,
+    /// Rows in the random sample the search validates on.
+    #[arg(long, default_value_t = 20_000)]
+    pub sample: usize,
+    /// Folds of cross-validation.
+    #[arg(long, default_value_t = 3)]
+    pub folds: usize,
+    /// Validate on one held-out share of the sample instead of folds.
+    #[arg(long, value_name = "SHARE", allow_negative_numbers = true)]
+    pub holdout: Option<f64>,
+    /// Multipliers of the median-heuristic gamma, comma separated.
+    #[arg(
+        long,
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        default_value = "0.25,0.5,1,2,4"
+    )]
+    pub gamma_factors: Vec<f64>,
+    /// Multipliers of the Cherkassky & Ma C, comma separated.
+    #[arg(
+        long,
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        default_value = "0.1,0.316,1,3.16,10"
+    )]
+    pub c_factors: Vec<f64>,
+    /// Multipliers of the Cherkassky & Ma epsilon, comma separated.
+    #[arg(
+        long,
+        value_delimiter = ',',
+        allow_negative_numbers = true,
+        default_value = "0.25,1,4"
+    )]
+    pub epsilon_factors: Vec<f64>,
+    /// Train every candidate with the full budget (no successive halving).
+    #[arg(long)]
+    pub no_halving: bool,
+    /// Halving rate: each rung keeps the best 1/eta.
+    #[arg(long, default_value_t = 3)]
+    pub eta: usize,
+    /// Start every candidate from zero instead of the previous C's duals.
+    #[arg(long)]
+    pub no_warm_start: bool,
+    /// Epochs of a candidate at the last rung.
+    #[arg(long, default_value_t = 27)]
+    pub epochs: usize,
+    /// Coordinate-descent sweeps per epoch.
+    #[arg(long, default_value_t = 10)]
+    pub sweeps: usize,
+    /// A candidate stops when its relative duality gap is at most this.
+    #[arg(long, default_value_t = 1e-3)]
+    pub tol: f64,
+    /// Features D of the grid search, and the first D when doubling.
+    #[arg(long, short = 'D', default_value_t = 256)]
+    pub components: usize,
+    /// Largest D tried when doubling.
+    #[arg(long, default_value_t = 4096)]
+    pub max_components: usize,
+    /// Stop doubling D when the validation error improves by less than this share.
+    #[arg(long, default_value_t = 0.01)]
+    pub components_tol: f64,
+    /// Kernel family.
+    #[arg(long, value_enum, default_value = "gaussian")]
+    pub kernel: KernelArg,
+    /// Feature map.
+    #[arg(long, value_enum, default_value = "fourier")]
+    pub map: MapArg,
+    /// Fourier features as cos + random phase instead of sin/cos pairs.
+    #[arg(long)]
+    pub phase: bool,
+    /// Nyström landmarks as k-means centres instead of a uniform sample.
+    #[arg(long)]
+    pub kmeans: bool,
+    /// Loss outside the tube: linear (l1) or squared (l2).
+    #[arg(long, default_value = "l2", value_parser = ["l1", "l2"])]
+    pub loss: String,
+    /// Seed for every random choice.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Threads (0 = all cores).
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+    /// Candidates shown in the ranked table.
+    #[arg(long, default_value_t = 15)]
+    pub top: usize,
+    /// Write the full search report as JSON here.
+    #[arg(long, value_name = "FILE")]
+    pub json: Option<PathBuf>,
+    /// Write an SVG heat map of validation error over gamma × C here.
+    #[arg(long, value_name = "FILE")]
+    pub heatmap: Option<PathBuf>,
+    /// Fit on all the data with the chosen values and write the model here.
+    #[arg(long, value_name = "MODEL")]
+    pub fit: Option<PathBuf>,
+}
+
+impl TuneArgs {
+    fn kernel(&self) -> KernelKind {
+        match self.kernel {
+            KernelArg::Gaussian => KernelKind::Gaussian,
+            KernelArg::Laplacian => KernelKind::Laplacian,
+            KernelArg::Matern12 => KernelKind::Matern12,
+            KernelArg::Matern32 => KernelKind::Matern32,
+            KernelArg::Matern52 => KernelKind::Matern52,
+        }
+    }
+
+    fn map_spec(&self, components: usize) -> MapSpec {
+        MapSpec {
+            kind: match self.map {
+                MapArg::Fourier => MapKind::Fourier,
+                MapArg::Orthogonal => MapKind::Orthogonal,
+                MapArg::Nystrom => MapKind::Nystrom,
+            },
+            components,
+            variant: if self.phase {
+                FourierVariant::CosPhase
+            } else {
+                FourierVariant::SinCos
+            },
+            landmarks: if self.kmeans {
+                Landmarks::KMeans
+            } else {
+                Landmarks::Uniform
+            },
+            seed: self.seed,
+            ..MapSpec::default()
+        }
+    }
+
+    fn loss(&self) -> Loss {
+        if self.loss == "l1" {
+            Loss::L1
+        } else {
+            Loss::L2
+        }
+    }
+
+    /// The search options these flags ask for (`rows` = rows the full fit will use).
+    fn options(&self, rows: u64) -> TuneOptions {
+        TuneOptions {
+            kernel: self.kernel(),
+            map: self.map_spec(self.components),
+            loss: self.loss(),
+            gamma_factors: self.gamma_factors.clone(),
+            c_factors: self.c_factors.clone(),
+            epsilon_factors: self.epsilon_factors.clone(),
+            validation: match self.holdout {
+                Some(h) => Validation::Holdout(h),
+                None => Validation::KFold(self.folds),
+            },
+            halving: !self.no_halving,
+            eta: self.eta,
+            warm_start: !self.no_warm_start,
+            max_epochs: self.epochs,
+            sweeps_per_epoch: self.sweeps,
+            tol: self.tol,
+            components: self.components,
+            max_components: self.max_components,
+            components_tol: self.components_tol,
+            seed: self.seed,
+            rows_total: Some(rows),
+        }
+    }
+
+    /// The arguments of `kernlake fit` (after the command name) with the chosen values.
+    fn fit_args(&self, r: &TuneReport) -> Vec<String> {
+        let mut v: Vec<String> = self.src.sources.clone();
+        let mut flag = |k: &str, val: String| {
+            v.push(k.to_string());
+            v.push(val);
+        };
+        flag("--target", self.target.clone());
+        if let Some(f) = &self.src.features {
+            flag("--features", f.join(","));
+        }
+        if !self.src.exclude.is_empty() {
+            flag("--exclude", self.src.exclude.join(","));
+        }
+        if self.src.delimiter != ',' {
+            flag("--delimiter", self.src.delimiter.to_string());
+        }
+        flag("--kernel", format!("{:?}", self.kernel).to_lowercase());
+        flag("--map", format!("{:?}", self.map).to_lowercase());
+        flag("-D", r.chosen_components.to_string());
+        flag("--loss", self.loss.clone());
+        flag("--gamma", format!("{:e}", r.best.gamma));
+        flag("--c", format!("{:e}", r.best.c));
+        flag("--epsilon", format!("{:e}", r.best.epsilon));
+        flag("--seed", self.seed.to_string());
+        if self.phase {
+            v.push("--phase".into());
+        }
+        if self.kmeans {
+            v.push("--kmeans".into());
+        }
+        v
+    }
+}
+
+/// Quotes a word for a POSIX shell when it holds anything beyond plain characters.
+fn shell_word(s: &str) -> String {
+    if !s.is_empty()
+        && s.chars()
+            .all(|c| c.is_ascii_alphanumeric() || "-_./=:,*+".contains(c))
+    {
+        s.to_string()
+    } else {
+        format!("'{}'", s.replace('\'', "'\\''"))
+    }
+}
+
+fn write_text(path: &Path, text: &[u8]) -> Result<()> {
+    write_atomic(path, |f| {
+        std::io::Write::write_all(f, text).map_err(|e| Error::io(path, e))
+    })
+}
+
+/// Runs `kernlake tune`.
+pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
+    let csv = a.src.csv()?;
+    let files = discover(&a.src.sources)?;
+    let columns = resolve_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;
+    let known_rows: u64 = files.iter().filter_map(|f| f.rows).sum();
+    let reader = TableReader::new(files, columns)
+        .with_missing(a.src.missing())
+        .with_csv(csv);
+    let settings = SurveySettings {
+        sample_rows: a.sample,
+        seed: a.seed,
+        threads: a.threads,
+    };
+    let bar = rows_bar(quiet, known_rows, "survey");
+    let s = survey(&reader, &settings, &|rows| bar.set_position(rows))?;
+    bar.finish_and_clear();
+    let sample_y = s.sample_y.clone().ok_or_else(|| {
+        Error::NoRows("no target column was chosen (give the target column's name)".into())
+    })?;
+    let keep: Vec<usize> = (0..s.features.len())
+        .filter(|&j| !s.constant_features.contains(&s.features[j].name))
+        .collect();
+    if keep.is_empty() {
+        return Err(Error::NoRows("every input column is constant".into()));
+    }
+    let sample_x = s.sample_x.select(Axis(1), &keep);
+    if !quiet {
+        eprintln!(
+            "kernlake: {} rows, sample of {} rows, {} input column(s), target '{}'",
+            s.rows_used,
+            sample_x.nrows(),
+            keep.len(),
+            a.target
+        );
+    }
+    let opts = a.options(s.rows_used);
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(a.threads)
+        .build()
+        .map_err(|e| Error::invalid("threads", e.to_string()))?;
+    let report = pool.install(|| tune(sample_x.view(), sample_y.view(), &opts))?;
+
+    print!("{}", render_tune(&report, a.top));
+    if let Some(path) = &a.json {
+        let json = serde_json::to_vec_pretty(&report)
+            .map_err(|e| Error::Numerical(format!("could not encode the tuning report: {e}")))?;
+        write_text(path, &json)?;
+    }
+    if let Some(path) = &a.heatmap {
+        write_text(path, heatmap_svg(&report).as_bytes())?;
+    }
+    let args = a.fit_args(&report);
+    let words: Vec<String> = args.iter().map(|w| shell_word(w)).collect();
+    println!(
+        "\nto fit with these values:\n  kernlake fit {}",
+        words.join(" ")
+    );
+    if let Some(out) = &a.fit {
+        // The same fit as the printed command line, with its defaults for everything else.
+        let mut argv = vec!["kernlake".to_string(), "fit".to_string()];
+        argv.extend(args);
+        argv.push("--out".into());
+        argv.push(out.display().to_string());
+        argv.push("--threads".into());
+        argv.push(a.threads.to_string());
+        let cli =
+            Cli::try_parse_from(&argv).map_err(|e| Error::invalid("fit command", e.to_string()))?;
+        match cli.command {
+            Command::Fit(f) => super::fit::run(*f, quiet)?,
+            _ => unreachable!("the command built above is a fit"),
+        };
+    }
+    Ok(0)
+}

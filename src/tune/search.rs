@@ -1,0 +1,212 @@
+//! The sample split into validation folds, and one candidate's training on one fold:
+//! dual coordinate descent (Ho & Lin, JMLR 2012) on the fold's mapped training rows,
+//! resumable epoch by epoch so that successive halving can extend a run, and startable
+//! from another run's duals (warm start along C).
+
+use std::ops::Range;
+
+use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
+use rand::seq::SliceRandom;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+
+use crate::data::splitmix64;
+use crate::error::{Error, Result};
+use crate::features::FeatureMap;
+use crate::solver::dcd::{
+    solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, PrimalAccumulator,
+};
+
+use super::options::{Validation, MIN_FOLD_ROWS};
+
+/// The sample in a seeded random order, with the validation rows of every fit as a
+/// contiguous range.
+#[derive(Clone, Debug)]
+pub(crate) struct Folds {
+    /// Standardized inputs, rows permuted.
+    pub x: Array2<f64>,
+    /// Raw targets, same order.
+    pub y: Array1<f64>,
+    /// Validation rows of each fit.
+    pub ranges: Vec<Range<usize>>,
+}
+
+impl Folds {
+    /// Shuffles the rows (seeded) and cuts them into validation ranges.
+    pub fn new(
+        x: ArrayView2<f64>,
+        y: ArrayView1<f64>,
+        validation: Validation,
+        seed: u64,
+    ) -> Result<Folds> {
+        let n = x.nrows();
+        let ranges: Vec<Range<usize>> = match validation {
+            Validation::KFold(k) => {
+                if n < k * MIN_FOLD_ROWS {
+                    return Err(Error::NoRows(format!(
+                        "{n} sample rows are too few for {k}-fold validation (at least {} needed)",
+                        k * MIN_FOLD_ROWS
+                    )));
+                }
+                (0..k).map(|f| f * n / k..(f + 1) * n / k).collect()
+            }
+            Validation::Holdout(h) => {
+                let m = (h * n as f64).round() as usize;
+                if m < MIN_FOLD_ROWS || n - m < MIN_FOLD_ROWS {
+                    return Err(Error::NoRows(format!(
+                        "{n} sample rows are too few to hold out a share of {h} (at least {MIN_FOLD_ROWS} rows on each side needed)"
+                    )));
+                }
+                std::iter::once(0..m).collect()
+            }
+        };
+        let mut order: Vec<usize> = (0..n).collect();
+        order.shuffle(&mut ChaCha8Rng::seed_from_u64(splitmix64(
+            seed,
+            0x666f6c6473,
+        )));
+        Ok(Folds {
+            x: x.select(Axis(0), &order),
+            y: y.select(Axis(0), &order),
+            ranges,
+        })
+    }
+
+    /// Rows outside validation range `f`.
+    fn train_rows(&self, f: usize) -> Vec<usize> {
+        let r = &self.ranges[f];
+        (0..r.start).chain(r.end..self.x.nrows()).collect()
+    }
+}
+
+/// One fold's mapped rows and its target scaling.
+pub(crate) struct FoldData {
+    /// Mapped training rows (rows × D).
+    pub z_train: Array2<f64>,
+    /// Training targets centred by `mean` and divided by `sd`.
+    pub y_train: Array1<f64>,
+    /// Mapped validation rows.
+    pub z_val: Array2<f64>,
+    /// Raw validation targets.
+    pub y_val: Array1<f64>,
+    /// Training target mean.
+    pub mean: f64,
+    /// Training target standard deviation (population).
+    pub sd: f64,
+    index: Vec<usize>,
+}
+
+impl FoldData {
+    /// Maps fold `f`'s training and validation rows with `map`.
+    pub fn new(folds: &Folds, f: usize, map: &dyn FeatureMap) -> Result<FoldData> {
+        let train = folds.train_rows(f);
+        let xt = folds.x.select(Axis(0), &train);
+        let yt = folds.y.select(Axis(0), &train);
+        let r = folds.ranges[f].clone();
+        let mean = yt.sum() / yt.len() as f64;
+        let sd = (yt.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / yt.len() as f64).sqrt();
+        if !(sd > 0.0 && sd.is_finite()) {
+            return Err(Error::NoRows(format!(
+                "the target is constant on the training rows of fold {}; nothing to tune",
+                f + 1
+            )));
+        }
+        Ok(FoldData {
+            z_train: map.transform(xt.view()),
+            y_train: yt.mapv(|v| (v - mean) / sd),
+            z_val: map.transform(folds.x.slice(s![r.clone(), ..])),
+            y_val: folds.y.slice(s![r]).to_owned(),
+            mean,
+            sd,
+            index: (0..train.len()).collect(),
+        })
+    }
+}
+
+/// One candidate's solver on one fold, resumable.
+#[derive(Clone, Debug)]
+pub(crate) struct Run {
+    state: DcdState,
+    rng: ChaCha8Rng,
+    /// Epochs run on this fold (a warm start's inherited epochs not counted).
+    pub epochs: usize,
+    /// The relative duality gap reached `tol`.
+    pub converged: bool,
+}
+
+impl Run {
+    /// A zero start.
+    pub fn cold(fold: &FoldData, seed: u64) -> Run {
+        Run {
+            state: DcdState::new(fold.z_train.ncols(), fold.z_train.nrows()),
+            rng: ChaCha8Rng::seed_from_u64(seed),
+            epochs: 0,
+            converged: false,
+        }
+    }
+
+    /// Starts from `prev`'s duals and weights when they are feasible for `settings`
+    /// (always for L2; for L1 when |β| ≤ C), otherwise from zero.
+    pub fn warm(prev: &Run, fold: &FoldData, settings: &DcdSettings, seed: u64) -> Run {
+        let std = settings.in_standard_units(fold.sd);
+        let feasible = match settings.loss {
+            Loss::L2 => true,
+            Loss::L1 => prev.state.beta.iter().all(|b| b.abs() <= std.c),
+        };
+        if !feasible || !prev.state.w.iter().all(|v| v.is_finite()) {
+            return Run::cold(fold, seed);
+        }
+        Run {
+            state: prev.state.clone(),
+            rng: ChaCha8Rng::seed_from_u64(seed),
+            epochs: 0,
+            converged: false,
+        }
+    }
+
+    /// Runs epochs until `budget` epochs have run or the gap reaches `tol`.
+    pub fn advance(&mut self, fold: &FoldData, settings: &DcdSettings, budget: usize) {
+        let std = settings.in_standard_units(fold.sd);
+        let mut ws = BlockWorkspace::with_cache_rows(0);
+        while self.epochs < budget && !self.converged {
+            solve_block(
+                &mut self.state,
+                fold.z_train.view(),
+                fold.y_train.view(),
+                &fold.index,
+                &std,
+                &mut self.rng,
+                &mut ws,
+            );
+            self.epochs += 1;
+            let mut acc = PrimalAccumulator::new();
+            acc.add_block(&self.state, fold.z_train.view(), fold.y_train.view(), &std);
+            let gap = acc.finish(&self.state, &std).gap;
+            if !gap.is_finite() {
+                break;
+            }
+            self.converged = gap <= std.tol;
+        }
+    }
+
+    /// Sum of squared validation errors in target units (NaN if the run diverged).
+    pub fn validation_sse(&self, fold: &FoldData) -> f64 {
+        let d = fold.z_val.ncols();
+        let w = self.state.w.slice(s![..d]);
+        let b = self.state.w[d];
+        fold.z_val
+            .rows()
+            .into_iter()
+            .zip(fold.y_val.iter())
+            .map(|(z, y)| {
+                let f = fold.mean + fold.sd * (z.dot(&w) + b);
+                (y - f) * (y - f)
+            })
+            .sum()
+    }
+}
+
+/// Seed of one candidate's coordinate order on one fold.
+pub(crate) fn run_seed(seed: u64, candidate: usize, fold: usize) -> u64 {
+    splitmix64(seed ^ 0x7475_6e65, (candidate as u64) << 16 | fold as u64)
+}
