@@ -16,24 +16,13 @@
 use std::time::Instant;
 
 use kernlake::data::{discover, survey, ResolvedColumns, SurveySettings, TableReader};
-use kernlake::demo::{generate, DemoSpec};
+use kernlake::demo::{generate, DemoSpec, FEATURES, TARGET};
 use kernlake::features::{build_map, MapSpec};
 use kernlake::fit::{FitOptions, Fitter};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
 use kernlake::solver::blocks::{EpochRecord, TrainObserver};
 use ndarray::Array2;
-
-const FEATURES: [&str; 8] = [
-    "outdoor_temp",
-    "outdoor_rh",
-    "room_setpoint",
-    "room_temp",
-    "door_open_min",
-    "product_load_t",
-    "defrost",
-    "hour",
-];
 
 fn peak_rss_mib() -> f64 {
     let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
@@ -100,7 +89,7 @@ fn main() {
     let files = discover(&[dir.display().to_string()]).expect("files");
     let columns = ResolvedColumns {
         features: FEATURES.iter().map(|s| s.to_string()).collect(),
-        target: Some("compressor_kw".into()),
+        target: Some(TARGET.into()),
     };
     let reader = TableReader::new(files, columns);
 

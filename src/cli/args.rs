@@ -74,6 +74,48 @@ pub enum MapArg {
     Nystrom,
 }
 
+impl From<KernelArg> for KernelKind {
+    fn from(k: KernelArg) -> Self {
+        match k {
+            KernelArg::Gaussian => KernelKind::Gaussian,
+            KernelArg::Laplacian => KernelKind::Laplacian,
+            KernelArg::Matern12 => KernelKind::Matern12,
+            KernelArg::Matern32 => KernelKind::Matern32,
+            KernelArg::Matern52 => KernelKind::Matern52,
+        }
+    }
+}
+
+impl From<MapArg> for MapKind {
+    fn from(m: MapArg) -> Self {
+        match m {
+            MapArg::Fourier => MapKind::Fourier,
+            MapArg::Orthogonal => MapKind::Orthogonal,
+            MapArg::Nystrom => MapKind::Nystrom,
+        }
+    }
+}
+
+/// The map specification that the map flags describe.
+pub fn map_spec(map: MapArg, components: usize, phase: bool, kmeans: bool, seed: u64) -> MapSpec {
+    MapSpec {
+        kind: map.into(),
+        components,
+        variant: if phase {
+            FourierVariant::CosPhase
+        } else {
+            FourierVariant::SinCos
+        },
+        landmarks: if kmeans {
+            Landmarks::KMeans
+        } else {
+            Landmarks::Uniform
+        },
+        seed,
+        ..MapSpec::default()
+    }
+}
+
 /// Where the sources' columns come from, shared by every command that reads data.
 #[derive(Debug, Args, Clone)]
 pub struct SourceArgs {
@@ -277,40 +319,20 @@ impl SourceArgs {
 impl ModelArgs {
     /// Resolves the flags into validated fit options.
     pub fn options(&self) -> Result<FitOptions> {
-        let kernel = match self.kernel {
-            KernelArg::Gaussian => KernelKind::Gaussian,
-            KernelArg::Laplacian => KernelKind::Laplacian,
-            KernelArg::Matern12 => KernelKind::Matern12,
-            KernelArg::Matern32 => KernelKind::Matern32,
-            KernelArg::Matern52 => KernelKind::Matern52,
-        };
-        let kind = match self.map {
-            MapArg::Fourier => MapKind::Fourier,
-            MapArg::Orthogonal => MapKind::Orthogonal,
-            MapArg::Nystrom => MapKind::Nystrom,
-        };
+        let kernel: KernelKind = self.kernel.into();
         if !(0.0..=0.5).contains(&self.holdout) {
             return Err(Error::invalid(
                 "--holdout",
                 format!("must be between 0 and 0.5, got {}", self.holdout),
             ));
         }
-        let map = MapSpec {
-            kind,
-            components: self.components,
-            variant: if self.phase {
-                FourierVariant::CosPhase
-            } else {
-                FourierVariant::SinCos
-            },
-            landmarks: if self.kmeans {
-                Landmarks::KMeans
-            } else {
-                Landmarks::Uniform
-            },
-            seed: self.seed,
-            ..MapSpec::default()
-        };
+        let map = map_spec(
+            self.map,
+            self.components,
+            self.phase,
+            self.kmeans,
+            self.seed,
+        );
         Ok(FitOptions {
             kernel,
             gamma: self.gamma,

@@ -86,24 +86,6 @@ pub struct AuditArgs {
     pub plot: Option<PathBuf>,
 }
 
-fn kernel_kind(k: KernelArg) -> KernelKind {
-    match k {
-        KernelArg::Gaussian => KernelKind::Gaussian,
-        KernelArg::Laplacian => KernelKind::Laplacian,
-        KernelArg::Matern12 => KernelKind::Matern12,
-        KernelArg::Matern32 => KernelKind::Matern32,
-        KernelArg::Matern52 => KernelKind::Matern52,
-    }
-}
-
-fn map_kind(m: MapArg) -> MapKind {
-    match m {
-        MapArg::Fourier => MapKind::Fourier,
-        MapArg::Orthogonal => MapKind::Orthogonal,
-        MapArg::Nystrom => MapKind::Nystrom,
-    }
-}
-
 /// Runs `kernlake audit`.
 pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
     if a.sample < 2 {
@@ -173,11 +155,11 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
         }
         None => {
             let opts = AuditOptions {
-                kernel: kernel_kind(a.kernel),
+                kernel: KernelKind::from(a.kernel),
                 gamma: a.gamma,
                 c: a.c,
                 epsilon: a.epsilon,
-                maps: a.maps.iter().copied().map(map_kind).collect(),
+                maps: a.maps.iter().copied().map(MapKind::from).collect(),
                 components: a.components.clone(),
                 variant: if a.phase {
                     FourierVariant::CosPhase

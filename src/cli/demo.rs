@@ -1,7 +1,7 @@
 //! `kernlake demo`: the cold-store scenario end to end on generated data.
 
 use crate::data::{discover, CsvOptions, ResolvedColumns, TableReader};
-use crate::demo::{generate, months, DemoSpec};
+use crate::demo::{generate, months, DemoSpec, FEATURES, TARGET};
 use crate::error::{Error, Result};
 use crate::fit::{FitOptions, Fitter};
 use crate::metrics::MetricsAccumulator;
@@ -10,21 +10,6 @@ use crate::score::{score_files, Quiet, ScoreOptions};
 
 use super::args::DemoArgs;
 use super::progress::{rows_bar, EpochBars};
-
-/// The demo's input columns (see `demo-data/README.md` for units).
-pub const DEMO_FEATURES: [&str; 8] = [
-    "outdoor_temp",
-    "outdoor_rh",
-    "room_setpoint",
-    "room_temp",
-    "door_open_min",
-    "product_load_t",
-    "defrost",
-    "hour",
-];
-
-/// The demo's target column.
-pub const DEMO_TARGET: &str = "compressor_kw";
 
 /// Runs `kernlake demo`.
 pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
@@ -61,8 +46,8 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         |f: &crate::data::SourceFile| f.partitions.iter().any(|(k, v)| k == "month" && *v == last);
     let (test_files, train_files): (Vec<_>, Vec<_>) = files.into_iter().partition(is_last);
     let columns = ResolvedColumns {
-        features: DEMO_FEATURES.iter().map(|s| s.to_string()).collect(),
-        target: Some(DEMO_TARGET.to_string()),
+        features: FEATURES.iter().map(|s| s.to_string()).collect(),
+        target: Some(TARGET.to_string()),
     };
     let train_rows: u64 = train_files.iter().filter_map(|f| f.rows).sum();
     let reader = TableReader::new(train_files, columns.clone()).with_csv(CsvOptions::default());

@@ -10,7 +10,7 @@ use ndarray::Axis;
 use crate::atomic::write_atomic;
 use crate::data::{discover, resolve_columns, survey, SurveySettings, TableReader};
 use crate::error::{Error, Result};
-use crate::features::{FourierVariant, Landmarks, MapKind, MapSpec};
+use crate::features::MapSpec;
 use crate::kernel::KernelKind;
 use crate::solver::dcd::Loss;
 use crate::tune::{heatmap_svg, render_tune, tune, TuneOptions, TuneReport, Validation};
@@ -123,36 +123,11 @@ pub struct TuneArgs {
 
 impl TuneArgs {
     fn kernel(&self) -> KernelKind {
-        match self.kernel {
-            KernelArg::Gaussian => KernelKind::Gaussian,
-            KernelArg::Laplacian => KernelKind::Laplacian,
-            KernelArg::Matern12 => KernelKind::Matern12,
-            KernelArg::Matern32 => KernelKind::Matern32,
-            KernelArg::Matern52 => KernelKind::Matern52,
-        }
+        self.kernel.into()
     }
 
     fn map_spec(&self, components: usize) -> MapSpec {
-        MapSpec {
-            kind: match self.map {
-                MapArg::Fourier => MapKind::Fourier,
-                MapArg::Orthogonal => MapKind::Orthogonal,
-                MapArg::Nystrom => MapKind::Nystrom,
-            },
-            components,
-            variant: if self.phase {
-                FourierVariant::CosPhase
-            } else {
-                FourierVariant::SinCos
-            },
-            landmarks: if self.kmeans {
-                Landmarks::KMeans
-            } else {
-                Landmarks::Uniform
-            },
-            seed: self.seed,
-            ..MapSpec::default()
-        }
+        super::args::map_spec(self.map, components, self.phase, self.kmeans, self.seed)
     }
 
     fn loss(&self) -> Loss {

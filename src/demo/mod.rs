@@ -79,6 +79,22 @@ pub struct DemoSummary {
     pub hot_site: u32,
 }
 
+/// The scenario's model inputs, in the order the demo fits them (units in the column docs
+/// of [`schema`]).
+pub const FEATURES: [&str; 8] = [
+    "outdoor_temp",
+    "outdoor_rh",
+    "room_setpoint",
+    "room_temp",
+    "door_open_min",
+    "product_load_t",
+    "defrost",
+    "hour",
+];
+
+/// The scenario's target column: compressor electrical power, kW.
+pub const TARGET: &str = "compressor_kw";
+
 /// The list of month partition names in order (`YYYY-MM`), so callers can hold out the
 /// last month.
 pub fn months(spec: &DemoSpec) -> Vec<String> {
