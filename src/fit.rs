@@ -341,6 +341,7 @@ impl Fitter {
             holdout: o.holdout,
             patience: o.patience,
             threads: o.threads,
+            block_rows: o.block_rows,
         };
         let trainer = Trainer {
             scaler: &facts.scaler,

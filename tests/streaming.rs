@@ -113,11 +113,16 @@ fn ccpp_streamed_holdout_matches_the_in_memory_fit() {
     };
     let cols = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
     let reader = TableReader::new(files, cols);
+    // gamma = 1 as in tests/accuracy.rs; C = 3 (squared loss) so that both fits reach
+    // the gap tolerance and are compared at their optimum, not mid-way.
     let f = Fitter::new()
         .with_components(1_000)
+        .with_gamma(1.0)
+        .with_c(3.0)
         .with_seed(2)
         .with_holdout(0.2)
-        .with_tol(1e-4);
+        .with_tol(1e-3)
+        .with_max_epochs(300);
     let streamed = f.clone().fit_files(&reader, &Silent, &|_| {}).unwrap();
     let m = streamed.report.holdout.unwrap();
     // The same split in memory: rows the trainer holds out, by its own hash rule.

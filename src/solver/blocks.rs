@@ -24,6 +24,7 @@
 //! within the tolerance, that certified model is returned.
 
 use std::sync::mpsc::sync_channel;
+use std::sync::Arc;
 
 use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
 use rand::seq::SliceRandom;
@@ -105,6 +106,9 @@ pub struct TrainSettings {
     pub patience: usize,
     /// Threads for reading and mapping.
     pub threads: usize,
+    /// Rows read (before the holdout split) gathered into one DCD sub-problem; blocks and
+    /// whole small files are grouped until they reach it.
+    pub block_rows: usize,
 }
 
 impl Default for TrainSettings {
@@ -115,6 +119,7 @@ impl Default for TrainSettings {
             holdout: 0.0,
             patience: 3,
             threads: 0,
+            block_rows: 65_536,
         }
     }
 }
@@ -321,7 +326,7 @@ impl Trainer<'_> {
         let mut ws = BlockWorkspace::new();
         let mut rng = ChaCha8Rng::seed_from_u64(self.settings.dcd.seed);
         let units = source.units();
-        let mut resident: Vec<Option<Vec<MappedBlock>>> = (0..units).map(|_| None).collect();
+        let mut resident: Vec<Option<Vec<Arc<MappedBlock>>>> = (0..units).map(|_| None).collect();
         let mut resident_bytes = 0usize;
         let mut holdout_x: Vec<Array2<f64>> = Vec::new();
         let mut holdout_y: Vec<f64> = Vec::new();
@@ -351,13 +356,36 @@ impl Trainer<'_> {
             observer.pass_started(epoch, if epoch == 1 { 0 } else { rows_read_total });
             let first = epoch == 1;
 
-            let mut consume = |mb: &MappedBlock,
-                               state: &mut DcdState,
-                               rng: &mut ChaCha8Rng,
-                               ws: &mut BlockWorkspace|
+            // Blocks are gathered into groups of at least `block_rows` rows read before
+            // the solver sees them: small files (one site, one month) then mix into one
+            // sub-problem instead of pulling the weights towards each file in turn.
+            let mut group: Vec<Arc<MappedBlock>> = Vec::new();
+            let mut group_rows = 0usize;
+            let target_rows = self.settings.block_rows.max(1);
+            let mut flush = |group: &mut Vec<Arc<MappedBlock>>,
+                             state: &mut DcdState,
+                             rng: &mut ChaCha8Rng,
+                             ws: &mut BlockWorkspace|
              -> u64 {
-                loss_start += loss_sum(w_start.view(), mb.z.view(), mb.y.view(), &dcd);
-                let st = solve_block(state, mb.z.view(), mb.y.view(), &mb.rows, &dcd, rng, ws);
+                if group.is_empty() {
+                    return 0;
+                }
+                for mb in group.iter() {
+                    loss_start += loss_sum(w_start.view(), mb.z.view(), mb.y.view(), &dcd);
+                }
+                let st = if group.len() == 1 {
+                    let mb = &group[0];
+                    solve_block(state, mb.z.view(), mb.y.view(), &mb.rows, &dcd, rng, ws)
+                } else {
+                    let zs: Vec<_> = group.iter().map(|m| m.z.view()).collect();
+                    let ys: Vec<_> = group.iter().map(|m| m.y.view()).collect();
+                    let z = ndarray::concatenate(Axis(0), &zs).expect("blocks share D");
+                    let y = ndarray::concatenate(Axis(0), &ys).expect("vectors");
+                    let rows: Vec<usize> =
+                        group.iter().flat_map(|m| m.rows.iter().copied()).collect();
+                    solve_block(state, z.view(), y.view(), &rows, &dcd, rng, ws)
+                };
+                group.clear();
                 st.updates
             };
 
@@ -391,17 +419,22 @@ impl Trainer<'_> {
                     for &u in &order {
                         if let Some(blocks) = &resident[u] {
                             for mb in blocks {
-                                updates += consume(mb, &mut state, &mut rng, &mut ws);
+                                group.push(Arc::clone(mb));
+                                group_rows += mb.read_rows as usize;
+                                if group_rows >= target_rows {
+                                    updates += flush(&mut group, &mut state, &mut rng, &mut ws);
+                                    group_rows = 0;
+                                }
                                 observer.rows_done(mb.read_rows);
                                 resident_blocks += 1;
                             }
                             continue;
                         }
-                        let mut kept: Vec<MappedBlock> = Vec::new();
+                        let mut kept: Vec<Arc<MappedBlock>> = Vec::new();
                         let mut fits = true;
                         loop {
                             let next = match rx.recv() {
-                                Ok(Msg::Block(mb)) => *mb,
+                                Ok(Msg::Block(mb)) => Arc::new(*mb),
                                 Ok(Msg::UnitEnd) => break,
                                 Ok(Msg::Failed(e)) => return Err(e),
                                 Err(_) => {
@@ -410,7 +443,12 @@ impl Trainer<'_> {
                                     ))
                                 }
                             };
-                            updates += consume(&next, &mut state, &mut rng, &mut ws);
+                            group.push(Arc::clone(&next));
+                            group_rows += next.read_rows as usize;
+                            if group_rows >= target_rows {
+                                updates += flush(&mut group, &mut state, &mut rng, &mut ws);
+                                group_rows = 0;
+                            }
                             observer.rows_done(next.read_rows);
                             if first {
                                 rows_trained += next.rows.len() as u64;
@@ -433,6 +471,7 @@ impl Trainer<'_> {
                             resident[u] = Some(kept);
                         }
                     }
+                    updates += flush(&mut group, &mut state, &mut rng, &mut ws);
                     Ok(())
                 })();
                 drop(rx);
@@ -523,7 +562,7 @@ impl Trainer<'_> {
         &self,
         pool: &rayon::ThreadPool,
         source: &dyn BlockSource,
-        resident: &[Option<Vec<MappedBlock>>],
+        resident: &[Option<Vec<Arc<MappedBlock>>>],
         w: ArrayView1<f64>,
         state: &DcdState,
         dcd: &DcdSettings,
