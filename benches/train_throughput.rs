@@ -138,6 +138,7 @@ fn main() {
         memory_bytes: memory,
         holdout: 0.01,
         patience: 0,
+        sweeps_per_block: 3, // as `kernlake fit` does by default
         seed: 3,
         ..FitOptions::default()
     };
