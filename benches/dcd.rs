@@ -8,14 +8,15 @@
 //! `cargo bench --bench dcd` runs everything (pass `--bench` to the binary to get the
 //! full run under another profile); without `--bench` a small smoke run is made.
 
+use kernlake::features::{FeatureMap, FourierMap, FourierVariant};
+use kernlake::kernel::Kernel;
 use kernlake::solver::dcd::{
     solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, PrimalAccumulator,
 };
 use ndarray::{s, Array1, Array2, ArrayView2, Axis};
 use rand::seq::SliceRandom;
-use rand::{Rng, SeedableRng};
+use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-use rand_distr::{Distribution, Normal};
 use std::time::Instant;
 
 /// CCPP inputs (standardized) and the standardized target.
@@ -42,23 +43,14 @@ fn ccpp() -> (Array2<f64>, Array1<f64>) {
     (x, y.mapv(|v| (v - m) / sd))
 }
 
-/// Minimal Gaussian random Fourier features: √(2/D)·cos(Wx + b), W ~ N(0, 2γ),
-/// b ~ U[0, 2π), γ = 1/(2d) (to be replaced by the library's map).
+/// Gaussian random Fourier features from the library (cos + phase variant, Rahimi & Recht,
+/// NIPS 2007), γ = 1/(2d) on standardized inputs.
 fn rff(x: ArrayView2<f64>, dim: usize, seed: u64) -> Array2<f64> {
     let d = x.ncols();
-    let gamma = 1.0 / (2.0 * d as f64);
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let normal = Normal::new(0.0, (2.0 * gamma).sqrt()).unwrap();
-    let w = Array2::from_shape_fn((d, dim), |_| normal.sample(&mut rng));
-    let b = Array1::from_shape_fn(dim, |_| rng.random::<f64>() * std::f64::consts::TAU);
-    let scale = (2.0 / dim as f64).sqrt();
-    let mut z = x.dot(&w);
-    for mut row in z.rows_mut() {
-        for (v, bj) in row.iter_mut().zip(b.iter()) {
-            *v = scale * (*v + bj).cos();
-        }
-    }
-    z
+    let kernel = Kernel::gaussian(1.0 / (2.0 * d as f64)).expect("positive gamma");
+    FourierMap::new(kernel, d, dim, FourierVariant::CosPhase, seed)
+        .expect("valid map")
+        .transform(x)
 }
 
 /// Row visits per second of one DCD sweep (dot + step + axpy) at D = 1,024.
