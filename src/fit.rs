@@ -77,7 +77,7 @@ impl Default for FitOptions {
             shrinking: dcd.shrinking,
             seed: 0,
             threads: 0,
-            block_rows: 65_536,
+            block_rows: 16_384,
             memory_bytes: 1 << 30,
             holdout: 0.0,
             patience: 3,

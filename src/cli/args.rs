@@ -218,7 +218,7 @@ pub struct ModelArgs {
     #[arg(long, default_value_t = 3)]
     pub patience: usize,
     /// Rows per block.
-    #[arg(long, default_value_t = 65_536)]
+    #[arg(long, default_value_t = 16_384)]
     pub block_rows: usize,
     /// Rows in the random sample (bandwidth, landmarks, noise estimate).
     #[arg(long, default_value_t = 10_000)]

@@ -119,7 +119,7 @@ impl Default for TrainSettings {
             holdout: 0.0,
             patience: 3,
             threads: 0,
-            block_rows: 65_536,
+            block_rows: 16_384,
         }
     }
 }
@@ -390,7 +390,9 @@ impl Trainer<'_> {
             };
 
             std::thread::scope(|scope| -> Result<()> {
-                let (tx, rx) = sync_channel::<Msg>(2);
+                // One mapped block in the channel, one being mapped, one being solved: memory
+                // stays near three blocks of block_rows × D values whatever the data size.
+                let (tx, rx) = sync_channel::<Msg>(1);
                 let producer = {
                     let pool = &pool;
                     let to_read = &to_read;
