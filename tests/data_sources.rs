@@ -1,6 +1,8 @@
 //! Data sources: discovery, partitions, column choice, block reading, missing values and
 //! bad input, on Parquet and CSV fixtures written from the CCPP dataset.
 
+mod common;
+
 use std::fs::{self, File};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -21,27 +23,7 @@ use parquet::arrow::ArrowWriter;
 
 const NAMES: [&str; 5] = ["AT", "V", "AP", "RH", "PE"];
 
-/// dataset: Tüfekci 2014 (CCPP, 9,568 rows: AT, V, AP, RH → PE).
-fn ccpp() -> Vec<[f64; 5]> {
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/ccpp_folds5x2_sheet1.csv");
-    let text = fs::read_to_string(path).unwrap();
-    let mut lines = text.lines();
-    assert_eq!(lines.next().unwrap().trim(), "AT,V,AP,RH,PE");
-    lines
-        .filter(|l| !l.trim().is_empty())
-        .map(|l| {
-            let v: Vec<f64> = l.split(',').map(|s| s.trim().parse().unwrap()).collect();
-            [v[0], v[1], v[2], v[3], v[4]]
-        })
-        .collect()
-}
-
-fn ccpp_path() -> String {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("tests/data/ccpp_folds5x2_sheet1.csv")
-        .to_string_lossy()
-        .into_owned()
-}
+use common::{ccpp_path, ccpp_rows as ccpp};
 
 fn write_batch(path: &Path, batch: &RecordBatch) {
     fs::create_dir_all(path.parent().unwrap()).unwrap();

@@ -1,6 +1,8 @@
 //! The survey pass and the standardizer, checked against two-pass statistics computed
 //! directly from the CCPP dataset, and the seeded sample for determinism and uniformity.
 
+mod common;
+
 use std::cell::Cell;
 use std::fs::{self, File};
 use std::path::Path;
@@ -17,26 +19,7 @@ use parquet::arrow::ArrowWriter;
 
 const NAMES: [&str; 5] = ["AT", "V", "AP", "RH", "PE"];
 
-/// dataset: Tüfekci 2014 (CCPP, 9,568 rows: AT, V, AP, RH → PE).
-fn ccpp() -> Vec<[f64; 5]> {
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/ccpp_folds5x2_sheet1.csv");
-    let text = fs::read_to_string(path).unwrap();
-    text.lines()
-        .skip(1)
-        .filter(|l| !l.trim().is_empty())
-        .map(|l| {
-            let v: Vec<f64> = l.split(',').map(|s| s.trim().parse().unwrap()).collect();
-            [v[0], v[1], v[2], v[3], v[4]]
-        })
-        .collect()
-}
-
-fn ccpp_path() -> String {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("tests/data/ccpp_folds5x2_sheet1.csv")
-        .to_string_lossy()
-        .into_owned()
-}
+use common::{ccpp_path, ccpp_rows as ccpp};
 
 fn write_parquet(path: &Path, rows: &[[f64; 5]], constant: bool) {
     fs::create_dir_all(path.parent().unwrap()).unwrap();

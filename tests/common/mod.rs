@@ -36,6 +36,22 @@ pub fn ccpp() -> (Vec<String>, Array2<f64>, Array1<f64>) {
     (header, x, y)
 }
 
+/// The CCPP file's path (dataset: Tüfekci 2014), for tests that read it as a CSV source.
+pub fn ccpp_path() -> String {
+    data_dir()
+        .join("ccpp_folds5x2_sheet1.csv")
+        .to_string_lossy()
+        .into_owned()
+}
+
+/// CCPP rows as `[AT, V, AP, RH, PE]` (dataset: Tüfekci 2014).
+pub fn ccpp_rows() -> Vec<[f64; 5]> {
+    let (_, x, y) = ccpp();
+    (0..x.nrows())
+        .map(|i| [x[[i, 0]], x[[i, 1]], x[[i, 2]], x[[i, 3]], y[i]])
+        .collect()
+}
+
 /// Friedman #1 (published: Friedman, Annals of Statistics 19 (1991), eq. for "#1"):
 /// x ~ U[0,1]^10, f = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5, y = f + N(0,1).
 /// Returns (x, noisy y, noise-free f).
