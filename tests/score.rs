@@ -14,7 +14,7 @@ use arrow_array::{
     ArrayRef, Float64Array, Int64Array, RecordBatch, RecordBatchReader, StringArray,
 };
 use arrow_schema::{DataType, Field, Schema};
-use kernlake::data::{discover, SourceFile};
+use kernlake::data::{discover, CsvOptions, SourceFile};
 use kernlake::fit::Fitter;
 use kernlake::model::Model;
 use kernlake::score::{score_batch, score_files, MissingRows, Quiet, ScoreOptions};
@@ -135,6 +135,7 @@ fn scores_equal_predict_bit_for_bit_whatever_threads_and_batches() {
             (6, 6000, 6000)
         );
         let mut preds = Vec::new();
+        let mut covs = Vec::new();
         for k in 0..6 {
             // Outputs mirror the input folders (partition folders kept).
             let p = out
@@ -147,14 +148,21 @@ fn scores_equal_predict_bit_for_bit_whatever_threads_and_batches() {
                 .as_primitive::<arrow_array::types::Int64Type>();
             assert_eq!(ids.value(0), (k * 1000) as i64);
             preds.extend(f64s(&b, "prediction").into_iter().map(Option::unwrap));
+            covs.extend(
+                f64s(&b, "coverage")
+                    .into_iter()
+                    .map(|c| c.unwrap().to_bits()),
+            );
         }
         // common practice / our contract: the same numbers as Model::predict, bit for bit
         for (i, (p, e)) in preds.iter().zip(expected.iter()).enumerate() {
             assert_eq!(p.to_bits(), e.to_bits(), "row {i}");
         }
-        runs.push(preds);
+        runs.push((preds, covs));
     }
+    // Coverage too is the same, bit for bit, whatever the threads and batch size.
     assert_eq!(runs[0], runs[1]);
+    assert_eq!(runs[0], runs[2]);
 }
 
 #[test]
@@ -560,4 +568,169 @@ fn cli_scores_files_pipes_and_refuses_a_damaged_model() {
     let err = String::from_utf8_lossy(&got.stderr);
     assert!(err.contains("broken.klm"), "{err}");
     assert!(!tmp.path().join("o9").exists());
+}
+
+/// Writes CCPP rows `lo..hi` as delimited text with the columns of [`ccpp_batch`];
+/// numbers in Rust's shortest round-trip form, so they parse back to the same bits.
+fn write_csv(path: &Path, x: &Array2<f64>, y: &Array1<f64>, lo: usize, hi: usize, sep: char) {
+    use std::fmt::Write as _;
+    std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+    let mut t = ["id", "tag", "AT", "V", "AP", "RH", "PE"].join(&sep.to_string());
+    t.push('\n');
+    for i in lo..hi {
+        write!(t, "{i}{sep}r{i}").unwrap();
+        for j in 0..4 {
+            write!(t, "{sep}{}", x[[i, j]]).unwrap();
+        }
+        writeln!(t, "{sep}{}", y[i]).unwrap();
+    }
+    std::fs::write(path, t).unwrap();
+}
+
+#[test]
+fn csv_folder_scores_like_the_same_rows_in_parquet() {
+    let model = ccpp_model();
+    let tmp = tempfile::tempdir().unwrap();
+    let (_, x, y) = lake(&tmp.path().join("lake"));
+    for k in 0..6 {
+        let p = tmp
+            .path()
+            .join("text")
+            .join(format!("site={}", k / 2 + 1))
+            .join(format!("part-{k}.csv"));
+        write_csv(&p, &x, &y, k * 1000, (k + 1) * 1000, ';');
+    }
+    let parquet = discover(&[tmp.path().join("lake").display().to_string()]).unwrap();
+    let text = discover(&[tmp.path().join("text").display().to_string()]).unwrap();
+    let out_p = tmp.path().join("out-parquet");
+    let out_t = tmp.path().join("out-text");
+    score_files(&model, &parquet, &opts(&out_p, 2, 777), &Quiet).unwrap();
+    let o = ScoreOptions {
+        csv: CsvOptions { delimiter: b';' },
+        ..opts(&out_t, 2, 777)
+    };
+    let sum = score_files(&model, &text, &o, &Quiet).unwrap();
+    assert_eq!(
+        (sum.files_scored, sum.rows_read, sum.rows_written),
+        (6, 6000, 6000)
+    );
+    for k in 0..6 {
+        let rel = PathBuf::from(format!("site={}", k / 2 + 1));
+        // Outputs mirror the folders; the CSV file's output ends in .parquet.
+        let a = read_parquet(&out_p.join(&rel).join(format!("part-{k}.parquet")));
+        let b = read_parquet(&out_t.join(&rel).join(format!("part-{k}.parquet")));
+        assert!(!out_t.join(&rel).join(format!("part-{k}.csv")).exists());
+        // dataset: Tüfekci 2014 rows; our contract: the same numbers in CSV and Parquet
+        // give the same prediction and coverage, bit for bit.
+        for name in ["prediction", "coverage"] {
+            let (pa, pb) = (f64s(&a, name), f64s(&b, name));
+            assert_eq!(pa.len(), 1000);
+            for (i, (u, v)) in pa.iter().zip(&pb).enumerate() {
+                assert_eq!(u.unwrap().to_bits(), v.unwrap().to_bits(), "{name} {k}/{i}");
+            }
+        }
+        // Kept columns travel as the file's text.
+        let ids = b.column_by_name("id").unwrap().as_string::<i32>();
+        assert_eq!(ids.value(0), (k * 1000).to_string());
+        assert_eq!(
+            b.schema().field_with_name("PE").unwrap().data_type(),
+            &DataType::Utf8
+        );
+    }
+    // A rerun finds every CSV output complete (stamped with its rows) and skips it.
+    let again = score_files(&model, &text, &o, &Quiet).unwrap();
+    assert_eq!(
+        (again.files_scored, again.files_skipped, again.rows_read),
+        (0, 6, 0)
+    );
+    // Another delimiter is another setting: everything is scored again.
+    let comma = ScoreOptions {
+        csv: CsvOptions::default(),
+        ..o.clone()
+    };
+    match score_files(&model, &text, &comma, &Quiet) {
+        Err(Error::Column { path, column, .. }) => {
+            // With ',' the header is one column named "id;tag;AT;…": AT is missing.
+            assert!(path.ends_with("site=1/part-0.csv"), "{path:?}");
+            assert_eq!(column, "AT");
+        }
+        other => panic!("expected a column error, got {other:?}"),
+    }
+
+    // The command line: --delimiter, a CSV folder in, Parquet out.
+    let mpath = tmp.path().join("m.klm");
+    model.save(&mpath).unwrap();
+    let out_c = tmp.path().join("out-cli");
+    let st = kernlake()
+        .args(["score", "-q", mpath.to_str().unwrap()])
+        .arg(tmp.path().join("text"))
+        .args(["--out", out_c.to_str().unwrap(), "--delimiter", ";"])
+        .status()
+        .unwrap();
+    assert!(st.success());
+    let a = read_parquet(&out_p.join("site=3/part-5.parquet"));
+    let c = read_parquet(&out_c.join("site=3/part-5.parquet"));
+    assert_eq!(f64s(&a, "prediction"), f64s(&c, "prediction"));
+}
+
+#[test]
+fn csv_contract_failures_name_file_and_column() {
+    let model = ccpp_model();
+    let tmp = tempfile::tempdir().unwrap();
+    let (_, x, y) = common::ccpp();
+    let dir = tmp.path().join("text");
+    // No RH column.
+    let no_rh = dir.join("no-rh.csv");
+    std::fs::create_dir_all(&dir).unwrap();
+    let mut t = String::from("id,AT,V,AP\n");
+    for i in 0..50 {
+        t.push_str(&format!("{i},{},{},{}\n", x[[i, 0]], x[[i, 1]], x[[i, 2]]));
+    }
+    std::fs::write(&no_rh, t).unwrap();
+    let out = tmp.path().join("out");
+    let file = SourceFile::open(no_rh.clone()).unwrap();
+    let err = score_files(&model, &[file], &opts(&out, 1, 16), &Quiet).unwrap_err();
+    match &err {
+        Error::Column { path, column, .. } => {
+            assert_eq!(path, &no_rh);
+            assert_eq!(column, "RH");
+        }
+        other => panic!("expected a column error, got {other:?}"),
+    }
+    // One sentence naming file and column.
+    let msg = err.to_string();
+    assert!(msg.contains("no-rh.csv") && msg.contains("'RH'"), "{msg}");
+    assert_eq!(msg.lines().count(), 1, "{msg}");
+    assert!(!out.join("no-rh.parquet").exists());
+
+    // A cell that is not a number: named by row and column; nothing under the final name.
+    let bad = dir.join("bad-cell.csv");
+    write_csv(&bad, &x, &y, 0, 40, ',');
+    let text = std::fs::read_to_string(&bad).unwrap();
+    let mut lines: Vec<String> = text.lines().map(str::to_string).collect();
+    let mut fields: Vec<&str> = lines[31].split(',').collect(); // data row 31 (1-based)
+    fields[3] = "n/a"; // V
+    lines[31] = fields.join(",");
+    std::fs::write(&bad, lines.join("\n") + "\n").unwrap();
+    let file = SourceFile::open(bad).unwrap();
+    match score_files(&model, &[file], &opts(&out, 1, 16), &Quiet) {
+        Err(Error::Cell { row, column, .. }) => assert_eq!((row, column.as_str()), (31, "V")),
+        other => panic!("expected a cell error, got {other:?}"),
+    }
+    assert!(!out.join("bad-cell.parquet").exists());
+
+    // a.csv beside a.parquet would share one output: refused before anything is written.
+    let both = tmp.path().join("both");
+    write_csv(&both.join("a.csv"), &x, &y, 0, 10, ',');
+    write_batch(&both.join("a.parquet"), &ccpp_batch(&x, &y, 0, 10));
+    let files = discover(&[both.display().to_string()]).unwrap();
+    let out2 = tmp.path().join("out2");
+    match score_files(&model, &files, &opts(&out2, 1, 16), &Quiet) {
+        Err(e @ Error::File { .. }) => {
+            let m = e.to_string();
+            assert!(m.contains("a.csv") && m.contains("a.parquet"), "{m}");
+        }
+        other => panic!("expected a file error, got {other:?}"),
+    }
+    assert!(!out2.join("a.parquet").exists());
 }

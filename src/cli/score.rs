@@ -7,7 +7,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use clap::{Args, ValueEnum};
 use indicatif::{ProgressBar, ProgressStyle};
 
-use crate::data::discover;
+use crate::data::{discover, CsvOptions};
 use crate::error::{Error, Result};
 use crate::model::Model;
 use crate::score::{
@@ -21,12 +21,13 @@ pub struct ScoreArgs {
     /// The model file.
     #[arg(value_name = "MODEL")]
     pub model: PathBuf,
-    /// Parquet files, folders (searched recursively) or glob patterns; `-` reads an
-    /// Arrow IPC stream from standard input.
+    /// Parquet or CSV files, folders (searched recursively) or glob patterns; `-` reads
+    /// an Arrow IPC stream from standard input.
     #[arg(required = true, value_name = "SOURCE")]
     pub sources: Vec<String>,
-    /// Output folder (one Parquet file per input, mirroring the input folders), or `-`
-    /// for an Arrow IPC stream on standard output.
+    /// Output folder (one Parquet file per input, mirroring the input folders; a CSV
+    /// input's output ends in .parquet), or `-` for an Arrow IPC stream on standard
+    /// output.
     #[arg(long, short = 'o', value_name = "DIR")]
     pub out: String,
     /// Input columns copied to the output, comma separated (default: every column that
@@ -54,6 +55,9 @@ pub struct ScoreArgs {
     /// Threads (0 = all cores).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
+    /// Field separator of CSV sources.
+    #[arg(long, default_value = ",", value_name = "CHAR")]
+    pub delimiter: char,
     /// Rows per batch (memory is about threads × batch rows × columns × 8 bytes).
     #[arg(long, default_value_t = 65_536)]
     pub batch_rows: usize,
@@ -87,18 +91,33 @@ impl ScoreObserver for Bar {
     }
 }
 
-fn bar(quiet: bool, rows: u64, files: usize) -> Bar {
+/// The progress bar; `rows` is `None` when some sources (CSV) have no row count before
+/// they are read: then rows and rows/s are shown without a length or ETA.
+fn bar(quiet: bool, rows: Option<u64>, files: usize) -> Bar {
     let bar = if quiet {
         ProgressBar::hidden()
     } else {
-        let b = ProgressBar::new(rows);
-        b.set_style(
-            ProgressStyle::with_template(
-                "     score [{bar:32}] {human_pos}/{human_len} rows  {per_sec}  eta {eta}  {msg}",
-            )
-            .expect("valid template")
-            .progress_chars("=> "),
-        );
+        let b = match rows {
+            Some(rows) => {
+                let b = ProgressBar::new(rows);
+                b.set_style(
+                    ProgressStyle::with_template(
+                        "     score [{bar:32}] {human_pos}/{human_len} rows  {per_sec}  eta {eta}  {msg}",
+                    )
+                    .expect("valid template")
+                    .progress_chars("=> "),
+                );
+                b
+            }
+            None => {
+                let b = ProgressBar::no_length();
+                b.set_style(
+                    ProgressStyle::with_template("     score {human_pos} rows  {per_sec}  {msg}")
+                        .expect("valid template"),
+                );
+                b
+            }
+        };
         b.set_message(format!("files 0/{files}"));
         b
     };
@@ -129,6 +148,12 @@ fn print_summary(s: &ScoreSummary) {
 
 /// Runs `kernlake score`; exits 1 when files failed under `--keep-going`.
 pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
+    if !a.delimiter.is_ascii() {
+        return Err(Error::invalid(
+            "delimiter",
+            "must be a single ASCII character",
+        ));
+    }
     let model = Model::load(&a.model)?;
     let opts = ScoreOptions {
         out_dir: PathBuf::from(&a.out),
@@ -145,6 +170,9 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
         threads: a.threads,
         overwrite: a.overwrite,
         keep_going: a.keep_going,
+        csv: CsvOptions {
+            delimiter: a.delimiter as u8,
+        },
     };
     let to_stdout = a.out == "-";
     let summary = if a.sources.iter().any(|s| s == "-") {
@@ -159,7 +187,7 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
         score_stream(&model, stdin, stdout, &opts)?
     } else {
         let files = discover(&a.sources)?;
-        let rows: u64 = files.iter().filter_map(|f| f.rows).sum();
+        let rows: Option<u64> = files.iter().map(|f| f.rows).sum();
         let progress = bar(quiet || to_stdout, rows, files.len());
         let s = if to_stdout {
             let stdout = std::io::BufWriter::new(std::io::stdout().lock());

@@ -10,7 +10,7 @@
 
 mod block;
 mod columns;
-mod csv;
+pub(crate) mod csv;
 mod open;
 mod reader;
 mod sample;

@@ -39,7 +39,7 @@ impl Format {
 }
 
 /// How delimited text files are parsed.
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, PartialEq, Eq)]
 pub struct CsvOptions {
     /// The byte separating fields (default `b','`).
     pub delimiter: u8,

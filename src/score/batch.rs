@@ -7,15 +7,14 @@ use std::sync::Arc;
 
 use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, RecordBatch};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{s, Array1, Array2, ArrayView2, ArrayViewMut1, Axis};
 use rayon::prelude::*;
 
 use super::{MissingRows, ScoreOptions, COVERAGE_COLUMN, COVERED_COLUMN};
+use crate::coverage::COVERAGE_CHUNK;
+use crate::data::csv;
 use crate::error::{Error, Result};
 use crate::model::Model;
-
-/// Rows per coverage chunk (the kernel block against the landmarks stays in cache).
-const COVERAGE_CHUNK: usize = 1024;
 
 /// Where one model input comes from in a batch.
 #[derive(Clone, Debug, PartialEq)]
@@ -35,6 +34,8 @@ pub(crate) struct Plan {
     copied: Vec<usize>,
     /// Whether coverage columns are written.
     coverage: bool,
+    /// Whether input columns hold text to parse as numbers (CSV sources).
+    text: bool,
     /// The output schema.
     schema: SchemaRef,
 }
@@ -68,6 +69,9 @@ impl Plan {
     /// the output schema. `partitions` supplies inputs missing from the schema (from
     /// `key=value` folders); `path` names the source in messages.
     ///
+    /// With `text` (CSV sources, every column `Utf8`), inputs are parsed cell by cell
+    /// when scored instead of being checked for a numeric type here.
+    ///
     /// Errors: a model input absent from the schema (and not a numeric partition value)
     /// or not numeric; a `keep` column absent; an output name that collides with a
     /// copied column; coverage asked of a model without coverage landmarks.
@@ -77,13 +81,14 @@ impl Plan {
         partitions: &[(String, String)],
         opts: &ScoreOptions,
         path: &Path,
+        text: bool,
     ) -> Result<Plan> {
         let mut inputs = Vec::with_capacity(model.columns.features.len());
         for name in &model.columns.features {
             match schema.index_of(name) {
                 Ok(i) => {
                     let dt = schema.field(i).data_type();
-                    if !is_numeric(dt) {
+                    if !text && !is_numeric(dt) {
                         return Err(column_error(
                             path,
                             name,
@@ -172,6 +177,7 @@ impl Plan {
             inputs,
             copied,
             coverage,
+            text,
             schema: Arc::new(Schema::new(fields)),
         })
     }
@@ -213,6 +219,7 @@ impl Plan {
                 .collect(),
             copied: self.copied.iter().map(|&i| pos(i)).collect(),
             coverage: self.coverage,
+            text: self.text,
             schema: self.schema.clone(),
         }
     }
@@ -238,6 +245,15 @@ pub(crate) fn score_planned(
     let mut cols: Vec<Option<Float64Array>> = Vec::with_capacity(plan.inputs.len());
     for (j, inp) in plan.inputs.iter().enumerate() {
         match *inp {
+            Input::Column(i) if plan.text => {
+                let a = batch.column(i);
+                cols.push(Some(csv::to_f64(
+                    a.as_ref(),
+                    path,
+                    &names[j],
+                    first_row + 1,
+                )?));
+            }
             Input::Column(i) => {
                 let cast = arrow_cast::cast(batch.column(i), &DataType::Float64).map_err(|e| {
                     column_error(
@@ -304,23 +320,13 @@ pub(crate) fn score_planned(
         }
     }
     let mut pred = Array1::<f64>::zeros(m);
-    model.predict_into(x.view(), pred.view_mut());
     let cov = if plan.coverage {
         let c = model.coverage.as_ref().expect("plan checked coverage");
         let mut v = Array1::<f64>::zeros(m);
-        x.axis_chunks_iter(Axis(0), COVERAGE_CHUNK)
-            .into_par_iter()
-            .zip(
-                v.axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK)
-                    .into_par_iter(),
-            )
-            .for_each(|(xc, oc)| {
-                let mut xs = xc.to_owned();
-                model.scaler.apply(xs.view_mut());
-                c.values_into(xs.view(), oc);
-            });
+        predict_covered(model, x.view(), pred.view_mut(), v.view_mut());
         Some((v, c.threshold))
     } else {
+        model.predict_into(x.view(), pred.view_mut());
         None
     };
     let uncovered = cov
@@ -382,6 +388,61 @@ pub(crate) fn score_planned(
 pub fn score_batch(model: &Model, batch: &RecordBatch, opts: &ScoreOptions) -> Result<RecordBatch> {
     opts.validate()?;
     let path = Path::new("<record batch>");
-    let plan = Plan::new(model, batch.schema().as_ref(), &[], opts, path)?;
+    let plan = Plan::new(model, batch.schema().as_ref(), &[], opts, path, false)?;
     Ok(score_planned(model, &plan, batch, opts, path, 0)?.batch)
+}
+
+/// Predictions and coverage of raw-unit rows `x` (rows × inputs, contract order) in one
+/// pass over blocks of rows on the current rayon pool: each block is predicted by
+/// [`Model::predict_into`] (so predictions equal [`Model::predict`] bit for bit), then
+/// standardized once more into a per-worker buffer for [`crate::coverage::Coverage`]
+/// while it is still in cache. Row-wise, so neither output depends on the thread count
+/// or on how rows are batched.
+///
+/// # Panics
+/// If the model stores no coverage, `x` has the wrong number of columns, or `pred` or
+/// `coverage` has the wrong length.
+#[track_caller]
+pub fn predict_covered(
+    model: &Model,
+    x: ArrayView2<f64>,
+    mut pred: ArrayViewMut1<f64>,
+    mut coverage: ArrayViewMut1<f64>,
+) {
+    let c = model
+        .coverage
+        .as_ref()
+        .expect("predict_covered: the model stores no coverage landmarks");
+    assert_eq!(
+        x.ncols(),
+        model.input_dim(),
+        "predict_covered: wrong number of input columns"
+    );
+    assert_eq!(
+        (pred.len(), coverage.len()),
+        (x.nrows(), x.nrows()),
+        "predict_covered: output lengths differ from rows"
+    );
+    let d = x.ncols();
+    x.axis_chunks_iter(Axis(0), COVERAGE_CHUNK)
+        .into_par_iter()
+        .zip(
+            pred.axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK)
+                .into_par_iter(),
+        )
+        .zip(
+            coverage
+                .axis_chunks_iter_mut(Axis(0), COVERAGE_CHUNK)
+                .into_par_iter(),
+        )
+        .for_each_init(
+            || (c.work(), Array2::<f64>::zeros((COVERAGE_CHUNK, d))),
+            |(work, buf), ((xc, pc), vc)| {
+                model.predict_into(xc, pc);
+                let mut xs = buf.slice_mut(s![..xc.nrows(), ..]);
+                xs.assign(&xc);
+                model.scaler.apply(xs.view_mut());
+                c.values_seq(xs.view(), vc, work);
+            },
+        );
 }

@@ -7,12 +7,15 @@ use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Mutex;
 use std::time::Instant;
 
-use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
+use arrow_array::RecordBatch;
+use arrow_schema::{DataType, Field, Schema};
+use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
 
 use super::batch::{score_planned, Plan};
-use super::writer::{is_complete, plan_outputs, remove_stale_temps, OutputFile, Stamp};
+use super::writer::{complete_stamp, plan_outputs, remove_stale_temps, OutputFile, Stamp};
 use super::{model_checksum, FileFailure, ScoreObserver, ScoreOptions, ScoreSummary};
+use crate::data::csv::{self, CsvBatches};
 use crate::data::{Format, SourceFile};
 use crate::error::{Error, Result};
 use crate::model::Model;
@@ -33,36 +36,91 @@ pub(crate) fn unreadable(path: &Path, e: impl std::fmt::Display) -> Error {
     }
 }
 
-/// Opens a Parquet source, checks it against the contract and returns a batch reader
-/// over the columns the plan needs, the plan for those batches and the file's rows.
+/// The batches of one open source file (only the columns a plan needs), with read errors
+/// worded for the file's format.
+pub(crate) struct SourceBatches {
+    inner: Inner,
+    path: PathBuf,
+}
+
+enum Inner {
+    Parquet(ParquetRecordBatchReader),
+    Csv(Box<CsvBatches>),
+}
+
+impl Iterator for SourceBatches {
+    type Item = Result<RecordBatch>;
+
+    fn next(&mut self) -> Option<Result<RecordBatch>> {
+        match &mut self.inner {
+            Inner::Parquet(r) => r.next().map(|b| b.map_err(|e| unreadable(&self.path, e))),
+            Inner::Csv(r) => r.next().map(|b| {
+                b.map_err(|e| Error::File {
+                    path: self.path.clone(),
+                    message: format!("could not be parsed as CSV ({e})"),
+                })
+            }),
+        }
+    }
+}
+
+/// Opens a source file (Parquet, or CSV with a header row), checks its columns against
+/// the contract and returns a batch reader over the columns the plan needs, the plan for
+/// those batches and the file's row count (from the Parquet footer; `None` for CSV,
+/// whose rows are known once read).
+///
+/// CSV cells are read as text: the model's inputs are parsed as numbers batch by batch
+/// (an unparsable cell stops the file, naming row and column), copied columns stay text.
 pub(crate) fn open_checked(
     model: &Model,
     file: &SourceFile,
     opts: &ScoreOptions,
-) -> Result<(
-    parquet::arrow::arrow_reader::ParquetRecordBatchReader,
-    Plan,
-    u64,
-)> {
-    if file.format != Format::Parquet {
-        return Err(Error::File {
-            path: file.path.clone(),
-            message: "is not a Parquet file; scoring reads Parquet files only".into(),
-        });
+) -> Result<(SourceBatches, Plan, Option<u64>)> {
+    let path = &file.path;
+    match file.format {
+        Format::Parquet => {
+            let f = File::open(path).map_err(|e| Error::io(path, e))?;
+            let builder =
+                ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(path, e))?;
+            let plan = Plan::new(model, builder.schema(), &file.partitions, opts, path, false)?;
+            let rows = u64::try_from(builder.metadata().file_metadata().num_rows()).unwrap_or(0);
+            let needed = plan.needed();
+            let mask = ProjectionMask::roots(builder.parquet_schema(), needed.iter().copied());
+            let reader = builder
+                .with_projection(mask)
+                .with_batch_size(opts.batch_rows)
+                .build()
+                .map_err(|e| unreadable(path, e))?;
+            let batches = SourceBatches {
+                inner: Inner::Parquet(reader),
+                path: path.clone(),
+            };
+            Ok((batches, plan.projected(&needed), Some(rows)))
+        }
+        Format::Csv => {
+            let header = csv::header(path, &opts.csv)?;
+            if header.is_empty() {
+                return Err(Error::File {
+                    path: path.clone(),
+                    message: "is empty (no header row), so its columns cannot be checked against the model".into(),
+                });
+            }
+            let schema = Schema::new(
+                header
+                    .iter()
+                    .map(|n| Field::new(n, DataType::Utf8, true))
+                    .collect::<Vec<_>>(),
+            );
+            let plan = Plan::new(model, &schema, &file.partitions, opts, path, true)?;
+            let needed = plan.needed();
+            let reader = csv::open(path, &header, needed.clone(), &opts.csv, opts.batch_rows)?;
+            let batches = SourceBatches {
+                inner: Inner::Csv(Box::new(reader)),
+                path: path.clone(),
+            };
+            Ok((batches, plan.projected(&needed), None))
+        }
     }
-    let f = File::open(&file.path).map_err(|e| Error::io(&file.path, e))?;
-    let builder =
-        ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(&file.path, e))?;
-    let plan = Plan::new(model, builder.schema(), &file.partitions, opts, &file.path)?;
-    let rows = u64::try_from(builder.metadata().file_metadata().num_rows()).unwrap_or(0);
-    let needed = plan.needed();
-    let mask = ProjectionMask::roots(builder.parquet_schema(), needed.iter().copied());
-    let reader = builder
-        .with_projection(mask)
-        .with_batch_size(opts.batch_rows)
-        .build()
-        .map_err(|e| unreadable(&file.path, e))?;
-    Ok((reader, plan.projected(&needed), rows))
 }
 
 /// Scores every file of `files` into `opts.out_dir`, one output per input at the input's
@@ -100,7 +158,6 @@ pub fn score_files(
     };
     remove_stale_temps(&opts.out_dir)?;
     let crc = model_checksum(model)?;
-    let settings = opts.fingerprint();
     let pool = opts.pool()?;
     let workers = pool.current_num_threads().min(files.len()).max(1);
 
@@ -124,7 +181,6 @@ pub fn score_files(
                     output: &outputs[i],
                     opts,
                     crc: &crc,
-                    settings: &settings,
                     pool: &pool,
                     stop: &stop,
                     progress,
@@ -178,7 +234,6 @@ struct FileJob<'a> {
     output: &'a Path,
     opts: &'a ScoreOptions,
     crc: &'a str,
-    settings: &'a str,
     pool: &'a rayon::ThreadPool,
     stop: &'a AtomicBool,
     progress: &'a dyn ScoreObserver,
@@ -187,17 +242,16 @@ struct FileJob<'a> {
 impl FileJob<'_> {
     fn run(&self) -> Result<Outcome> {
         let path = &self.file.path;
-        let rows = self.file.rows.unwrap_or(0);
-        let stamp = Stamp::for_input(path, rows, self.crc, self.settings)?;
-        if !self.opts.overwrite && is_complete(self.output, &stamp) {
-            self.progress.rows_done(rows);
-            return Ok(Outcome::Skipped);
+        let known = self.file.rows;
+        let settings = self.opts.fingerprint(self.file.format);
+        let stamp = Stamp::for_input(path, known.unwrap_or(0), self.crc, &settings)?;
+        if !self.opts.overwrite {
+            if let Some(done) = complete_stamp(self.output, &stamp, known.is_some()) {
+                self.progress.rows_done(done.input_rows);
+                return Ok(Outcome::Skipped);
+            }
         }
         let (reader, plan, rows) = open_checked(self.model, self.file, self.opts)?;
-        let stamp = Stamp {
-            input_rows: rows,
-            ..stamp
-        };
         let mut out = OutputFile::create(self.output, plan.schema().clone(), self.opts.batch_rows)?;
         let (mut read, mut missing, mut uncovered) = (0u64, 0u64, 0u64);
         for batch in reader {
@@ -205,7 +259,7 @@ impl FileJob<'_> {
                 // Another file failed: drop the temporary file, leave the final name.
                 return Err(Error::ScoreStopped);
             }
-            let batch = batch.map_err(|e| unreadable(path, e))?;
+            let batch = batch?;
             let scored = self
                 .pool
                 .install(|| score_planned(self.model, &plan, &batch, self.opts, path, read))?;
@@ -216,12 +270,18 @@ impl FileJob<'_> {
             uncovered += scored.uncovered;
             self.progress.rows_done(n);
         }
-        if read != rows {
-            return Err(Error::File {
-                path: path.clone(),
-                message: format!("yielded {read} rows but its footer announces {rows}"),
-            });
+        if let Some(rows) = rows {
+            if read != rows {
+                return Err(Error::File {
+                    path: path.clone(),
+                    message: format!("yielded {read} rows but its footer announces {rows}"),
+                });
+            }
         }
+        let stamp = Stamp {
+            input_rows: read,
+            ..stamp
+        };
         let written = out.commit(stamp, self.output)?;
         Ok(Outcome::Scored(read, written, missing, uncovered))
     }

@@ -1,13 +1,20 @@
-//! Batch scoring of data lakes: a fitted [`Model`] and Parquet sources in, one Parquet
-//! file per input out (mirroring the input folders), with the prediction beside the
-//! columns the user keeps, and a coverage value telling how close each row lies to the
-//! training data (see [`crate::coverage`]).
+//! Batch scoring of data lakes: a fitted [`Model`] and Parquet or CSV sources in, one
+//! Parquet file per input out (mirroring the input folders; a CSV input's output has its
+//! extension changed to `.parquet`), with the prediction beside the columns the user
+//! keeps, and a coverage value telling how close each row lies to the training data (see
+//! [`crate::coverage`]).
 //!
 //! ```text
-//! per file, files in parallel:  footer → contract check → read batches (projection)
-//!   → cast inputs to f64 → predict (+ coverage) → write under a temporary name
-//!   → stamp (input size + mtime, model CRC-32, settings, rows) → rename
+//! per file, files in parallel:  footer or header → contract check → read batches
+//!   (projection) → inputs to f64 → predict + coverage, one pass over row blocks
+//!   → write under a temporary name → stamp (input size + mtime, model CRC-32,
+//!   settings, rows) → rename
 //! ```
+//!
+//! CSV sources (header row, [`ScoreOptions::csv`] delimiter) are checked by column name
+//! before any row is read; their cells are read as text: model inputs are parsed as
+//! numbers with the same rules as fitting (an unparsable cell stops the file, naming row
+//! and column), kept columns are written as text (`Utf8`), exactly as in the file.
 //!
 //! * Contract first: a file whose schema breaks the model's input contract is refused
 //!   before any row is read, naming file and column, and nothing is written for it.
@@ -19,6 +26,7 @@
 //!   coverage run on a rayon pool of `threads`, row-wise, so results do not depend on
 //!   the thread count or batch size.
 //! * Library first: [`score_batch`] scores one Arrow batch for use inside other engines;
+//!   [`predict_covered`] gives predictions and coverage of rows in memory;
 //!   [`score_files`] scores files; [`score_stream`] and [`score_files_to_stream`] read or
 //!   write Arrow IPC streams (pipes).
 
@@ -31,11 +39,12 @@ use std::path::PathBuf;
 
 use serde::{Deserialize, Serialize};
 
-pub use batch::score_batch;
+pub use batch::{predict_covered, score_batch};
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
 pub use writer::STAMP_KEY;
 
+use crate::data::{CsvOptions, Format};
 use crate::error::{Error, Result};
 use crate::model::Model;
 
@@ -82,6 +91,8 @@ pub struct ScoreOptions {
     pub overwrite: bool,
     /// Go on with the other files after a file fails (the summary lists failures).
     pub keep_going: bool,
+    /// How CSV sources are parsed (their delimiter).
+    pub csv: CsvOptions,
 }
 
 impl Default for ScoreOptions {
@@ -97,6 +108,7 @@ impl Default for ScoreOptions {
             threads: 0,
             overwrite: false,
             keep_going: false,
+            csv: CsvOptions::default(),
         }
     }
 }
@@ -116,16 +128,20 @@ impl ScoreOptions {
         Ok(())
     }
 
-    /// The settings that shape an output file, as recorded in its stamp.
-    fn fingerprint(&self) -> String {
-        serde_json::json!({
+    /// The settings that shape the output of a file of this format, as recorded in its
+    /// stamp (the delimiter only for CSV sources).
+    fn fingerprint(&self, format: Format) -> String {
+        let mut v = serde_json::json!({
             "name": self.prediction_name,
             "keep": self.keep,
             "with_inputs": self.with_inputs,
             "coverage": self.coverage,
             "missing": self.missing,
-        })
-        .to_string()
+        });
+        if format == Format::Csv {
+            v["delimiter"] = serde_json::json!(self.csv.delimiter);
+        }
+        v.to_string()
     }
 
     /// A rayon pool of the asked size.

@@ -45,7 +45,7 @@ pub fn score_stream<R: Read, W: Write>(
     let pool = opts.pool()?;
     let path = Path::new(STDIN);
     let reader = StreamReader::try_new_buffered(input, None).map_err(|e| stream_error(STDIN, e))?;
-    let plan = Plan::new(model, reader.schema().as_ref(), &[], opts, path)?;
+    let plan = Plan::new(model, reader.schema().as_ref(), &[], opts, path, false)?;
     let mut writer =
         StreamWriter::try_new(output, plan.schema()).map_err(|e| stream_error("<output>", e))?;
     let mut summary = ScoreSummary {
@@ -123,7 +123,7 @@ pub fn score_files_to_stream<W: Write>(
             .expect("the writer starts with the first file");
         let mut read = 0u64;
         for batch in reader {
-            let batch = batch.map_err(|e| super::files::unreadable(&file.path, e))?;
+            let batch = batch?;
             let scored =
                 pool.install(|| score_planned(model, &plan, &batch, opts, &file.path, read))?;
             w.write(&scored.batch)

@@ -1,6 +1,7 @@
 //! Output files: where each goes (mirroring the inputs' folders), the stamp that proves
 //! an output complete, the atomic Parquet write, and removal of stale temporary files.
 
+use std::collections::HashMap;
 use std::fs::File;
 use std::path::{Component, Path, PathBuf};
 
@@ -12,6 +13,7 @@ use parquet::file::properties::WriterProperties;
 use serde::{Deserialize, Serialize};
 
 use crate::atomic::{is_temp_name, AtomicFile};
+use crate::data::Format;
 use crate::error::{Error, Result};
 
 /// Key of the stamp in an output file's Parquet key-value metadata.
@@ -67,30 +69,35 @@ impl Stamp {
     }
 }
 
-/// True when `output` exists, its Parquet footer reads, its stamp matches `expected`
-/// (all fields but the output row count) and its row count equals the stamped one.
-pub(crate) fn is_complete(output: &Path, expected: &Stamp) -> bool {
-    let Ok(file) = File::open(output) else {
-        return false;
-    };
-    let Ok(builder) = ParquetRecordBatchReaderBuilder::try_new(file) else {
-        return false;
-    };
+/// The stamp of `output` when the output is complete: it exists, its Parquet footer
+/// reads, its stamp matches `expected` (every field but the output row count, and the
+/// input row count only when `check_input_rows`: CSV inputs have no row count before
+/// they are read, their size and modification time identify them) and its row count
+/// equals the stamped one.
+pub(crate) fn complete_stamp(
+    output: &Path,
+    expected: &Stamp,
+    check_input_rows: bool,
+) -> Option<Stamp> {
+    let file = File::open(output).ok()?;
+    let builder = ParquetRecordBatchReaderBuilder::try_new(file).ok()?;
     let meta = builder.metadata().file_metadata();
-    let Some(stamp) = meta
+    let stamp = meta
         .key_value_metadata()
         .and_then(|kv| kv.iter().find(|k| k.key == STAMP_KEY))
         .and_then(|k| k.value.as_deref())
-        .and_then(|v| serde_json::from_str::<Stamp>(v).ok())
-    else {
-        return false;
-    };
+        .and_then(|v| serde_json::from_str::<Stamp>(v).ok())?;
     let rows = u64::try_from(meta.num_rows()).unwrap_or(u64::MAX);
-    stamp.output_rows == rows
-        && Stamp {
-            output_rows: 0,
-            ..stamp
-        } == *expected
+    let comparable = Stamp {
+        output_rows: 0,
+        input_rows: if check_input_rows {
+            stamp.input_rows
+        } else {
+            expected.input_rows
+        },
+        ..stamp.clone()
+    };
+    (stamp.output_rows == rows && comparable == *expected).then_some(stamp)
 }
 
 /// An output Parquet file being written under a temporary name.
@@ -189,10 +196,12 @@ pub(crate) fn common_root(files: &[PathBuf]) -> PathBuf {
 }
 
 /// Output paths for `inputs` under `out_dir`: each input's path relative to the inputs'
-/// common folder, below `out_dir`. Creates `out_dir`.
+/// common folder, below `out_dir`, with the extension of CSV inputs changed to
+/// `.parquet` (outputs are always Parquet). Creates `out_dir`.
 ///
-/// Errors: `out_dir` inside that common folder (one sentence naming both); `out_dir`
-/// not creatable or not writable (naming it).
+/// Errors: `out_dir` inside that common folder (one sentence naming both); two inputs
+/// that would share one output (`a.csv` beside `a.parquet`); `out_dir` not creatable or
+/// not writable (naming it).
 pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<PathBuf>> {
     let mut abs = Vec::with_capacity(inputs.len());
     for p in inputs {
@@ -210,13 +219,36 @@ pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<Pat
             ),
         ));
     }
+    let outputs: Vec<PathBuf> = abs
+        .iter()
+        .map(|p| {
+            let rel = p.strip_prefix(&root).expect("root holds every input");
+            let target = out_dir.join(rel);
+            if Format::from_path(p) == Some(Format::Csv) {
+                target.with_extension("parquet")
+            } else {
+                target
+            }
+        })
+        .collect();
+    let mut seen: HashMap<&Path, usize> = HashMap::with_capacity(outputs.len());
+    for (i, o) in outputs.iter().enumerate() {
+        if let Some(&first) = seen.get(o.as_path()) {
+            return Err(Error::File {
+                path: inputs[i].clone(),
+                message: format!(
+                    "would be scored into {}, the output of {} too; score them into different folders",
+                    o.display(),
+                    inputs[first].display()
+                ),
+            });
+        }
+        seen.insert(o, i);
+    }
     std::fs::create_dir_all(out_dir).map_err(|e| Error::io(out_dir, e))?;
     // Probe that the folder takes files (create then drop a temporary file).
     drop(AtomicFile::create(&out_dir.join("write-probe"))?);
-    Ok(abs
-        .iter()
-        .map(|p| out_dir.join(p.strip_prefix(&root).expect("root holds every input")))
-        .collect())
+    Ok(outputs)
 }
 
 /// Removes temporary files left under `dir` (recursively) by killed runs: names that
