@@ -21,22 +21,25 @@
 //!
 //! * Gaussian and Matérn (nearest neighbour by filter and refine): the squared distances
 //!   are screened through one single-precision matrix product per block of rows,
-//!   `‖x − l‖² = ‖x‖² + ‖l‖² − 2 x·l`, with a proven bound on its rounding error
-//!   (`|x̂·l̂ − x·l| ≤ (d + 2)·2⁻²⁴·‖x‖·‖l‖` for a length-d product of rounded inputs,
-//!   Higham, *Accuracy and Stability of Numerical Algorithms*, 2nd ed. 2002, §3.1); every
-//!   landmark whose screened distance lies within twice that bound of the smallest is
-//!   then measured exactly, in `f64` from explicit differences, and the smallest exact
-//!   distance is used. The nearest landmark is always among those measured, so the value
+//!   `‖x − l‖² − ‖x‖² = [x, 1]·[−2l, ‖l‖²]` (the row's own norm does not change which
+//!   landmark is nearest), with a proven bound on its rounding error: at most
+//!   `(d + 3)·2⁻²⁴·(2‖x‖‖l‖ + ‖l‖²)` for d + 1 products of rounded inputs, in any
+//!   summation order (Higham, *Accuracy and Stability of Numerical Algorithms*, 2nd ed.
+//!   2002, §3.1). Every landmark whose screened value lies within twice that bound of
+//!   the smallest is then measured exactly, in `f64` from explicit differences (usually
+//!   one), and the smallest exact distance is used. The nearest landmark is always among those measured, so the value
 //!   is the `f64` maximum of the kernel over all landmarks (up to the rounding of one
 //!   explicit distance), and it depends only on the row: the same whatever the block
 //!   size or thread count.
 //! * Laplacian: L1 distances to all landmarks by explicit differences (landmarks stored
 //!   transposed so the sweep over landmarks vectorises), then one exponential.
 //!
-//! Cost a row, with m landmarks and d inputs: about `2·d·m` single-precision flops in the
-//! product (m = 512, d = 20: 20 kflop, about half the feature map's projection at
-//! D = 1,024, at twice its rate) plus a scan of m values and a few exact distances; the
-//! Laplacian sweep costs about `3·d·m` double-precision operations.
+//! Cost a row, with m landmarks and d inputs: about `2·(d + 1)·m` single-precision flops
+//! in the product (m = 512, d = 20: 21.5 kflop, about half the feature map's projection
+//! at D = 1,024, at twice its rate), two vectorised scans of m values and a few exact
+//! distances; the Laplacian sweep costs about `3·d·m` double-precision operations. The
+//! former form (one kernel value per landmark, m exponentials a row) cost more than the
+//! feature map itself.
 
 use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, ArrayViewMut1, Axis};
 use rayon::prelude::*;
@@ -72,20 +75,40 @@ pub struct Coverage {
 /// [`Coverage::work`], so the per-block loop allocates nothing.
 #[derive(Clone, Debug)]
 pub struct CoverageWork {
-    /// Landmarks in `f32`, m × d (screening product; empty for the Laplacian kernel).
+    /// Landmarks for the screening product, `[−2·l_j, ‖l_j‖²]` in `f32`, padded with
+    /// rows that never pass the screen to a multiple of [`LANES`]: m′ × (d + 1) (empty
+    /// for the Laplacian kernel).
     l32: Array2<f32>,
     /// Landmarks transposed, d × m (Laplacian sweep; empty otherwise).
     lt: Array2<f64>,
-    /// `‖l_j‖²` in `f64`.
-    lnorm: Vec<f64>,
+    /// Number of real landmarks m.
+    m: usize,
     /// `max_j ‖l_j‖`.
     lmax: f64,
-    /// A block of rows in `f32`, [`COVERAGE_CHUNK`] × d.
+    /// A block of rows in `f32` with a last column of ones, [`COVERAGE_CHUNK`] × (d + 1).
     x32: Array2<f32>,
-    /// The block's products with the landmarks, [`COVERAGE_CHUNK`] × m.
+    /// The block's screened `‖x − l_j‖² − ‖x‖²`, [`COVERAGE_CHUNK`] × m′.
     dots: Array2<f32>,
     /// One row's L1 distances to the landmarks (Laplacian), m.
     acc: Vec<f64>,
+}
+
+/// Independent lanes of the screening scans (a multiple of every SIMD width in use, so
+/// the lane-wise minimum and comparisons compile to vector instructions).
+const LANES: usize = 8;
+
+/// Smallest value of a slice whose length is a multiple of [`LANES`], taken lane-wise
+/// (NaN never wins; all NaN or empty gives +inf).
+#[inline]
+fn lane_min(v: &[f32]) -> f32 {
+    let mut m = [f32::INFINITY; LANES];
+    for chunk in v.chunks_exact(LANES) {
+        for (a, &b) in m.iter_mut().zip(chunk) {
+            *a = if b < *a { b } else { *a };
+        }
+    }
+    m.iter()
+        .fold(f32::INFINITY, |a, &b| if b < a { b } else { a })
 }
 
 /// Squared Euclidean distance by explicit differences, summed in index order.
@@ -146,17 +169,33 @@ impl Coverage {
         let laplacian = self.kernel.kind == KernelKind::Laplacian;
         let (l32, x32, dots, lt, acc) = if laplacian {
             (
-                Array2::zeros((0, d)),
-                Array2::zeros((0, d)),
-                Array2::zeros((0, m)),
+                Array2::zeros((0, d + 1)),
+                Array2::zeros((0, d + 1)),
+                Array2::zeros((0, 0)),
                 self.landmarks.t().as_standard_layout().into_owned(),
                 vec![0.0; m],
             )
         } else {
+            let padded = m.div_ceil(LANES) * LANES;
+            // Padding rows screen as f32::MAX: never a candidate.
+            let mut l32 = Array2::<f32>::zeros((padded, d + 1));
+            l32.column_mut(d).fill(f32::MAX);
+            for ((mut row, l), &n) in l32
+                .axis_iter_mut(Axis(0))
+                .zip(self.landmarks.rows())
+                .zip(&lnorm)
+            {
+                for (a, &b) in row.iter_mut().zip(l.iter()) {
+                    *a = (-2.0 * b) as f32;
+                }
+                row[d] = n as f32;
+            }
+            let mut x32 = Array2::<f32>::zeros((COVERAGE_CHUNK, d + 1));
+            x32.column_mut(d).fill(1.0);
             (
-                self.landmarks.mapv(|v| v as f32),
-                Array2::zeros((COVERAGE_CHUNK, d)),
-                Array2::zeros((COVERAGE_CHUNK, m)),
+                l32,
+                x32,
+                Array2::zeros((COVERAGE_CHUNK, padded)),
                 Array2::zeros((d, 0)),
                 Vec::new(),
             )
@@ -164,7 +203,7 @@ impl Coverage {
         CoverageWork {
             l32,
             lt,
-            lnorm,
+            m,
             lmax,
             x32,
             dots,
@@ -194,8 +233,8 @@ impl Coverage {
             "coverage: output length differs from rows"
         );
         assert_eq!(
-            work.lnorm.len(),
-            m,
+            (work.m, work.x32.ncols()),
+            (m, d + 1),
             "coverage: work buffers made for other landmarks"
         );
         if m == 0 {
@@ -222,32 +261,34 @@ impl Coverage {
         mut oc: ArrayViewMut1<f64>,
         w: &mut CoverageWork,
     ) {
-        let n = xc.nrows();
-        let d = xc.ncols();
+        let (n, d) = xc.dim();
         let mut x32 = w.x32.slice_mut(s![..n, ..]);
-        x32.zip_mut_with(&xc, |a, &b| *a = b as f32);
+        x32.slice_mut(s![.., ..d])
+            .zip_mut_with(&xc, |a, &b| *a = b as f32);
         let mut dots = w.dots.slice_mut(s![..n, ..]);
+        // Row i, column j: [x_i, 1]·[−2·l_j, ‖l_j‖²] = ‖x_i − l_j‖² − ‖x_i‖², screened.
         ndarray::linalg::general_mat_mul(1.0f32, &x32, &w.l32.t(), 0.0f32, &mut dots);
-        // |screened − exact| ≤ 2·(d + 2)·u·‖x‖·‖l‖ (see the module docs); a margin of two
-        // more terms covers the f64 arithmetic of the screen itself.
-        let rel = 2.0 * (d as f64 + 4.0) * U32;
+        // The screen's error is at most (d + 3)·u·(2‖x‖‖l‖ + ‖l‖²) (d + 1 products of
+        // rounded inputs, module docs); one more u covers the f32 rounding of the limit.
+        let rel = (d as f64 + 4.0) * U32;
         for ((o, xr), dr) in oc.iter_mut().zip(xc.axis_iter(Axis(0))).zip(dots.rows()) {
+            let dr = dr.as_slice().expect("screen rows are contiguous");
+            let best = lane_min(dr);
             let xnorm = xr.dot(&xr).sqrt();
-            // Screened ‖x − l_j‖² − ‖x‖² (the row's own norm does not change the order).
-            let mut best = f64::INFINITY;
-            for (&p, &ln) in dr.iter().zip(&w.lnorm) {
-                let a = ln - 2.0 * f64::from(p);
-                if a < best {
-                    best = a;
-                }
-            }
-            let bound = rel * xnorm * w.lmax + 1e-15 * w.lmax * w.lmax;
-            let limit = best + 2.0 * bound;
+            let bound = rel * (2.0 * xnorm * w.lmax + w.lmax * w.lmax);
+            let limit = f64::from(best) + 2.0 * bound;
             let mut r2 = f64::INFINITY;
-            if limit.is_finite() {
-                for (j, (&p, &ln)) in dr.iter().zip(&w.lnorm).enumerate() {
-                    if ln - 2.0 * f64::from(p) <= limit {
-                        r2 = r2.min(sq_dist(xr, self.landmarks.row(j)));
+            if limit.is_finite() && limit < f64::from(f32::MAX) {
+                // Round the limit up into f32 so no candidate is lost to the conversion.
+                let lim32 = (limit + limit.abs() * 2.0 * U32) as f32;
+                for (c, chunk) in dr.chunks_exact(LANES).enumerate() {
+                    if chunk.iter().fold(false, |h, &v| h | (v <= lim32)) {
+                        for (k, &v) in chunk.iter().enumerate() {
+                            if v <= lim32 {
+                                let j = c * LANES + k;
+                                r2 = r2.min(sq_dist(xr, self.landmarks.row(j)));
+                            }
+                        }
                     }
                 }
             }
