@@ -38,10 +38,10 @@ struct Epochs;
 impl TrainObserver for Epochs {
     fn epoch_finished(&self, r: &EpochRecord) {
         eprintln!(
-            "  epoch {:>3}: {:.2} s, gap(start) {:.3e}, from memory {} blocks, holdout rmse {:?}",
+            "  epoch {:>3}: {:.2} s, gap {:.3e}, from memory {} blocks, holdout rmse {:?}",
             r.epoch,
             r.seconds,
-            r.start_objective.gap,
+            r.objective.gap,
             r.resident_blocks,
             r.holdout.map(|m| m.rmse)
         );
