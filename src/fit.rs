@@ -41,9 +41,10 @@ pub struct FitOptions {
     /// one (`Auto`), or either forced.
     #[serde(default)]
     pub method: Method,
-    /// Newton solver: expected rows in the Hessian's sample each pass.
-    #[serde(default = "default_hessian_rows")]
-    pub hessian_rows: usize,
+    /// Newton solver: expected rows in the Hessian's sample each pass; `None` = 32 rows
+    /// per mapped feature, at least 16,384 (see [`hessian_rows_for`]).
+    #[serde(default)]
+    pub hessian_rows: Option<usize>,
     /// Stop when the relative duality gap is at most this.
     pub tol: f64,
     /// Epoch limit.
@@ -68,8 +69,11 @@ pub struct FitOptions {
     pub sample_rows: usize,
 }
 
-fn default_hessian_rows() -> usize {
-    TrainSettings::default().hessian_rows
+/// The Newton solver's default Hessian sample for `features` mapped features: 32 rows per
+/// feature, at least 16,384. The sampled Gram matrix's error shrinks like √(D/m), so the
+/// sample must grow with D; its cost per pass is m·D² multiply-adds.
+pub fn hessian_rows_for(features: usize) -> usize {
+    (32 * (features + 1)).max(16_384)
 }
 
 impl Default for FitOptions {
@@ -83,7 +87,7 @@ impl Default for FitOptions {
             epsilon: None,
             loss: Loss::L2,
             method: Method::Auto,
-            hessian_rows: default_hessian_rows(),
+            hessian_rows: None,
             tol: dcd.tol,
             max_epochs: dcd.max_epochs,
             sweeps_per_block: dcd.sweeps_per_block,
@@ -144,7 +148,7 @@ impl Fitter {
         /// Solver (Newton for the squared loss by default).
         with_method, method: Method;
         /// Newton solver: expected rows in the Hessian's sample each pass.
-        with_hessian_rows, hessian_rows: usize;
+        with_hessian_rows, hessian_rows: Option<usize>;
         /// Relative duality gap tolerance.
         with_tol, tol: f64;
         /// Epoch limit.
@@ -355,7 +359,9 @@ impl Fitter {
         let settings = TrainSettings {
             dcd: dcd.clone(),
             method: o.method,
-            hessian_rows: o.hessian_rows,
+            hessian_rows: o
+                .hessian_rows
+                .unwrap_or_else(|| hessian_rows_for(map.output_dim())),
             memory_bytes: o.memory_bytes,
             holdout: o.holdout,
             patience: o.patience,

@@ -218,9 +218,10 @@ pub struct ModelArgs {
     /// Solver for the linear model in feature space.
     #[arg(long, value_enum, default_value = "auto")]
     pub solver: SolverArg,
-    /// Newton solver: rows sampled each pass to form the Hessian.
-    #[arg(long, default_value_t = 16_384)]
-    pub hessian_rows: usize,
+    /// Newton solver: rows sampled each pass to form the Hessian (default: 32 per
+    /// feature, at least 16384).
+    #[arg(long)]
+    pub hessian_rows: Option<usize>,
     /// Largest number of passes over the data.
     #[arg(long, default_value_t = 100)]
     pub epochs: usize,

@@ -474,7 +474,7 @@ impl Trainer<'_> {
                 let seed = self.settings.dcd.seed ^ SAMPLE_SALT;
                 let mut acc = state.accumulator(dcd.c, dcd.epsilon, *share, seed);
                 let resident = streamer.pass(source, &order, cache, &rows_done, &mut |mb| {
-                    acc.add_block(pool, mb.z.view(), mb.y.view(), &mb.rows);
+                    acc.add_block(Some(pool), mb.z.view(), mb.y.view(), &mb.rows);
                     Ok(())
                 })?;
                 let out = match state.step(acc)? {

@@ -89,7 +89,7 @@ pub fn fit(
     let mut converged = false;
     for _ in 0..solver.max_epochs {
         let mut acc = state.accumulator(solver.c, solver.epsilon, share, solver.seed ^ SAMPLE_SALT);
-        acc.add_block(&pool, z, ys.view(), &rows);
+        acc.add_block(Some(&pool), z, ys.view(), &rows);
         let objective = match state.step(acc)? {
             Step::Certified { objective, .. } => objective,
             Step::Moved { bound, .. } => bound,

@@ -66,6 +66,14 @@ pub(crate) struct NewtonState {
     slope: f64,
     /// The best dual value met so far (a lower bound on the optimum).
     dual: f64,
+    /// Sum of the sampled Gram matrices of the passes so far (upper triangle), when the
+    /// Hessian is sampled; each pass draws a new sample, so their average converges to
+    /// the whole data's curvature while the active set settles.
+    hess_sum: Option<Array2<f64>>,
+    /// Passes summed in `hess_sum`.
+    hess_passes: usize,
+    /// Passes gathered so far (salts each pass's sample).
+    passes: u64,
 }
 
 /// What a pass decided.
@@ -95,6 +103,17 @@ impl NewtonState {
             f0: f64::NAN,
             slope: 0.0,
             dual: 0.0,
+            hess_sum: None,
+            hess_passes: 0,
+            passes: 0,
+        }
+    }
+
+    /// A start at `w` (D + 1 entries) with no direction yet (a warm start).
+    pub fn starting_at(w: Array1<f64>) -> Self {
+        NewtonState {
+            w,
+            ..NewtonState::new(0)
         }
     }
 
@@ -126,7 +145,7 @@ impl NewtonState {
             grid,
             hess: Array2::zeros((dim + 1, dim + 1)),
             share,
-            sample_seed,
+            sample_seed: sample_seed ^ self.passes.wrapping_mul(0x9E37_79B9_7F4A_7C15),
             rows: 0,
         }
     }
@@ -137,6 +156,7 @@ impl NewtonState {
     /// [`Error::Numerical`] if the Newton system cannot be factorized (it is positive
     /// definite in exact arithmetic, so this means non-finite data reached the solver).
     pub fn step(&mut self, acc: LineAccumulator) -> Result<Step> {
+        self.passes += 1;
         let c = acc.c;
         let along = |t: f64| -> Array1<f64> {
             match &acc.dir {
@@ -179,10 +199,26 @@ impl NewtonState {
         let dual = -(0.5 * g_sum.dot(&g_sum) - acc.y_beta[k].value()
             + acc.epsilon * acc.beta_l1[k].value()
             + acc.beta_sq[k].value() / (4.0 * c));
-        self.dual = self.dual.max(dual);
+        self.dual = self.dual.max(dual).max(scaled_dual(
+            g_sum.dot(&g_sum),
+            acc.y_beta[k].value() - acc.epsilon * acc.beta_l1[k].value(),
+            acc.beta_sq[k].value() / (2.0 * c),
+        ));
         let objective = certificate(primal, self.dual);
         let grad = &w - &g_sum;
-        let dir = newton_direction(acc.hess, 2.0 * c / acc.share, &grad)?;
+        let (hess, scale) = if acc.share >= 1.0 {
+            (acc.hess, 2.0 * c)
+        } else {
+            let sum = match self.hess_sum.take() {
+                Some(s) => s + &acc.hess,
+                None => acc.hess,
+            };
+            self.hess_passes += 1;
+            let scale = 2.0 * c / (acc.share * self.hess_passes as f64);
+            self.hess_sum = Some(sum.clone());
+            (sum, scale)
+        };
+        let dir = newton_direction(hess, scale, &grad)?;
         self.slope = grad.dot(&dir);
         self.dir = Some(dir);
         self.f0 = primal;
@@ -192,6 +228,19 @@ impl NewtonState {
             support_share: acc.active[k] as f64 / acc.rows.max(1) as f64,
             step: t,
         })
+    }
+}
+
+/// The best dual value along the ray s·β, s ≥ 0: with a = ‖Σβ_i ẑ_i‖², b = yᵀβ − ε‖β‖₁
+/// and q = ‖β‖²/(2C), D(sβ) = s·b − ½s²(a + q), which peaks at s = b/(a + q) with value
+/// b²/(2(a + q)) (0 when b ≤ 0). Rescaling the duals this way turns β(w) of a point still
+/// far from the optimum into a useful lower bound (a standard dual scaling, as used for
+/// duality-gap stopping rules in first-order solvers).
+fn scaled_dual(a: f64, b: f64, q: f64) -> f64 {
+    if b > 0.0 && a + q > 0.0 {
+        0.5 * b * b / (a + q)
+    } else {
+        0.0
     }
 }
 

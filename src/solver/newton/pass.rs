@@ -69,14 +69,14 @@ fn excess(r: f64, eps: f64) -> f64 {
 
 impl LineAccumulator {
     /// Adds one block: mapped rows `z` (rows × D), standardized targets `y`, global row
-    /// ids `rows`.
+    /// ids `rows`. The chunks run on `pool`, or on the current rayon pool when `None`.
     ///
     /// # Panics
     /// If the shapes disagree with each other or with the weights.
     #[track_caller]
     pub fn add_block(
         &mut self,
-        pool: &rayon::ThreadPool,
+        pool: Option<&rayon::ThreadPool>,
         z: ArrayView2<f64>,
         y: ArrayView1<f64>,
         rows: &[usize],
@@ -95,7 +95,7 @@ impl LineAccumulator {
             bias[1] = dir[d];
         }
         let chunks = n.div_ceil(CHUNK_ROWS);
-        let parts: Vec<ChunkPart> = pool.install(|| {
+        let run = || -> Vec<ChunkPart> {
             (0..chunks)
                 .into_par_iter()
                 .map(|k| {
@@ -111,7 +111,11 @@ impl LineAccumulator {
                     )
                 })
                 .collect()
-        });
+        };
+        let parts = match pool {
+            Some(p) => p.install(run),
+            None => run(),
+        };
         let mut sampled = Vec::new();
         for p in parts {
             self.grad += &p.grad;
@@ -198,9 +202,9 @@ impl LineAccumulator {
 
 /// h[..j1, J] += a[.., ..j1]ᵀ a[.., J] for column panels J = j0..j1: the upper triangle of
 /// h += aᵀa, each panel an independent product (so the result does not depend on threads).
-fn add_gram_upper(pool: &rayon::ThreadPool, h: &mut Array2<f64>, a: ArrayView2<f64>) {
+fn add_gram_upper(pool: Option<&rayon::ThreadPool>, h: &mut Array2<f64>, a: ArrayView2<f64>) {
     let cols = h.ncols();
-    pool.install(|| {
+    let mut run = || {
         h.axis_chunks_iter_mut(Axis(1), PANEL_COLS)
             .into_par_iter()
             .enumerate()
@@ -215,5 +219,9 @@ fn add_gram_upper(pool: &rayon::ThreadPool, h: &mut Array2<f64>, a: ArrayView2<f
                     &mut panel.slice_mut(s![..j1, ..]),
                 );
             });
-    });
+    };
+    match pool {
+        Some(p) => p.install(run),
+        None => run(),
+    }
 }
