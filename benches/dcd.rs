@@ -10,6 +10,7 @@
 
 use kernlake::features::{FeatureMap, FourierMap, FourierVariant};
 use kernlake::kernel::Kernel;
+use kernlake::solver::newton;
 use kernlake::solver::dcd::{
     solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, PrimalAccumulator,
 };
@@ -232,6 +233,40 @@ fn main() {
     ] {
         if !only.is_empty() && !only.split(',').any(|p| p == format!("{loss:?}:{c}")) {
             continue;
+        }
+        if loss == Loss::L2 {
+            // The primal Newton solver (one pass per iteration), exact and sampled Hessian.
+            for hessian_rows in [usize::MAX, 2048] {
+                let settings = DcdSettings {
+                    c,
+                    epsilon: 0.05,
+                    loss,
+                    tol: 1e-9,
+                    max_epochs,
+                    seed: 7,
+                    ..DcdSettings::default()
+                };
+                let t = Instant::now();
+                let fit = newton::fit(z.view(), y.view(), &settings, hessian_rows).expect("fit");
+                let secs = t.elapsed().as_secs_f64();
+                let gaps: Vec<f64> = fit.report.history.iter().map(|o| o.gap).collect();
+                let name = if hessian_rows == usize::MAX {
+                    "newton: exact Hessian".to_string()
+                } else {
+                    format!("newton: Hessian from {hessian_rows} rows")
+                };
+                println!(
+                    "{:<5} {:>5}  {:<36} {:>8} {:>8} {:>10.2e} {:>12} {:>8.2}",
+                    format!("{loss:?}"),
+                    c,
+                    name,
+                    first_epoch_below(&gaps, 1e-3),
+                    first_epoch_below(&gaps, 1e-6),
+                    gaps.last().unwrap(),
+                    "-",
+                    secs
+                );
+            }
         }
         for v in &variants {
             if v.name.ends_with("(L1)") && loss != Loss::L1 {

@@ -10,7 +10,8 @@
 //! epochs and wall time to the gap tolerance, and the peak resident set size.
 //!
 //! `cargo bench --bench train_throughput -- [--rows N] [--components D] [--epochs E]
-//! [--tol T] [--memory BYTES] [--dir PATH]`. Without `--bench` (as under `cargo test`) it
+//! [--tol T] [--memory BYTES] [--dir PATH] [--solver auto|dual|newton] [--hessian-rows N]`.
+//! Without `--bench` (as under `cargo test`) it
 //! runs a tiny smoke configuration.
 
 use std::time::Instant;
@@ -21,7 +22,7 @@ use kernlake::features::{build_map, MapSpec};
 use kernlake::fit::{FitOptions, Fitter};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
-use kernlake::solver::blocks::{EpochRecord, TrainObserver};
+use kernlake::solver::blocks::{EpochRecord, Method, TrainObserver};
 use ndarray::Array2;
 
 fn peak_rss_mib() -> f64 {
@@ -38,10 +39,10 @@ struct Epochs;
 impl TrainObserver for Epochs {
     fn epoch_finished(&self, r: &EpochRecord) {
         eprintln!(
-            "  epoch {:>3}: {:.2} s, gap(start) {:.3e}, from memory {} blocks, holdout rmse {:?}",
+            "  epoch {:>3}: {:.2} s, gap {:.3e}, from memory {} blocks, holdout rmse {:?}",
             r.epoch,
             r.seconds,
-            r.start_objective.gap,
+            r.objective.gap,
             r.resident_blocks,
             r.holdout.map(|m| m.rmse)
         );
@@ -64,6 +65,17 @@ fn main() {
     let epochs: usize = arg(&args, "--epochs", if bench { 10 } else { 2 });
     let tol: f64 = arg(&args, "--tol", 1e-3);
     let memory: usize = arg(&args, "--memory", 64 << 20);
+    let solver: String = arg(&args, "--solver", "auto".to_string());
+    let method = match solver.as_str() {
+        "dual" => Method::Dual,
+        "newton" => Method::Newton,
+        _ => Method::Auto,
+    };
+    let hessian_rows: Option<usize> = args
+        .iter()
+        .position(|a| a == "--hessian-rows")
+        .and_then(|i| args.get(i + 1))
+        .and_then(|v| v.parse().ok());
     let tmp = tempfile::tempdir().expect("temporary folder");
     let dir = args
         .iter()
@@ -139,6 +151,8 @@ fn main() {
         holdout: 0.01,
         patience: 0,
         sweeps_per_block: 3, // as `kernlake fit` does by default
+        method,
+        hessian_rows,
         seed: 3,
         ..FitOptions::default()
     };
@@ -150,6 +164,7 @@ fn main() {
     let r = &model.report;
     let per_epoch: Vec<f64> = r.history.iter().map(|h| h.seconds).collect();
     let mean_epoch = per_epoch.iter().sum::<f64>() / per_epoch.len().max(1) as f64;
+    println!("solver                     {:?}", r.method);
     println!("rows                       {n}");
     println!("D                          {d_out}");
     println!(

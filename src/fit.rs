@@ -15,8 +15,8 @@ use crate::model::Model;
 use crate::report::{Choice, ColumnSkips, TrainingReport};
 use crate::scale::Standardizer;
 use crate::solver::blocks::{
-    ArraySource, BlockSource, Silent, TargetScale, TrainObserver, TrainOutcome, TrainSettings,
-    Trainer,
+    ArraySource, BlockSource, Method, Silent, TargetScale, TrainObserver, TrainOutcome,
+    TrainSettings, Trainer,
 };
 use crate::solver::dcd::{DcdSettings, Loss};
 use crate::tune::Defaults;
@@ -37,6 +37,14 @@ pub struct FitOptions {
     pub epsilon: Option<f64>,
     /// Loss beyond the tube.
     pub loss: Loss,
+    /// Solver: Newton passes for the squared loss, dual coordinate descent for the linear
+    /// one (`Auto`), or either forced.
+    #[serde(default)]
+    pub method: Method,
+    /// Newton solver: expected rows in the Hessian's sample each pass; `None` = 32 rows
+    /// per mapped feature, at least 16,384 (see [`hessian_rows_for`]).
+    #[serde(default)]
+    pub hessian_rows: Option<usize>,
     /// Stop when the relative duality gap is at most this.
     pub tol: f64,
     /// Epoch limit.
@@ -61,6 +69,13 @@ pub struct FitOptions {
     pub sample_rows: usize,
 }
 
+/// The Newton solver's default Hessian sample for `features` mapped features: 32 rows per
+/// feature, at least 16,384. The sampled Gram matrix's error shrinks like √(D/m), so the
+/// sample must grow with D; its cost per pass is m·D² multiply-adds.
+pub fn hessian_rows_for(features: usize) -> usize {
+    (32 * (features + 1)).max(16_384)
+}
+
 impl Default for FitOptions {
     fn default() -> Self {
         let dcd = DcdSettings::default();
@@ -71,6 +86,8 @@ impl Default for FitOptions {
             c: None,
             epsilon: None,
             loss: Loss::L2,
+            method: Method::Auto,
+            hessian_rows: None,
             tol: dcd.tol,
             max_epochs: dcd.max_epochs,
             sweeps_per_block: dcd.sweeps_per_block,
@@ -128,6 +145,10 @@ impl Fitter {
         with_map, map: MapSpec;
         /// Loss beyond the tube.
         with_loss, loss: Loss;
+        /// Solver (Newton for the squared loss by default).
+        with_method, method: Method;
+        /// Newton solver: expected rows in the Hessian's sample each pass.
+        with_hessian_rows, hessian_rows: Option<usize>;
         /// Relative duality gap tolerance.
         with_tol, tol: f64;
         /// Epoch limit.
@@ -337,6 +358,10 @@ impl Fitter {
         };
         let settings = TrainSettings {
             dcd: dcd.clone(),
+            method: o.method,
+            hessian_rows: o
+                .hessian_rows
+                .unwrap_or_else(|| hessian_rows_for(map.output_dim())),
             memory_bytes: o.memory_bytes,
             holdout: o.holdout,
             patience: o.patience,
@@ -363,6 +388,7 @@ impl Fitter {
             epsilon,
             features: map.output_dim(),
             epochs: out.history.len(),
+            method: out.method,
             stop: out.stop,
             objective: out.objective,
             holdout: out.holdout,

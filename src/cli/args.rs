@@ -10,6 +10,7 @@ use crate::features::{FourierVariant, Landmarks, MapKind, MapSpec};
 use crate::fit::FitOptions;
 use crate::kernel::KernelKind;
 use crate::solver::dcd::Loss;
+use crate::solver::blocks::Method;
 
 const ABOUT: &str =
     "Fit non-linear epsilon-insensitive support vector regression on tables larger \
@@ -72,6 +73,27 @@ pub enum MapArg {
     Orthogonal,
     /// Nyström landmarks from the sample (Williams & Seeger 2001).
     Nystrom,
+}
+
+/// Solvers on the command line.
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub enum SolverArg {
+    /// Newton passes for the squared loss, coordinate descent for the linear loss.
+    Auto,
+    /// Block minimization with dual coordinate descent (Ho & Lin 2012; Yu et al. 2010).
+    Dual,
+    /// Primal Newton passes with a sampled Hessian (squared loss only).
+    Newton,
+}
+
+impl From<SolverArg> for Method {
+    fn from(s: SolverArg) -> Self {
+        match s {
+            SolverArg::Auto => Method::Auto,
+            SolverArg::Dual => Method::Dual,
+            SolverArg::Newton => Method::Newton,
+        }
+    }
 }
 
 impl From<KernelArg> for KernelKind {
@@ -193,13 +215,20 @@ pub struct ModelArgs {
     /// Loss outside the tube: linear (l1) or squared (l2).
     #[arg(long, default_value = "l2", value_parser = ["l1", "l2"])]
     pub loss: String,
+    /// Solver for the linear model in feature space.
+    #[arg(long, value_enum, default_value = "auto")]
+    pub solver: SolverArg,
+    /// Newton solver: rows sampled each pass to form the Hessian (default: 32 per
+    /// feature, at least 16384).
+    #[arg(long)]
+    pub hessian_rows: Option<usize>,
     /// Largest number of passes over the data.
     #[arg(long, default_value_t = 100)]
     pub epochs: usize,
     /// Stop when the relative duality gap is at most this.
     #[arg(long, default_value_t = 1e-3)]
     pub tol: f64,
-    /// Coordinate-descent sweeps over each block before the next.
+    /// Dual solver: coordinate-descent sweeps over each block before the next.
     #[arg(long, default_value_t = 3)]
     pub sweeps: usize,
     /// Seed for every random choice.
@@ -344,6 +373,8 @@ impl ModelArgs {
             } else {
                 Loss::L2
             },
+            method: self.solver.into(),
+            hessian_rows: self.hessian_rows,
             tol: self.tol,
             max_epochs: self.epochs,
             sweeps_per_block: self.sweeps,

@@ -64,8 +64,8 @@ impl TrainObserver for EpochBars {
             None => "no holdout".to_string(),
         };
         eprintln!(
-            "  epoch {:>3}  gap(start) {:.2e}  {holdout}  {:.1}s  ({} blocks from memory)",
-            r.epoch, r.start_objective.gap, r.seconds, r.resident_blocks
+            "  epoch {:>3}  gap {:.2e}  {holdout}  {:.1}s  ({} blocks from memory)",
+            r.epoch, r.objective.gap, r.seconds, r.resident_blocks
         );
     }
 }

@@ -6,7 +6,7 @@ mod text;
 use serde::{Deserialize, Serialize};
 
 use crate::metrics::Metrics;
-use crate::solver::blocks::{EpochRecord, StopReason};
+use crate::solver::blocks::{EpochRecord, Method, StopReason};
 use crate::solver::dcd::Objective;
 
 pub use text::{render_model, render_training};
@@ -54,6 +54,9 @@ pub struct TrainingReport {
     pub features: usize,
     /// Epochs run.
     pub epochs: usize,
+    /// The solver that ran (`Dual` or `Newton`).
+    #[serde(default)]
+    pub method: Method,
     /// Why training stopped.
     pub stop: StopReason,
     /// Optimality certificate of the returned weights.

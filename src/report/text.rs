@@ -41,7 +41,21 @@ pub fn render_training(r: &TrainingReport) -> String {
     line(
         &mut s,
         "epochs",
-        format!("{}  (stopped: {:?})", r.epochs, r.stop).to_lowercase(),
+        format!(
+            "{}  (solver: {}; stopped: {})",
+            r.epochs,
+            match r.method {
+                crate::solver::blocks::Method::Newton => "newton",
+                crate::solver::blocks::Method::Dual => "dual",
+                crate::solver::blocks::Method::Auto => "auto",
+            },
+            match r.stop {
+                crate::solver::blocks::StopReason::Gap => "gap within tolerance",
+                crate::solver::blocks::StopReason::Holdout => "holdout stopped improving",
+                crate::solver::blocks::StopReason::MaxEpochs => "epoch limit",
+                crate::solver::blocks::StopReason::Precision => "no further decrease possible",
+            }
+        ),
     );
     line(&mut s, "primal", format!("{:.6e}", r.objective.primal));
     line(&mut s, "dual", format!("{:.6e}", r.objective.dual));

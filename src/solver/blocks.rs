@@ -1,113 +1,96 @@
-//! Out-of-core training by block minimization (Yu, Hsieh, Chang & Lin, "Large linear
-//! classification when data cannot fit in memory", KDD 2010), applied to the linear
-//! epsilon-SVR dual of Ho & Lin (JMLR 2012).
+//! Out-of-core training of linear epsilon-SVR on mapped features, with two solvers that
+//! share the streaming pass of [`crate::solver::stream`]:
 //!
-//! The data are split into *units* (a file, or a slice of an in-memory array) that are
-//! read in a seeded random order each epoch. Each unit yields blocks of rows; a block is
-//! standardized, mapped into the feature space, and then swept several times by dual
-//! coordinate descent on its own dual variables before the next block arrives. One dual
-//! variable per row (8 bytes a row) lives in [`DcdState`] for the whole run.
-//!
-//! Reading and mapping run ahead of the solver on another thread through a bounded
-//! channel; the solver consumes blocks in order on the calling thread, so the result is
-//! the same whatever the number of threads. Mapped blocks stay resident in memory while a
-//! budget allows: when the whole mapped table fits, later epochs never touch the files.
+//! * **dual** — block minimization (Yu, Hsieh, Chang & Lin, "Large linear classification
+//!   when data cannot fit in memory", KDD 2010) with dual coordinate descent on each block
+//!   (Ho & Lin, JMLR 2012). One dual variable per row (8 bytes a row) lives in
+//!   [`DcdState`] for the whole run; units are visited in a seeded random order each
+//!   epoch, and blocks (or whole small files) are gathered into sub-problems of
+//!   `block_rows` rows that are swept several times before the next arrives. Works for
+//!   both losses.
+//! * **newton** — the primal Newton method of [`crate::solver::newton`] for the squared
+//!   loss: one pass per iteration, no per-row state, a certified duality gap after every
+//!   pass.
 //!
 //! A holdout share of rows, chosen by a hash of the row's stable index (so the same rows
 //! every epoch), is never trained on and gives validation metrics after each epoch.
 //!
 //! # Optimality certificate
-//! During epoch k the primal loss of the weights the epoch *started* with is accumulated
-//! block by block, and the dual value of the duals it started with is known exactly (it is
-//! maintained incrementally). So at the end of epoch k the relative duality gap of the
-//! start-of-epoch model is exact, at the cost of one extra dot product per row. When it is
-//! within the tolerance, that certified model is returned.
+//! Dual solver: during epoch k the primal loss of the weights the epoch *started* with is
+//! accumulated block by block, and the dual value of the duals it started with is known
+//! exactly (maintained incrementally), so at the end of epoch k the relative duality gap
+//! of the start-of-epoch model is exact. Newton solver: each pass certifies the point it
+//! moves to with the dual point β(w). When the gap is within the tolerance, the certified
+//! model is returned.
 
-use std::sync::mpsc::sync_channel;
-use std::sync::Arc;
-
-use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
+use ndarray::{s, Array1, ArrayView1, ArrayView2, Axis};
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
-use crate::data::Block;
 use crate::error::{Error, Result};
 use crate::features::FeatureMap;
-use crate::metrics::{Metrics, MetricsAccumulator};
+use crate::metrics::Metrics;
 use crate::scale::Standardizer;
 use crate::solver::dcd::{solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, Objective};
+use crate::solver::newton::{NewtonState, Step, SAMPLE_SALT};
+use crate::solver::stream::{PassCache, Streamer};
 
-/// Where the trainer's rows come from: a list of units read in any order, each yielding
-/// raw blocks (unstandardized inputs and target, stable global row ids).
-pub trait BlockSource: Sync {
-    /// Number of units (files, or slices of an array).
-    fn units(&self) -> usize;
+pub use crate::solver::stream::{is_holdout, ArraySource, BlockSource, TargetScale};
 
-    /// Reads one unit, handing each of its blocks to `sink` in order.
-    fn read_unit(&self, unit: usize, sink: &mut dyn FnMut(Block) -> Result<()>) -> Result<()>;
+/// Which solver trains the linear model.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Method {
+    /// Newton for the squared loss, dual coordinate descent for the linear loss.
+    #[default]
+    Auto,
+    /// Block minimization with dual coordinate descent (either loss).
+    Dual,
+    /// Primal Newton passes (squared loss only).
+    Newton,
 }
 
-/// An in-memory table as a [`BlockSource`]: unit `u` holds rows
-/// `u·block_rows .. (u+1)·block_rows`, one block per unit, with row ids equal to row
-/// positions.
-#[derive(Debug, Clone, Copy)]
-pub struct ArraySource<'a> {
-    x: ArrayView2<'a, f64>,
-    y: ArrayView1<'a, f64>,
-    block_rows: usize,
-}
-
-impl<'a> ArraySource<'a> {
-    /// Wraps `x` (rows × inputs) and `y`.
-    ///
-    /// # Panics
-    /// If `x` and `y` differ in rows or `block_rows` is zero.
-    pub fn new(x: ArrayView2<'a, f64>, y: ArrayView1<'a, f64>, block_rows: usize) -> Self {
-        assert_eq!(x.nrows(), y.len(), "x and y differ in rows");
-        assert!(block_rows > 0, "block_rows must be positive");
-        ArraySource { x, y, block_rows }
+impl Method {
+    /// The solver `Auto` stands for with `loss`.
+    pub fn resolve(self, loss: Loss) -> Method {
+        match (self, loss) {
+            (Method::Auto, Loss::L2) => Method::Newton,
+            (Method::Auto, Loss::L1) => Method::Dual,
+            (m, _) => m,
+        }
     }
 }
 
-impl BlockSource for ArraySource<'_> {
-    fn units(&self) -> usize {
-        self.x.nrows().div_ceil(self.block_rows)
-    }
-
-    fn read_unit(&self, unit: usize, sink: &mut dyn FnMut(Block) -> Result<()>) -> Result<()> {
-        let lo = unit * self.block_rows;
-        let hi = (lo + self.block_rows).min(self.x.nrows());
-        sink(Block {
-            seq: unit as u64,
-            file_index: 0,
-            first_row: lo as u64,
-            rows: hi - lo,
-            row_ids: (lo as u64..hi as u64).collect(),
-            x: self.x.slice(s![lo..hi, ..]).to_owned(),
-            y: Some(self.y.slice(s![lo..hi]).to_owned()),
-            skipped: Vec::new(),
-        })
-    }
+fn default_hessian_rows() -> usize {
+    16_384
 }
 
 /// Settings of the streaming trainer (the solver's own settings are in [`DcdSettings`],
 /// expressed in the user's target units).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct TrainSettings {
-    /// Dual coordinate descent settings in target units (C, epsilon, loss, tolerance, …).
+    /// Solver settings in target units (C, epsilon, loss, tolerance, epochs, seed, and the
+    /// dual solver's sweeps and shrinking).
     pub dcd: DcdSettings,
+    /// Which solver runs.
+    #[serde(default)]
+    pub method: Method,
+    /// Newton solver: rows (expected) in the sample that forms the Hessian each pass; all
+    /// rows when there are fewer.
+    #[serde(default = "default_hessian_rows")]
+    pub hessian_rows: usize,
     /// Bytes of mapped blocks kept resident between epochs.
     pub memory_bytes: usize,
     /// Share of rows held out for validation, in [0, 0.5].
     pub holdout: f64,
     /// Epochs without a holdout improvement (relative 1e-4) before stopping; 0 disables.
     pub patience: usize,
-    /// Threads for reading and mapping.
+    /// Threads for reading, mapping and the Newton solver's sums.
     pub threads: usize,
-    /// Rows read (before the holdout split) gathered into one DCD sub-problem; blocks and
-    /// whole small files are grouped until they reach it.
+    /// Dual solver: rows read (before the holdout split) gathered into one sub-problem;
+    /// blocks and whole small files are grouped until they reach it.
     pub block_rows: usize,
 }
 
@@ -115,6 +98,8 @@ impl Default for TrainSettings {
     fn default() -> Self {
         TrainSettings {
             dcd: DcdSettings::default(),
+            method: Method::Auto,
+            hessian_rows: default_hessian_rows(),
             memory_bytes: 1 << 30,
             holdout: 0.0,
             patience: 3,
@@ -134,6 +119,15 @@ impl TrainSettings {
                 format!("must be a share between 0 and 0.5, got {}", self.holdout),
             ));
         }
+        if self.method == Method::Newton && self.dcd.loss == Loss::L1 {
+            return Err(Error::invalid(
+                "solver",
+                "the Newton solver needs the squared loss; use the dual solver for the linear loss",
+            ));
+        }
+        if self.hessian_rows == 0 {
+            return Err(Error::invalid("hessian rows", "must be at least 1"));
+        }
         Ok(())
     }
 }
@@ -143,12 +137,17 @@ impl TrainSettings {
 pub struct EpochRecord {
     /// One-based epoch number.
     pub epoch: usize,
-    /// Gap certificate of the weights this epoch started with.
-    pub start_objective: Objective,
+    /// Gap certificate of the epoch: for the dual solver, of the weights the epoch started
+    /// with; for the Newton solver, of the weights it moved to.
+    #[serde(alias = "start_objective")]
+    pub objective: Objective,
     /// Holdout metrics after the epoch (user units), if there is a holdout.
     pub holdout: Option<Metrics>,
-    /// Coordinate updates made in the epoch.
+    /// Dual solver: coordinate updates made in the epoch (0 for Newton).
     pub updates: u64,
+    /// Newton solver: the line-search step taken (None for the dual solver).
+    #[serde(default)]
+    pub step: Option<f64>,
     /// Wall time of the epoch in seconds (not stored in the model file).
     #[serde(skip)]
     pub seconds: f64,
@@ -166,6 +165,8 @@ pub enum StopReason {
     Holdout,
     /// The epoch limit was reached.
     MaxEpochs,
+    /// No step lowers the objective any more: optimal to working precision.
+    Precision,
 }
 
 /// What the trainer returns: weights in the user's units and the run's figures.
@@ -178,6 +179,8 @@ pub struct TrainOutcome {
     /// Gap certificate of the returned weights (target units scaled by sd²; relative gap
     /// is unit-free).
     pub objective: Objective,
+    /// The solver that ran.
+    pub method: Method,
     /// Per-epoch figures.
     pub history: Vec<EpochRecord>,
     /// Why the run stopped.
@@ -190,7 +193,7 @@ pub struct TrainOutcome {
     pub holdout: Option<Metrics>,
     /// Share of training rows that are support vectors (nonzero dual).
     pub support_share: f64,
-    /// Total coordinate updates.
+    /// Total coordinate updates (dual solver).
     pub updates: u64,
 }
 
@@ -209,44 +212,6 @@ pub trait TrainObserver: Sync {
 pub struct Silent;
 impl TrainObserver for Silent {}
 
-/// Target centring and scaling used inside the solver.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
-pub struct TargetScale {
-    /// Mean of the training target.
-    pub mean: f64,
-    /// Population standard deviation (1 when the target is constant).
-    pub sd: f64,
-}
-
-/// Is global row `row` in the holdout? A hash of the row id, fixed for the whole run
-/// (splitmix64 finalizer, Steele, Lea & Flood, OOPSLA 2014).
-pub fn is_holdout(row: u64, seed: u64, share: f64) -> bool {
-    if share <= 0.0 {
-        return false;
-    }
-    let mut z = row ^ seed.rotate_left(17) ^ 0x9E37_79B9_7F4A_7C15;
-    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-    z ^= z >> 31;
-    ((z >> 11) as f64 / (1u64 << 53) as f64) < share
-}
-
-/// A block after standardization and mapping, split into training and holdout rows.
-struct MappedBlock {
-    z: Array2<f64>,
-    y: Array1<f64>,
-    rows: Vec<usize>,
-    hold_x: Array2<f64>,
-    hold_y: Array1<f64>,
-    read_rows: u64,
-}
-
-impl MappedBlock {
-    fn bytes(&self) -> usize {
-        (self.z.len() + self.y.len() + self.rows.len() + self.hold_x.len() + self.hold_y.len()) * 8
-    }
-}
-
 /// Everything the trainer needs besides the data.
 pub struct Trainer<'a> {
     /// Input standardizer (from the survey or the in-memory data).
@@ -261,55 +226,43 @@ pub struct Trainer<'a> {
     pub rows_total: u64,
 }
 
-impl Trainer<'_> {
-    /// Standardizes, maps and splits one raw block.
-    fn prepare(&self, mut b: Block) -> Result<MappedBlock> {
-        let y_raw = b
-            .y
-            .take()
-            .ok_or_else(|| Error::NoRows("the training data has no target column".to_string()))?;
-        self.scaler.apply(b.x.view_mut());
-        let share = self.settings.holdout;
-        let seed = self.settings.dcd.seed;
-        let hold: Vec<bool> = b
-            .row_ids
-            .iter()
-            .map(|&r| is_holdout(r, seed, share))
-            .collect();
-        let n_hold = hold.iter().filter(|&&h| h).count();
-        let n_train = hold.len() - n_hold;
-        let d = b.x.ncols();
-        let mut xt = Array2::zeros((n_train, d));
-        let mut hold_x = Array2::zeros((n_hold, d));
-        let mut y = Array1::zeros(n_train);
-        let mut hold_y = Array1::zeros(n_hold);
-        let mut rows = Vec::with_capacity(n_train);
-        let (mut it, mut ih) = (0, 0);
-        for (i, &h) in hold.iter().enumerate() {
-            if h {
-                hold_x.row_mut(ih).assign(&b.x.row(i));
-                hold_y[ih] = y_raw[i];
-                ih += 1;
-            } else {
-                xt.row_mut(it).assign(&b.x.row(i));
-                y[it] = (y_raw[i] - self.target.mean) / self.target.sd;
-                rows.push(b.row_ids[i] as usize);
-                it += 1;
-            }
-        }
-        let mut z = Array2::zeros((n_train, self.map.output_dim()));
-        self.map.transform_into(xt.view(), z.view_mut());
-        Ok(MappedBlock {
-            z,
-            y,
-            rows,
-            hold_x,
-            hold_y,
-            read_rows: b.rows as u64,
-        })
-    }
+/// What one epoch of either solver produced.
+struct EpochOut {
+    objective: Objective,
+    /// The weights `objective` certifies.
+    certified: Array1<f64>,
+    /// Whether `objective` may stop the run.
+    final_ok: bool,
+    updates: u64,
+    step: Option<f64>,
+    stalled: bool,
+}
 
-    /// Runs block minimization over `source` until a stopping rule fires.
+/// The solver-specific part of an epoch.
+enum Engine {
+    Dual {
+        state: DcdState,
+        ws: BlockWorkspace,
+        rng: ChaCha8Rng,
+    },
+    Newton {
+        state: NewtonState,
+        share: f64,
+        support_share: f64,
+    },
+}
+
+impl Engine {
+    fn weights(&self) -> &Array1<f64> {
+        match self {
+            Engine::Dual { state, .. } => &state.w,
+            Engine::Newton { state, .. } => &state.w,
+        }
+    }
+}
+
+impl Trainer<'_> {
+    /// Runs the chosen solver over `source` until a stopping rule fires.
     pub fn run(
         &self,
         source: &dyn BlockSource,
@@ -322,194 +275,78 @@ impl Trainer<'_> {
             .map_err(|e| Error::invalid("threads", e.to_string()))?;
         let dcd = self.settings.dcd.in_standard_units(self.target.sd);
         let dim = self.map.output_dim();
-        let mut state = DcdState::new(dim, self.rows_total as usize);
-        let mut ws = BlockWorkspace::new();
-        let mut rng = ChaCha8Rng::seed_from_u64(self.settings.dcd.seed);
+        let method = self.settings.method.resolve(dcd.loss);
+        let streamer = Streamer {
+            scaler: self.scaler,
+            map: self.map,
+            mean: self.target.mean,
+            sd: self.target.sd,
+            holdout: self.settings.holdout,
+            seed: self.settings.dcd.seed,
+            epsilon: self.settings.dcd.epsilon,
+            pool: &pool,
+        };
+        let mut engine = match method {
+            Method::Newton => {
+                let expected = (self.rows_total as f64 * (1.0 - self.settings.holdout)).max(1.0);
+                Engine::Newton {
+                    state: NewtonState::new(dim),
+                    share: (self.settings.hessian_rows as f64 / expected).min(1.0),
+                    support_share: 0.0,
+                }
+            }
+            _ => Engine::Dual {
+                state: DcdState::new(dim, self.rows_total as usize),
+                ws: BlockWorkspace::new(),
+                rng: ChaCha8Rng::seed_from_u64(self.settings.dcd.seed),
+            },
+        };
         let units = source.units();
-        let mut resident: Vec<Option<Vec<Arc<MappedBlock>>>> = (0..units).map(|_| None).collect();
-        let mut resident_bytes = 0usize;
-        let mut holdout_x: Vec<Array2<f64>> = Vec::new();
-        let mut holdout_y: Vec<f64> = Vec::new();
+        let mut cache = PassCache::new(units, self.settings.memory_bytes);
         let mut history = Vec::new();
-        let mut rows_trained = 0u64;
-        let mut rows_read_total = 0u64;
-        let mut best: Option<(f64, Array1<f64>)> = None;
+        let mut best: Option<(f64, Array1<f64>, Option<Objective>)> = None;
         let mut since_best = 0usize;
         let mut updates_total = 0u64;
         let mut stop = StopReason::MaxEpochs;
         let mut certified: Option<(Array1<f64>, Objective)> = None;
+        let mut last: Option<(Array1<f64>, Objective)> = None;
 
         for epoch in 1..=self.settings.dcd.max_epochs {
             let t0 = std::time::Instant::now();
-            let mut order: Vec<usize> = (0..units).collect();
-            order.shuffle(&mut rng);
-            let w_start = state.w.clone();
-            let dual_start = state.dual_value(&dcd);
-            let mut loss_start = 0.0;
-            let mut updates = 0u64;
-            let mut resident_blocks = 0usize;
-            let to_read: Vec<usize> = order
-                .iter()
-                .copied()
-                .filter(|&u| resident[u].is_none())
-                .collect();
-            observer.pass_started(epoch, if epoch == 1 { 0 } else { rows_read_total });
-            let first = epoch == 1;
-
-            // Blocks are gathered into groups of at least `block_rows` rows read before
-            // the solver sees them: small files (one site, one month) then mix into one
-            // sub-problem instead of pulling the weights towards each file in turn.
-            let mut group: Vec<Arc<MappedBlock>> = Vec::new();
-            let mut group_rows = 0usize;
-            let target_rows = self.settings.block_rows.max(1);
-            let mut flush = |group: &mut Vec<Arc<MappedBlock>>,
-                             state: &mut DcdState,
-                             rng: &mut ChaCha8Rng,
-                             ws: &mut BlockWorkspace|
-             -> u64 {
-                if group.is_empty() {
-                    return 0;
-                }
-                for mb in group.iter() {
-                    loss_start += loss_sum(w_start.view(), mb.z.view(), mb.y.view(), &dcd);
-                }
-                let st = if group.len() == 1 {
-                    let mb = &group[0];
-                    solve_block(state, mb.z.view(), mb.y.view(), &mb.rows, &dcd, rng, ws)
-                } else {
-                    let zs: Vec<_> = group.iter().map(|m| m.z.view()).collect();
-                    let ys: Vec<_> = group.iter().map(|m| m.y.view()).collect();
-                    let z = ndarray::concatenate(Axis(0), &zs).expect("blocks share D");
-                    let y = ndarray::concatenate(Axis(0), &ys).expect("vectors");
-                    let rows: Vec<usize> =
-                        group.iter().flat_map(|m| m.rows.iter().copied()).collect();
-                    solve_block(state, z.view(), y.view(), &rows, &dcd, rng, ws)
-                };
-                group.clear();
-                st.updates
-            };
-
-            std::thread::scope(|scope| -> Result<()> {
-                // One mapped block in the channel, one being mapped, one being solved: memory
-                // stays near three blocks of block_rows × D values whatever the data size.
-                let (tx, rx) = sync_channel::<Msg>(1);
-                let producer = {
-                    let pool = &pool;
-                    let to_read = &to_read;
-                    scope.spawn(move || {
-                        for &u in to_read {
-                            let mut sink = |b: Block| -> Result<()> {
-                                let mb = pool.install(|| self.prepare(b))?;
-                                tx.send(Msg::Block(Box::new(mb)))
-                                    .map_err(|_| Error::Numerical("training stopped".into()))
-                            };
-                            match source.read_unit(u, &mut sink) {
-                                Ok(()) => {
-                                    if tx.send(Msg::UnitEnd).is_err() {
-                                        return;
-                                    }
-                                }
-                                Err(e) => {
-                                    let _ = tx.send(Msg::Failed(e));
-                                    return;
-                                }
-                            }
-                        }
-                    })
-                };
-                let result = (|| -> Result<()> {
-                    for &u in &order {
-                        if let Some(blocks) = &resident[u] {
-                            for mb in blocks {
-                                group.push(Arc::clone(mb));
-                                group_rows += mb.read_rows as usize;
-                                if group_rows >= target_rows {
-                                    updates += flush(&mut group, &mut state, &mut rng, &mut ws);
-                                    group_rows = 0;
-                                }
-                                observer.rows_done(mb.read_rows);
-                                resident_blocks += 1;
-                            }
-                            continue;
-                        }
-                        let mut kept: Vec<Arc<MappedBlock>> = Vec::new();
-                        let mut fits = true;
-                        loop {
-                            let next = match rx.recv() {
-                                Ok(Msg::Block(mb)) => Arc::new(*mb),
-                                Ok(Msg::UnitEnd) => break,
-                                Ok(Msg::Failed(e)) => return Err(e),
-                                Err(_) => {
-                                    return Err(Error::Numerical(
-                                        "the reading thread stopped unexpectedly".into(),
-                                    ))
-                                }
-                            };
-                            group.push(Arc::clone(&next));
-                            group_rows += next.read_rows as usize;
-                            if group_rows >= target_rows {
-                                updates += flush(&mut group, &mut state, &mut rng, &mut ws);
-                                group_rows = 0;
-                            }
-                            observer.rows_done(next.read_rows);
-                            if first {
-                                rows_trained += next.rows.len() as u64;
-                                rows_read_total += next.read_rows;
-                                holdout_x.push(next.hold_x.clone());
-                                holdout_y.extend(next.hold_y.iter());
-                            }
-                            let b = next.bytes();
-                            if fits && resident_bytes + b <= self.settings.memory_bytes {
-                                resident_bytes += b;
-                                kept.push(next);
-                            } else if fits {
-                                fits = false;
-                                for k in kept.drain(..) {
-                                    resident_bytes -= k.bytes();
-                                }
-                            }
-                        }
-                        if fits {
-                            resident[u] = Some(kept);
-                        }
-                    }
-                    updates += flush(&mut group, &mut state, &mut rng, &mut ws);
-                    Ok(())
-                })();
-                drop(rx);
-                producer.join().expect("the reading thread panicked");
-                result
-            })?;
-            updates_total += updates;
-
-            if first && rows_trained == 0 {
-                return Err(Error::NoRows(
-                    "every usable row fell in the holdout or was skipped".to_string(),
-                ));
-            }
-            let primal_start = 0.5 * w_start.dot(&w_start) + dcd.c * loss_start;
-            let start_objective = objective(primal_start, dual_start);
-            let holdout = self.holdout_metrics(&pool, state.w.view(), &holdout_x, &holdout_y);
+            observer.pass_started(epoch, if epoch == 1 { 0 } else { cache.rows_read });
+            let (out, resident_blocks) =
+                self.epoch(&mut engine, &streamer, source, &mut cache, observer, &dcd, &pool)?;
+            updates_total += out.updates;
+            let current = engine.weights().clone();
+            let holdout = streamer.holdout_metrics(current.view(), &cache);
             let record = EpochRecord {
                 epoch,
-                start_objective,
+                objective: out.objective,
                 holdout,
-                updates,
+                updates: out.updates,
+                step: out.step,
                 seconds: t0.elapsed().as_secs_f64(),
                 resident_blocks,
             };
             observer.epoch_finished(&record);
             history.push(record);
-
-            if epoch > 1 && dcd.tol > 0.0 && start_objective.gap <= dcd.tol {
-                certified = Some((w_start, start_objective));
+            let current_cert = (out.certified == current).then_some(out.objective);
+            if current_cert.is_some() {
+                last = Some((current.clone(), out.objective));
+            }
+            if out.final_ok && dcd.tol > 0.0 && out.objective.gap <= dcd.tol {
+                certified = Some((out.certified, out.objective));
                 stop = StopReason::Gap;
                 break;
             }
+            if out.stalled {
+                stop = StopReason::Precision;
+                break;
+            }
             if let Some(m) = holdout {
-                let improved = best.as_ref().is_none_or(|(b, _)| m.rmse < b * (1.0 - 1e-4));
+                let improved = best.as_ref().is_none_or(|(b, _, _)| m.rmse < b * (1.0 - 1e-4));
                 if improved {
-                    best = Some((m.rmse, state.w.clone()));
+                    best = Some((m.rmse, current, current_cert));
                     since_best = 0;
                 } else {
                     since_best += 1;
@@ -521,110 +358,220 @@ impl Trainer<'_> {
             }
         }
 
-        let (w_solver, objective) = match (stop, certified) {
-            (StopReason::Gap, Some((w, obj))) => (w, obj),
-            (StopReason::Holdout, _) => {
-                let w = best.map(|(_, w)| w).unwrap_or_else(|| state.w.clone());
-                let obj = self.evaluate(&pool, source, &resident, w.view(), &state, &dcd)?;
+        let current = engine.weights().clone();
+        let (w_solver, objective) = match (stop, certified, best) {
+            (StopReason::Gap, Some(c), _) => c,
+            (StopReason::Holdout, _, Some((_, w, Some(obj)))) => (w, obj),
+            (StopReason::Holdout, _, Some((_, w, None))) => {
+                let obj = self.evaluate(&engine, &streamer, source, &mut cache, w.view(), &dcd)?;
                 (w, obj)
             }
-            _ => {
-                let w = state.w.clone();
-                let obj = self.evaluate(&pool, source, &resident, w.view(), &state, &dcd)?;
-                (w, obj)
-            }
+            _ => match last {
+                Some((w, obj)) if w == current => (w, obj),
+                _ => {
+                    let obj = self.evaluate(
+                        &engine,
+                        &streamer,
+                        source,
+                        &mut cache,
+                        current.view(),
+                        &dcd,
+                    )?;
+                    (current, obj)
+                }
+            },
         };
-        let holdout = self.holdout_metrics(&pool, w_solver.view(), &holdout_x, &holdout_y);
+        let holdout = streamer.holdout_metrics(w_solver.view(), &cache);
         let sd = self.target.sd;
         let weights = w_solver.slice(s![..dim]).mapv(|v| v * sd);
         let intercept = self.target.mean + sd * w_solver[dim];
-        let nonzero = state.beta.iter().filter(|b| **b != 0.0).count() as f64;
+        let rows_trained = cache.rows_trained;
+        let support_share = match &engine {
+            Engine::Dual { state, .. } => {
+                let nonzero = state.beta.iter().filter(|b| **b != 0.0).count() as f64;
+                nonzero / rows_trained.max(1) as f64
+            }
+            Engine::Newton { support_share, .. } => *support_share,
+        };
         Ok(TrainOutcome {
             weights,
             intercept,
             objective,
+            method,
             history,
             stop,
             rows_trained,
-            rows_holdout: holdout_y.len() as u64,
+            rows_holdout: cache.holdout_rows(),
             holdout,
-            support_share: if rows_trained > 0 {
-                nonzero / rows_trained as f64
-            } else {
-                0.0
-            },
+            support_share,
             updates: updates_total,
         })
     }
 
-    /// Exact primal/dual certificate for `w` with the current duals (one pass; resident
-    /// blocks are not re-read). When `w` is not the duals' own weights (holdout stop), the
-    /// dual value is that of the current duals, so the gap is an upper bound.
+    /// One epoch of the engine's solver; returns its figures and the blocks served from
+    /// memory.
+    #[allow(clippy::too_many_arguments)]
+    fn epoch(
+        &self,
+        engine: &mut Engine,
+        streamer: &Streamer,
+        source: &dyn BlockSource,
+        cache: &mut PassCache,
+        observer: &dyn TrainObserver,
+        dcd: &DcdSettings,
+        pool: &rayon::ThreadPool,
+    ) -> Result<(EpochOut, usize)> {
+        let rows_done = |r: u64| observer.rows_done(r);
+        let first = cache.passes() == 0;
+        match engine {
+            Engine::Dual { state, ws, rng } => {
+                let mut order: Vec<usize> = (0..source.units()).collect();
+                order.shuffle(rng);
+                let w_start = state.w.clone();
+                let dual_start = state.dual_value(dcd);
+                let mut loss_start = 0.0;
+                let mut updates = 0u64;
+                // Blocks are gathered into groups of at least `block_rows` rows read
+                // before the solver sees them: small files (one site, one month) then
+                // mix into one sub-problem instead of pulling the weights towards each
+                // file in turn.
+                let mut group: Vec<std::sync::Arc<crate::solver::stream::MappedBlock>> =
+                    Vec::new();
+                let mut group_rows = 0usize;
+                let target_rows = self.settings.block_rows.max(1);
+                let mut flush = |group: &mut Vec<_>| {
+                    updates += solve_group(group, state, dcd, rng, ws, &mut loss_start, &w_start);
+                };
+                let resident = streamer.pass(source, &order, cache, &rows_done, &mut |mb| {
+                    group.push(std::sync::Arc::clone(mb));
+                    group_rows += mb.read_rows as usize;
+                    if group_rows >= target_rows {
+                        flush(&mut group);
+                        group_rows = 0;
+                    }
+                    Ok(())
+                })?;
+                flush(&mut group);
+                let primal = 0.5 * w_start.dot(&w_start) + dcd.c * loss_start;
+                Ok((
+                    EpochOut {
+                        objective: objective(primal, dual_start),
+                        certified: w_start,
+                        final_ok: !first,
+                        updates,
+                        step: None,
+                        stalled: false,
+                    },
+                    resident,
+                ))
+            }
+            Engine::Newton {
+                state,
+                share,
+                support_share,
+            } => {
+                let order: Vec<usize> = (0..source.units()).collect();
+                let seed = self.settings.dcd.seed ^ SAMPLE_SALT;
+                let mut acc = state.accumulator(dcd.c, dcd.epsilon, *share, seed);
+                let resident = streamer.pass(source, &order, cache, &rows_done, &mut |mb| {
+                    acc.add_block(Some(pool), mb.z.view(), mb.y.view(), &mb.rows);
+                    Ok(())
+                })?;
+                let out = match state.step(acc)? {
+                    Step::Certified {
+                        objective,
+                        support_share: s,
+                        step,
+                    } => {
+                        *support_share = s;
+                        EpochOut {
+                            objective,
+                            certified: state.w.clone(),
+                            final_ok: true,
+                            updates: 0,
+                            step: Some(step),
+                            stalled: false,
+                        }
+                    }
+                    Step::Moved { step, bound } => EpochOut {
+                        objective: bound,
+                        certified: state.w.clone(),
+                        final_ok: false,
+                        updates: 0,
+                        step: Some(step),
+                        stalled: false,
+                    },
+                    Step::Stalled { objective } => EpochOut {
+                        objective,
+                        certified: state.w.clone(),
+                        final_ok: true,
+                        updates: 0,
+                        step: Some(0.0),
+                        stalled: true,
+                    },
+                };
+                Ok((out, resident))
+            }
+        }
+    }
+
+    /// Exact primal/dual certificate for `w` (one pass; resident blocks are not re-read).
+    /// Dual solver: when `w` is not the duals' own weights (holdout stop), the dual value
+    /// is that of the current duals, so the gap is an upper bound.
     fn evaluate(
         &self,
-        pool: &rayon::ThreadPool,
+        engine: &Engine,
+        streamer: &Streamer,
         source: &dyn BlockSource,
-        resident: &[Option<Vec<Arc<MappedBlock>>>],
+        cache: &mut PassCache,
         w: ArrayView1<f64>,
-        state: &DcdState,
         dcd: &DcdSettings,
     ) -> Result<Objective> {
         let mut loss = 0.0;
-        for (u, r) in resident.iter().enumerate() {
-            match r {
-                Some(blocks) => {
-                    for mb in blocks {
-                        loss += loss_sum(w, mb.z.view(), mb.y.view(), dcd);
-                    }
-                }
-                None => source.read_unit(u, &mut |b| {
-                    let mb = pool.install(|| self.prepare(b))?;
-                    loss += loss_sum(w, mb.z.view(), mb.y.view(), dcd);
-                    Ok(())
-                })?,
-            }
-        }
-        Ok(objective(
-            0.5 * w.dot(&w) + dcd.c * loss,
-            state.dual_value(dcd),
-        ))
-    }
-
-    fn holdout_metrics(
-        &self,
-        pool: &rayon::ThreadPool,
-        w: ArrayView1<f64>,
-        xs: &[Array2<f64>],
-        ys: &[f64],
-    ) -> Option<Metrics> {
-        if ys.is_empty() {
-            return None;
-        }
-        let dim = self.map.output_dim();
-        let sd = self.target.sd;
-        let mut acc = MetricsAccumulator::new(self.settings.dcd.epsilon);
-        let mut offset = 0;
-        for x in xs {
-            if x.nrows() == 0 {
-                continue;
-            }
-            let z = pool.install(|| self.map.transform(x.view()));
-            let f = z
-                .dot(&w.slice(s![..dim]))
-                .mapv(|v| self.target.mean + sd * (v + w[dim]));
-            let y = ArrayView1::from(&ys[offset..offset + x.nrows()]);
-            acc.add(y, f.view());
-            offset += x.nrows();
-        }
-        Some(acc.finish())
+        let order: Vec<usize> = (0..source.units()).collect();
+        streamer.pass(source, &order, cache, &|_| {}, &mut |mb| {
+            loss += loss_sum(w, mb.z.view(), mb.y.view(), dcd);
+            Ok(())
+        })?;
+        let dual = match engine {
+            Engine::Dual { state, .. } => state.dual_value(dcd),
+            // β = 0 is a feasible dual point of the squared loss, with dual value 0.
+            Engine::Newton { .. } => 0.0,
+        };
+        Ok(objective(0.5 * w.dot(&w) + dcd.c * loss, dual))
     }
 }
 
-/// A message from the reading thread to the solver.
-enum Msg {
-    Block(Box<MappedBlock>),
-    UnitEnd,
-    Failed(Error),
+/// Runs the dual solver's sweeps on one group of mapped blocks, after adding the group's
+/// primal loss at the start-of-epoch weights to `loss_start`; returns the updates made.
+fn solve_group(
+    group: &mut Vec<std::sync::Arc<crate::solver::stream::MappedBlock>>,
+    state: &mut DcdState,
+    dcd: &DcdSettings,
+    rng: &mut ChaCha8Rng,
+    ws: &mut BlockWorkspace,
+    loss_start: &mut f64,
+    w_start: &Array1<f64>,
+) -> u64 {
+    if group.is_empty() {
+        return 0;
+    }
+    for mb in group.iter() {
+        *loss_start += loss_sum(w_start.view(), mb.z.view(), mb.y.view(), dcd);
+    }
+    let st = if group.len() == 1 {
+        let mb = &group[0];
+        solve_block(state, mb.z.view(), mb.y.view(), &mb.rows, dcd, rng, ws)
+    } else {
+        let zs: Vec<_> = group.iter().map(|m| m.z.view()).collect();
+        let ys: Vec<_> = group.iter().map(|m| m.y.view()).collect();
+        let z = ndarray::concatenate(Axis(0), &zs).expect("blocks share D");
+        let y = ndarray::concatenate(Axis(0), &ys).expect("vectors");
+        let rows: Vec<usize> = group.iter().flat_map(|m| m.rows.iter().copied()).collect();
+        solve_block(state, z.view(), y.view(), &rows, dcd, rng, ws)
+    };
+    group.clear();
+    st.updates
 }
 
 fn objective(primal: f64, dual: f64) -> Objective {

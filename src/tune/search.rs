@@ -1,7 +1,8 @@
 //! The sample split into validation folds, and one candidate's training on one fold:
-//! dual coordinate descent (Ho & Lin, JMLR 2012) on the fold's mapped training rows,
-//! resumable epoch by epoch so that successive halving can extend a run, and startable
-//! from another run's duals (warm start along C).
+//! primal Newton passes for the squared loss ([`crate::solver::newton`]) or dual
+//! coordinate descent (Ho & Lin, JMLR 2012) for the linear loss, on the fold's mapped
+//! training rows, resumable epoch by epoch so that successive halving can extend a run,
+//! and startable from another run's solution (warm start along C).
 
 use std::ops::Range;
 
@@ -16,6 +17,10 @@ use crate::features::FeatureMap;
 use crate::solver::dcd::{
     solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, PrimalAccumulator,
 };
+use crate::solver::newton::{NewtonState, Step, SAMPLE_SALT};
+
+/// Rows (expected) in the sample that forms each Newton pass's Hessian on a fold.
+const HESSIAN_ROWS: usize = 4_096;
 
 use super::options::{Validation, MIN_FOLD_ROWS};
 
@@ -127,7 +132,9 @@ impl FoldData {
 #[derive(Clone, Debug)]
 pub(crate) struct Run {
     state: DcdState,
+    newton: Option<NewtonState>,
     rng: ChaCha8Rng,
+    seed: u64,
     /// Epochs run on this fold (a warm start's inherited epochs not counted).
     pub epochs: usize,
     /// The relative duality gap reached `tol`.
@@ -139,9 +146,19 @@ impl Run {
     pub fn cold(fold: &FoldData, seed: u64) -> Run {
         Run {
             state: DcdState::new(fold.z_train.ncols(), fold.z_train.nrows()),
+            newton: None,
             rng: ChaCha8Rng::seed_from_u64(seed),
+            seed,
             epochs: 0,
             converged: false,
+        }
+    }
+
+    /// The current weights (D + 1, the last the bias), in the fold's standardized units.
+    fn weights(&self) -> &Array1<f64> {
+        match &self.newton {
+            Some(n) => &n.w,
+            None => &self.state.w,
         }
     }
 
@@ -153,12 +170,19 @@ impl Run {
             Loss::L2 => true,
             Loss::L1 => prev.state.beta.iter().all(|b| b.abs() <= std.c),
         };
-        if !feasible || !prev.state.w.iter().all(|v| v.is_finite()) {
+        if !feasible || !prev.weights().iter().all(|v| v.is_finite()) {
             return Run::cold(fold, seed);
+        }
+        if settings.loss == Loss::L2 {
+            let mut run = Run::cold(fold, seed);
+            run.newton = Some(NewtonState::starting_at(prev.weights().clone()));
+            return run;
         }
         Run {
             state: prev.state.clone(),
+            newton: None,
             rng: ChaCha8Rng::seed_from_u64(seed),
+            seed,
             epochs: 0,
             converged: false,
         }
@@ -167,6 +191,30 @@ impl Run {
     /// Runs epochs until `budget` epochs have run or the gap reaches `tol`.
     pub fn advance(&mut self, fold: &FoldData, settings: &DcdSettings, budget: usize) {
         let std = settings.in_standard_units(fold.sd);
+        if std.loss == Loss::L2 {
+            let d = fold.z_train.ncols();
+            let share = (HESSIAN_ROWS as f64 / fold.z_train.nrows().max(1) as f64).min(1.0);
+            let newton = self.newton.get_or_insert_with(|| NewtonState::new(d));
+            while self.epochs < budget && !self.converged {
+                let mut acc = newton.accumulator(std.c, std.epsilon, share, self.seed ^ SAMPLE_SALT);
+                acc.add_block(None, fold.z_train.view(), fold.y_train.view(), &fold.index);
+                self.epochs += 1;
+                let gap = match newton.step(acc) {
+                    Ok(Step::Certified { objective, .. }) => objective.gap,
+                    Ok(Step::Moved { bound, .. }) => bound.gap,
+                    Ok(Step::Stalled { objective }) => {
+                        self.converged = objective.gap <= std.tol;
+                        break;
+                    }
+                    Err(_) => break,
+                };
+                if !gap.is_finite() {
+                    break;
+                }
+                self.converged = gap <= std.tol;
+            }
+            return;
+        }
         let mut ws = BlockWorkspace::with_cache_rows(0);
         while self.epochs < budget && !self.converged {
             solve_block(
@@ -192,8 +240,8 @@ impl Run {
     /// Sum of squared validation errors in target units (NaN if the run diverged).
     pub fn validation_sse(&self, fold: &FoldData) -> f64 {
         let d = fold.z_val.ncols();
-        let w = self.state.w.slice(s![..d]);
-        let b = self.state.w[d];
+        let w = self.weights().slice(s![..d]);
+        let b = self.weights()[d];
         fold.z_val
             .rows()
             .into_iter()

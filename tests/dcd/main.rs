@@ -3,6 +3,7 @@
 //! unit conversion of C and epsilon, on open datasets and Friedman #1.
 
 mod qp;
+mod newton;
 mod support;
 
 use kernlake::solver::dcd::{

@@ -122,6 +122,16 @@ pub fn tight(c: f64, epsilon: f64, loss: Loss) -> DcdSettings {
 
 pub fn check_against_qp(z: ArrayView2<f64>, y: ArrayView1<f64>, set: &DcdSettings) {
     let fitted = fit(z, y, set, z.nrows()).expect("fit");
+    check_fit_against_qp(z, y, set, &fitted);
+}
+
+/// The checks of [`check_against_qp`] for a fit made by any solver.
+pub fn check_fit_against_qp(
+    z: ArrayView2<f64>,
+    y: ArrayView1<f64>,
+    set: &DcdSettings,
+    fitted: &kernlake::solver::dcd::DcdFit,
+) {
     assert!(fitted.report.converged, "gap {:?}", fitted.report.objective);
     let (qp_value, qw, qb) = qp_reference(z, y, set);
     let ours = user_primal(z, y, fitted.weights.view(), fitted.intercept, set);
