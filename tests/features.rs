@@ -103,6 +103,47 @@ fn fast_cosine_scales_and_handles_huge_and_non_finite_inputs() {
     assert_eq!(z[0], 0.0);
 }
 
+#[test]
+fn shifted_fast_cosine_matches_std_of_the_sum() {
+    // Products w.x and phases b in the ranges a feature map meets, plus a few beyond 1e6.
+    let mut rng = ChaCha8Rng::seed_from_u64(12);
+    let n = 400_003;
+    let mut xs: Vec<f64> = (0..n).map(|_| rng.random_range(-60.0..60.0)).collect();
+    let bs: Vec<f64> = (0..n)
+        .map(|_| rng.random_range(0.0..std::f64::consts::TAU))
+        .collect();
+    xs[17] = 3.0e7;
+    xs[n - 2] = -2.0e9;
+    let scale = (2.0f64 / 1024.0).sqrt();
+    for path in paths() {
+        let mut ys = xs.clone();
+        fastcos::eval_shifted_with(path, &mut ys, &bs, scale);
+        let mut worst = 0.0f64;
+        for ((x, b), y) in xs.iter().zip(&bs).zip(&ys) {
+            worst = worst.max((y - scale * (x + b).cos()).abs());
+        }
+        println!("{path:?} shifted: max abs error vs std {worst:.3e}");
+        // reference library: Rust std f64::cos of the rounded sum; documented bound
+        // 1e-15 (times the scale, which is at most 1).
+        assert!(worst <= 1e-15 * scale, "{path:?}: {worst:e}");
+        // The shift is the plain rounded sum: same bits as shifting first (common practice).
+        let mut zs: Vec<f64> = xs.iter().zip(&bs).map(|(x, b)| x + b).collect();
+        fastcos::eval_with(path, &mut zs, scale, false);
+        assert_eq!(bits_of(&ys), bits_of(&zs), "{path:?}");
+    }
+}
+
+fn bits_of(v: &[f64]) -> Vec<u64> {
+    v.iter().map(|x| x.to_bits()).collect()
+}
+
+#[test]
+#[should_panic(expected = "shifts")]
+fn shifted_cosine_length_mismatch_panics() {
+    let mut xs = [0.0; 5];
+    fastcos::cos_shifted_in_place(&mut xs, &[0.0; 4], 1.0);
+}
+
 // ---------------------------------------------------------------- random Fourier features
 
 #[test]

@@ -17,8 +17,9 @@
 //! with 2ν degrees of freedom and scale `1/ℓ`, sampled as `z·√(2ν/u)/ℓ` with
 //! `z ~ N(0, I)`, `u ~ χ²(2ν)`.
 //!
-//! The transform is a matrix product `XW` written straight into the output block, then
-//! the phase and the vectorised cosine of [`super::fastcos`] in place.
+//! The transform is a matrix product `XW` written straight into a cache-sized output
+//! chunk, then one in-place pass of the vectorised cosine of [`super::fastcos`] over that
+//! chunk, which adds the phase and applies the scale `√(2/D)` as it goes.
 
 use ndarray::{s, Array1, Array2, ArrayView2, ArrayViewMut2, Axis};
 use rand::{Rng, SeedableRng};
@@ -195,7 +196,8 @@ impl FourierMap {
         ))
     }
 
-    /// Maps one chunk: product into `out`, then phase and cosine (or the sin/cos pair).
+    /// Maps one chunk: product into `out`, then one pass of phase + cosine + scale (or the
+    /// sin/cos pair).
     fn map_chunk(&self, xc: ArrayView2<f64>, mut out: ArrayViewMut2<f64>) {
         let m = self.freqs.ncols();
         let scale = self.scale;
@@ -207,12 +209,9 @@ impl FourierMap {
                     .as_ref()
                     .and_then(|p| p.as_slice())
                     .expect("cos + phase map without contiguous phases");
-                for_each_row_slice(out, |row| {
-                    for (v, b) in row.iter_mut().zip(phases) {
-                        *v += b;
-                    }
-                    fastcos::cos_in_place(row, scale);
-                });
+                // One pass per row, right after the chunk's product while it is in cache:
+                // phase, cosine and scale together.
+                for_each_row_slice(out, |row| fastcos::cos_shifted_in_place(row, phases, scale));
             }
             FourierVariant::SinCos => {
                 {
