@@ -283,41 +283,76 @@ unsafe fn apply_avx2<const SIN: bool, const SHIFT: bool>(
     let len = xs.len();
     let quads = len / 4 * 4;
     let xp = xs.as_mut_ptr();
+    // One group of four values, `$y` already shifted and within LIMIT.
+    macro_rules! quad {
+        ($y:expr) => {{
+            let y = $y;
+            let shifted = if SIN {
+                _mm256_fmadd_pd(y, inv_pi, magic)
+            } else {
+                _mm256_add_pd(_mm256_fmsub_pd(y, inv_pi, half), magic)
+            };
+            let n = _mm256_sub_pd(shifted, magic);
+            let h = if SIN { n } else { _mm256_add_pd(n, half) };
+            let r = _mm256_fnmadd_pd(h, pi_a, y);
+            let r = _mm256_fnmadd_pd(h, pi_b, r);
+            let s = _mm256_mul_pd(r, r);
+            let mut p = _mm256_set1_pd(SIN_P[7]);
+            for c in [6, 5, 4, 3, 2, 1, 0] {
+                p = _mm256_fmadd_pd(p, s, _mm256_set1_pd(SIN_P[c]));
+            }
+            let v = _mm256_mul_pd(_mm256_fmadd_pd(_mm256_mul_pd(r, s), p, r), k);
+            let flip = _mm256_slli_epi64::<63>(_mm256_castpd_si256(shifted));
+            _mm256_castsi256_pd(_mm256_xor_si256(_mm256_castpd_si256(v), flip))
+        }};
+    }
+    // Loads four values at offset `$i`, adding the shift.
+    macro_rules! load {
+        ($i:expr) => {{
+            let y = _mm256_loadu_pd(xp.add($i));
+            if SHIFT {
+                _mm256_add_pd(y, _mm256_loadu_pd(shift.as_ptr().add($i)))
+            } else {
+                y
+            }
+        }};
+    }
+    // Lanes beyond LIMIT (NaN compares false and goes through the polynomial, which
+    // returns NaN).
+    macro_rules! big {
+        ($y:expr) => {
+            _mm256_cmp_pd::<_CMP_GT_OQ>(_mm256_and_pd($y, abs_mask), limit)
+        };
+    }
     let mut i = 0;
+    // SAFETY (all loads and stores below): every offset + 4 <= quads <= len, and
+    // shift.len() == len when SHIFT.
     while i < quads {
-        // SAFETY: i + 4 <= len = shift.len() (when SHIFT).
-        let ptr = xp.add(i);
-        let mut y = _mm256_loadu_pd(ptr);
-        if SHIFT {
-            y = _mm256_add_pd(y, _mm256_loadu_pd(shift.as_ptr().add(i)));
+        // Sixteen values per step: four independent chains keep both FMA pipes busy.
+        if i + 16 <= quads {
+            let (y0, y1, y2, y3) = (load!(i), load!(i + 4), load!(i + 8), load!(i + 12));
+            let any = _mm256_or_pd(
+                _mm256_or_pd(big!(y0), big!(y1)),
+                _mm256_or_pd(big!(y2), big!(y3)),
+            );
+            if _mm256_movemask_pd(any) == 0 {
+                let (o0, o1, o2, o3) = (quad!(y0), quad!(y1), quad!(y2), quad!(y3));
+                _mm256_storeu_pd(xp.add(i), o0);
+                _mm256_storeu_pd(xp.add(i + 4), o1);
+                _mm256_storeu_pd(xp.add(i + 8), o2);
+                _mm256_storeu_pd(xp.add(i + 12), o3);
+                i += 16;
+                continue;
+            }
         }
-        // NaN compares false and goes through the polynomial, which returns NaN.
-        let big = _mm256_cmp_pd::<_CMP_GT_OQ>(_mm256_and_pd(y, abs_mask), limit);
-        if _mm256_movemask_pd(big) != 0 {
+        let y = load!(i);
+        if _mm256_movemask_pd(big!(y)) != 0 {
             let mut ys = [0.0; 4];
             _mm256_storeu_pd(ys.as_mut_ptr(), y);
-            slow::<SIN>(&ys, std::slice::from_raw_parts_mut(ptr, 4), scale);
-            i += 4;
-            continue;
-        }
-        let shifted = if SIN {
-            _mm256_fmadd_pd(y, inv_pi, magic)
+            slow::<SIN>(&ys, std::slice::from_raw_parts_mut(xp.add(i), 4), scale);
         } else {
-            _mm256_add_pd(_mm256_fmsub_pd(y, inv_pi, half), magic)
-        };
-        let n = _mm256_sub_pd(shifted, magic);
-        let h = if SIN { n } else { _mm256_add_pd(n, half) };
-        let r = _mm256_fnmadd_pd(h, pi_a, y);
-        let r = _mm256_fnmadd_pd(h, pi_b, r);
-        let s = _mm256_mul_pd(r, r);
-        let mut p = _mm256_set1_pd(SIN_P[7]);
-        for c in [6, 5, 4, 3, 2, 1, 0] {
-            p = _mm256_fmadd_pd(p, s, _mm256_set1_pd(SIN_P[c]));
+            _mm256_storeu_pd(xp.add(i), quad!(y));
         }
-        let v = _mm256_mul_pd(_mm256_fmadd_pd(_mm256_mul_pd(r, s), p, r), k);
-        let flip = _mm256_slli_epi64::<63>(_mm256_castpd_si256(shifted));
-        let out = _mm256_castsi256_pd(_mm256_xor_si256(_mm256_castpd_si256(v), flip));
-        _mm256_storeu_pd(ptr, out);
         i += 4;
     }
     for j in quads..len {
