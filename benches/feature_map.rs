@@ -93,12 +93,14 @@ fn cosine(c: &mut Criterion) {
                 fastcos::eval_with(path, &mut buf, 1.0, false);
             })
         });
-        g.bench_function(format!("fast_shifted_{path:?}"), |b| {
-            b.iter(|| {
-                buf.copy_from_slice(&xs);
-                fastcos::eval_shifted_with(path, &mut buf, &phases, 0.5);
-            })
-        });
+        for (name, sine) in [("cos", false), ("sin", true)] {
+            g.bench_function(format!("fast_shifted_{name}_{path:?}"), |b| {
+                b.iter(|| {
+                    buf.copy_from_slice(&xs);
+                    fastcos::eval_shifted_with(path, &mut buf, &phases, 0.5, sine);
+                })
+            });
+        }
         g.bench_function(format!("fast_sin_{path:?}"), |b| {
             b.iter(|| {
                 buf.copy_from_slice(&xs);
