@@ -358,9 +358,9 @@ unsafe fn apply_avx2<const SIN: bool, const SHIFT: bool>(
         }
         i += 4;
     }
-    for j in quads..len {
-        let v = &mut *xp.add(j);
-        let y = if SHIFT { *v + shift[j] } else { *v };
+    let tail = std::slice::from_raw_parts_mut(xp.add(quads), len - quads);
+    for (j, v) in tail.iter_mut().enumerate() {
+        let y = if SHIFT { *v + shift[quads + j] } else { *v };
         *v = accurate::<true, SIN>(y, scale);
     }
 }
