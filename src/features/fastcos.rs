@@ -9,9 +9,10 @@
 //!    with the magic constant `1.5·2⁵²` so that the parity of the rounded integer is read
 //!    from the low bit of its bit pattern (no integer conversion, no branch);
 //! 2. `r = x − h·π ∈ [−π/2, π/2]`, with π split in two parts (`PI_A` with 31 significant
-//!    bits, so `h·PI_A` and `x − h·PI_A` are exact for `|h| < 2²¹`, then `PI_B`;
-//!    `PI_A + PI_B` is π within `7·10⁻²⁷`): the one rounding falls on `r` itself, where
-//!    it is damped by `|cos r|`;
+//!    bits, so `h·PI_A` is exact for `|h| < 2²¹` and so is `x − h·PI_A` for `|x| ≥ 1`,
+//!    then `PI_B`; `PI_A + PI_B` is π within `7·10⁻²⁷`): the rounding falls on `r`
+//!    itself, where its effect is damped by `|cos r|` (for `|x| < 1` the cosine's
+//!    `x − ½PI_A` is rounded near `|r| = π/2`, where `sin r` is flat);
 //! 3. `cos x = ∓sin r`, `sin x = ±sin r`, the sign from the parity of the rounded integer;
 //! 4. `sin r = r + r³·P(r²)` with `P` of degree 7: the Chebyshev interpolant of
 //!    `(sin r − r)/r³` in `r²` on `|r| ≤ 1.5708` (Chebyshev economisation; Fox & Parker,
@@ -21,7 +22,8 @@
 //!
 //! The output scale and an optional per-value shift (the phase of a random Fourier
 //! feature, added on load) are applied in the same pass, so a feature map needs one pass
-//! over its product.
+//! over its product. The AVX2 path works on sixteen values per step (four independent
+//! dependency chains).
 //!
 //! Inputs with `|x| > 10⁶` or infinite are handed to the standard library (with their
 //! neighbours, in groups of four on the AVX2 path), so every input gets an accurate
