@@ -1,6 +1,7 @@
 //! Feature-map throughput (rows/s) next to the bare matrix product of the same shape and
 //! chunked layout, d = 20, D = 1,024 and 4,096, on 1 and 2 threads; and the cosine alone
-//! (values/s) for the standard library and both code paths of the fast cosine.
+//! (values/s) for the standard library and both code paths of the fast cosine (plain,
+//! with a per-value shift as the cos + phase map uses it) and sine.
 
 use std::time::Duration;
 
@@ -82,11 +83,28 @@ fn cosine(c: &mut Criterion) {
     if fastcos::detected_path() == CosPath::Avx2Fma {
         paths.push(CosPath::Avx2Fma);
     }
+    let phases: Vec<f64> = (0..n)
+        .map(|_| rng.random_range(0.0..std::f64::consts::TAU))
+        .collect();
     for path in paths {
         g.bench_function(format!("fast_{path:?}"), |b| {
             b.iter(|| {
                 buf.copy_from_slice(&xs);
                 fastcos::eval_with(path, &mut buf, 1.0, false);
+            })
+        });
+        for (name, sine) in [("cos", false), ("sin", true)] {
+            g.bench_function(format!("fast_shifted_{name}_{path:?}"), |b| {
+                b.iter(|| {
+                    buf.copy_from_slice(&xs);
+                    fastcos::eval_shifted_with(path, &mut buf, &phases, 0.5, sine);
+                })
+            });
+        }
+        g.bench_function(format!("fast_sin_{path:?}"), |b| {
+            b.iter(|| {
+                buf.copy_from_slice(&xs);
+                fastcos::eval_with(path, &mut buf, 1.0, true);
             })
         });
     }

@@ -103,6 +103,93 @@ fn fast_cosine_scales_and_handles_huge_and_non_finite_inputs() {
     assert_eq!(z[0], 0.0);
 }
 
+#[test]
+fn shifted_fast_cosine_matches_std_of_the_sum() {
+    // Products w.x and phases b in the ranges a feature map meets, plus a few beyond 1e6.
+    let mut rng = ChaCha8Rng::seed_from_u64(12);
+    let n = 400_003;
+    let mut xs: Vec<f64> = (0..n).map(|_| rng.random_range(-60.0..60.0)).collect();
+    let bs: Vec<f64> = (0..n)
+        .map(|_| rng.random_range(0.0..std::f64::consts::TAU))
+        .collect();
+    xs[17] = 3.0e7;
+    xs[n - 2] = -2.0e9;
+    let scale = (2.0f64 / 1024.0).sqrt();
+    for path in paths() {
+        for sine in [false, true] {
+            let mut ys = xs.clone();
+            fastcos::eval_shifted_with(path, &mut ys, &bs, scale, sine);
+            let mut worst = 0.0f64;
+            for ((x, b), y) in xs.iter().zip(&bs).zip(&ys) {
+                let want = if sine { (x + b).sin() } else { (x + b).cos() };
+                worst = worst.max((y - scale * want).abs());
+            }
+            println!("{path:?} sine={sine} shifted: max abs error vs std {worst:.3e}");
+            // reference library: Rust std f64::cos / f64::sin of the rounded sum;
+            // documented bound 1e-15 (times the scale, which is at most 1).
+            assert!(worst <= 1e-15 * scale, "{path:?} sine={sine}: {worst:e}");
+            // The shift is the plain rounded sum: same bits as shifting first (common
+            // practice).
+            let mut zs: Vec<f64> = xs.iter().zip(&bs).map(|(x, b)| x + b).collect();
+            fastcos::eval_with(path, &mut zs, scale, sine);
+            assert_eq!(bits_of(&ys), bits_of(&zs), "{path:?} sine={sine}");
+        }
+    }
+}
+
+#[test]
+fn cos_phase_map_is_the_published_feature() {
+    // z(x) = sqrt(2/D) cos(w.x + b), evaluated here directly with std cos and a plain dot.
+    let x = normal_rows(300, 7, 13);
+    for (kernel, orthogonal) in [
+        (Kernel::gaussian(0.3).unwrap(), false),
+        (Kernel::gaussian(0.3).unwrap(), true),
+        (Kernel::new(KernelKind::Laplacian, 0.5).unwrap(), false),
+        (Kernel::new(KernelKind::Matern32, 0.5).unwrap(), false),
+    ] {
+        let dd = 333;
+        let map = if orthogonal {
+            OrthogonalMap::orthogonal(kernel, 7, dd, FourierVariant::CosPhase, 5).unwrap()
+        } else {
+            fourier(kernel, 7, dd, FourierVariant::CosPhase, 5)
+        };
+        let z = map.transform(x.view());
+        let (w, b) = (map.frequencies(), map.phases().unwrap());
+        let scale = (2.0 / dd as f64).sqrt();
+        for (row, zrow) in x.rows().into_iter().zip(z.rows()) {
+            for j in 0..dd {
+                let (mut arg, mut size) = (b[j], b[j].abs());
+                for (xk, wk) in row.iter().zip(w.column(j)) {
+                    arg += xk * wk;
+                    size += (xk * wk).abs();
+                }
+                let want = scale * arg.cos();
+                // published: Rahimi & Recht (NIPS 2007), the feature's definition; the
+                // tolerance covers the rounding of the argument (a few units in the last
+                // place of the sum of |terms|) and of the cosine (1e-15).
+                let tol = scale * (1e-15 + 32.0 * f64::EPSILON * size);
+                assert!(
+                    (zrow[j] - want).abs() <= tol,
+                    "{:?}: {} vs {want}",
+                    kernel.kind,
+                    zrow[j]
+                );
+            }
+        }
+    }
+}
+
+fn bits_of(v: &[f64]) -> Vec<u64> {
+    v.iter().map(|x| x.to_bits()).collect()
+}
+
+#[test]
+#[should_panic(expected = "shifts")]
+fn shifted_cosine_length_mismatch_panics() {
+    let mut xs = [0.0; 5];
+    fastcos::cos_shifted_in_place(&mut xs, &[0.0; 4], 1.0);
+}
+
 // ---------------------------------------------------------------- random Fourier features
 
 #[test]
