@@ -5,9 +5,11 @@
 //! kernlake instead maps each standardized input row x into an explicit feature space
 //! z(x) whose inner products approximate the kernel — random Fourier features (Rahimi &
 //! Recht, NIPS 2007), orthogonal random features (Yu et al., NIPS 2016) or Nyström
-//! features (Williams & Seeger, NIPS 2001) — and trains a *linear* epsilon-SVR on z by
-//! dual coordinate descent (Ho & Lin, JMLR 2012), streaming the data block by block
-//! (Yu, Hsieh, Chang & Lin, KDD 2010). An exact SMO solver (Fan, Chen & Lin, JMLR 2005)
+//! features (Williams & Seeger, NIPS 2001) — and trains a *linear* epsilon-SVR on z,
+//! streaming the data block by block: by primal Newton passes for the squared loss
+//! (Keerthi & DeCoste, JMLR 2005, with a sampled Hessian) or by block minimization with
+//! dual coordinate descent for the linear loss (Ho & Lin, JMLR 2012; Yu, Hsieh, Chang &
+//! Lin, KDD 2010). An exact SMO solver (Fan, Chen & Lin, JMLR 2005)
 //! lets a user check on a sample that the approximation agrees with the exact machine.
 //!
 //! # Overview
@@ -15,7 +17,7 @@
 //! * [`data`] — Parquet/CSV sources, partitions, column choice, the survey pass.
 //! * [`kernel`] — exact kernels and the one place their parametrisation is defined.
 //! * [`features`] — the feature maps.
-//! * [`solver`] — dual coordinate descent, the block trainer, exact SMO.
+//! * [`solver`] — dual coordinate descent, primal Newton, the streaming trainer, exact SMO.
 //! * [`model::Model`] — a fitted model: predict, save, load.
 //! * [`metrics`], [`report`], [`tune`] — figures, reports and data-driven defaults.
 //!

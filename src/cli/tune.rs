@@ -71,7 +71,8 @@ pub struct TuneArgs {
     /// Epochs of a candidate at the last rung.
     #[arg(long, default_value_t = 27)]
     pub epochs: usize,
-    /// Coordinate-descent sweeps per epoch.
+    /// Coordinate-descent sweeps per epoch (linear loss only; the squared loss uses Newton
+    /// passes).
     #[arg(long, default_value_t = 10)]
     pub sweeps: usize,
     /// A candidate stops when its relative duality gap is at most this.
