@@ -207,7 +207,12 @@ impl RowCache {
             return su;
         }
         let su = if self.rows.len() < self.capacity {
-            self.rows.push(vec![0.0; self.n]);
+            // Written once here (NaN: never a kernel value, so a read of a column that
+            // was not computed shows), so that the memory is mapped before, and not
+            // timed as part of, the row's kernel values.
+            let mut row = Vec::with_capacity(self.n);
+            row.resize(self.n, f64::NAN);
+            self.rows.push(row);
             self.owner.push(r);
             self.full.push(false);
             self.epoch.push(0);
