@@ -1,5 +1,6 @@
-//! Kernel rows for the SMO solver: computing them in parallel, and keeping the most
-//! recently used ones in a byte-budgeted cache with least-recently-used eviction.
+//! Kernel rows for the SMO solver: computing them (in parallel, from the tiled rows of
+//! `rows.rs`), and keeping the most recently used ones in a byte-budgeted cache with
+//! least-recently-used eviction.
 //!
 //! A cached row holds `k(x_r, x_s)` for every training row `s` (f64, `8·n` bytes). While
 //! shrinking is in force only the columns of the active rows are computed; such a row
@@ -9,15 +10,9 @@
 
 use std::time::Instant;
 
-use rayon::prelude::*;
-
+use super::rows::Tiles;
 use crate::kernel::{Kernel, KernelKind};
 
-/// Columns per parallel task when a row is computed; each entry is independent, so the
-/// result does not depend on the number of threads.
-const CHUNK: usize = 512;
-/// Rows shorter than this are computed on the calling thread (parallel overhead).
-const PARALLEL_MIN: usize = 2048;
 /// Marks an empty link or an uncached row.
 const NONE: u32 = u32::MAX;
 
@@ -53,7 +48,7 @@ pub(super) fn kernel_value(kernel: &Kernel, a: &[f64], b: &[f64]) -> f64 {
     }
 }
 
-/// The training rows, stored contiguously (row-major), and the kernel.
+/// The training rows, stored contiguously (row-major) and tiled, and the kernel.
 pub(super) struct RowSource<'a> {
     /// The kernel.
     pub kernel: Kernel,
@@ -63,9 +58,24 @@ pub(super) struct RowSource<'a> {
     pub d: usize,
     /// Rows.
     pub n: usize,
+    /// Every row, tiled for kernel rows.
+    pub tiles: Tiles,
 }
 
-impl RowSource<'_> {
+impl<'a> RowSource<'a> {
+    /// The rows of `x` (`n × d`, row-major) with `kernel`.
+    pub fn new(kernel: Kernel, x: &'a [f64], d: usize, n: usize) -> Self {
+        let mut tiles = Tiles::new(d);
+        tiles.gather(x, 0..n);
+        RowSource {
+            kernel,
+            x,
+            d,
+            n,
+            tiles,
+        }
+    }
+
     /// Row `r` as a slice.
     #[inline]
     pub fn row(&self, r: usize) -> &[f64] {
@@ -77,47 +87,14 @@ impl RowSource<'_> {
     pub fn value(&self, r: usize, s: usize) -> f64 {
         kernel_value(&self.kernel, self.row(r), self.row(s))
     }
+}
 
-    /// Fills `out[s] = k(x_r, x_s)` for every `s`.
-    fn fill_all(&self, r: usize, out: &mut [f64]) {
-        let xr = self.row(r);
-        let work = |(c, chunk): (usize, &mut [f64])| {
-            let base = c * CHUNK;
-            for (k, o) in chunk.iter_mut().enumerate() {
-                *o = kernel_value(&self.kernel, xr, self.row(base + k));
-            }
-        };
-        if out.len() >= PARALLEL_MIN {
-            out.par_chunks_mut(CHUNK).enumerate().for_each(work);
-        } else {
-            out.chunks_mut(CHUNK).enumerate().for_each(work);
-        }
-    }
-
-    /// Fills `out[s] = k(x_r, x_s)` for `s` in `cols`, through the compact `scratch`.
-    fn fill_some(&self, r: usize, cols: &[usize], scratch: &mut [f64], out: &mut [f64]) {
-        let xr = self.row(r);
-        let scratch = &mut scratch[..cols.len()];
-        let work = |(s, c): (&mut [f64], &[usize])| {
-            for (o, &col) in s.iter_mut().zip(c) {
-                *o = kernel_value(&self.kernel, xr, self.row(col));
-            }
-        };
-        if cols.len() >= PARALLEL_MIN {
-            scratch
-                .par_chunks_mut(CHUNK)
-                .zip(cols.par_chunks(CHUNK))
-                .for_each(work);
-        } else {
-            scratch
-                .chunks_mut(CHUNK)
-                .zip(cols.chunks(CHUNK))
-                .for_each(work);
-        }
-        for (&col, &v) in cols.iter().zip(scratch.iter()) {
-            out[col] = v;
-        }
-    }
+/// The active rows: their indices (increasing) and a tiled copy of their inputs.
+pub(super) struct ActiveRows {
+    /// Indices of the active rows, increasing.
+    pub idx: Vec<usize>,
+    /// Their inputs, tiled (kept equal to `idx` while some rows are inactive).
+    pub tiles: Tiles,
 }
 
 /// A least-recently-used cache of kernel rows within a memory budget.
@@ -208,14 +185,14 @@ impl RowCache {
     }
 
     /// The slot holding row `r` valid on the columns `active` (all columns when
-    /// `all_active`), computing it if needed. The returned slot stays valid until the
+    /// `all_active`, and then `active.tiles` is not used), computing it if needed. The returned slot stays valid until the
     /// next call that must evict (the least recently used row goes first, so with room
     /// for two rows the previous call's slot survives one more call).
     pub fn fetch(
         &mut self,
         r: usize,
         src: &RowSource,
-        active: &[usize],
+        active: &ActiveRows,
         all_active: bool,
     ) -> usize {
         let s = self.slot_of[r];
@@ -230,7 +207,12 @@ impl RowCache {
             return su;
         }
         let su = if self.rows.len() < self.capacity {
-            self.rows.push(vec![0.0; self.n]);
+            // Written once here (NaN: never a kernel value, so a read of a column that
+            // was not computed shows), so that the memory is mapped before, and not
+            // timed as part of, the row's kernel values.
+            let mut row = Vec::with_capacity(self.n);
+            row.resize(self.n, f64::NAN);
+            self.rows.push(row);
             self.owner.push(r);
             self.full.push(false);
             self.epoch.push(0);
@@ -250,15 +232,21 @@ impl RowCache {
         su
     }
 
-    fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &[usize], all: bool) {
+    fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &ActiveRows, all: bool) {
         let t0 = Instant::now();
         let out = &mut self.rows[su];
+        let xr = src.row(r);
         if all {
-            src.fill_all(r, out);
+            src.tiles.row_into(&src.kernel, xr, out);
             self.evaluations += self.n as u64;
         } else {
-            src.fill_some(r, active, &mut self.scratch, out);
-            self.evaluations += active.len() as u64;
+            let m = active.idx.len();
+            let scratch = &mut self.scratch[..m];
+            active.tiles.row_into(&src.kernel, xr, scratch);
+            for (&col, &v) in active.idx.iter().zip(scratch.iter()) {
+                out[col] = v;
+            }
+            self.evaluations += m as u64;
         }
         self.full[su] = all;
         self.epoch[su] = self.current_epoch;

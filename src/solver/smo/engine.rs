@@ -14,7 +14,8 @@
 //! `tol` when `m − M ≤ tol`. A step moves `β_i` by `+δ` and `β_j` by `−δ`, so `g`
 //! changes by `δ (K_i − K_j)`.
 
-use super::cache::{RowCache, RowSource};
+use super::cache::{ActiveRows, RowCache, RowSource};
+use super::rows::{Tiles, TILE};
 use super::Selection;
 use rayon::prelude::*;
 use std::time::Instant;
@@ -91,7 +92,7 @@ pub(super) struct Engine<'a> {
     pub beta: Vec<f64>,
     pub g: Vec<f64>,
     diag: Vec<f64>,
-    active: Vec<usize>,
+    active: ActiveRows,
     mask: Vec<bool>,
     pub cache: RowCache,
     /// Kernel values computed outside the cache (diagonal, gradient reconstruction).
@@ -120,7 +121,10 @@ impl<'a> Engine<'a> {
             beta: vec![0.0; n],
             g: y.iter().map(|v| -v).collect(),
             diag,
-            active: (0..n).collect(),
+            active: ActiveRows {
+                idx: (0..n).collect(),
+                tiles: Tiles::new(src.d),
+            },
             mask: vec![true; n],
             cache: RowCache::new(n, cache_rows),
             extra_evaluations: n as u64,
@@ -134,7 +138,7 @@ impl<'a> Engine<'a> {
     }
 
     fn all_active(&self) -> bool {
-        self.active.len() == self.n()
+        self.active.idx.len() == self.n()
     }
 
     #[inline]
@@ -149,7 +153,7 @@ impl<'a> Engine<'a> {
     /// `m(α)`, `M(α)` and the variables reaching them, over the active rows.
     fn extremes(&self) -> Extremes {
         let mut e = Extremes::new();
-        for &r in &self.active {
+        for &r in &self.active.idx {
             e.visit(r, self.g[r], self.ap[r], self.am[r], self.c, self.eps);
         }
         e
@@ -162,7 +166,7 @@ impl<'a> Engine<'a> {
         let kii = self.diag[i.row];
         let mut best = f64::INFINITY;
         let mut j = None;
-        for &r in &self.active {
+        for &r in &self.active.idx {
             let a = kii + self.diag[r] - 2.0 * ki[r];
             let a = if a > 0.0 { a } else { TAU };
             if self.ap[r] > 0.0 {
@@ -245,7 +249,7 @@ impl<'a> Engine<'a> {
         let (ki, kj) = (self.cache.row(si), self.cache.row(sj));
         let (c, eps) = (self.c, self.eps);
         let mut e = Extremes::new();
-        for &r in &self.active {
+        for &r in &self.active.idx {
             let gr = self.g[r] + (db_i * ki[r] + db_j * kj[r]);
             self.g[r] = gr;
             e.visit(r, gr, self.ap[r], self.am[r], c, eps);
@@ -262,24 +266,33 @@ impl<'a> Engine<'a> {
         let t0 = Instant::now();
         let sv: Vec<usize> = (0..self.n()).filter(|&s| self.beta[s] != 0.0).collect();
         let inactive: Vec<usize> = (0..self.n()).filter(|&r| !self.mask[r]).collect();
+        let mut sv_tiles = Tiles::new(self.src.d);
+        sv_tiles.gather(self.src.x, sv.iter().copied());
+        let sv_beta: Vec<f64> = sv.iter().map(|&s| self.beta[s]).collect();
         let mut fresh = vec![0.0; inactive.len()];
-        let (src, beta, y) = (&self.src, &self.beta, self.y);
+        let (src, y) = (&self.src, self.y);
+        // Blocks of inactive rows in parallel, one kernel-row buffer per block; each
+        // row's sum runs over the support vectors in increasing order.
         fresh
-            .par_iter_mut()
-            .zip(inactive.par_iter())
-            .for_each(|(o, &r)| {
-                let mut acc = -y[r];
-                for &s in &sv {
-                    acc += beta[s] * src.value(r, s);
+            .par_chunks_mut(TILE / 8)
+            .zip(inactive.par_chunks(TILE / 8))
+            .for_each(|(outs, rows)| {
+                let mut k = vec![0.0; sv.len()];
+                for (o, &r) in outs.iter_mut().zip(rows) {
+                    sv_tiles.row_into_seq(&src.kernel, src.row(r), &mut k);
+                    let mut acc = -y[r];
+                    for (b, kv) in sv_beta.iter().zip(&k) {
+                        acc += b * kv;
+                    }
+                    *o = acc;
                 }
-                *o = acc;
             });
         for (&r, v) in inactive.iter().zip(fresh) {
             self.g[r] = v;
         }
         self.extra_evaluations += (inactive.len() * sv.len()) as u64;
         self.extra_seconds += t0.elapsed().as_secs_f64();
-        self.active = (0..self.n()).collect();
+        self.active.idx = (0..self.n()).collect();
         self.mask.iter_mut().for_each(|m| *m = true);
         self.cache.new_epoch();
     }
@@ -296,8 +309,8 @@ impl<'a> Engine<'a> {
                 (false, false) => true,
             }
         };
-        let mut kept = Vec::with_capacity(self.active.len());
-        for &r in &self.active {
+        let mut kept = Vec::with_capacity(self.active.idx.len());
+        for &r in &self.active.idx {
             let vp = -self.g[r] - eps;
             let vm = -self.g[r] + eps;
             let plus_out = can_go(self.ap[r] < c, self.ap[r] > 0.0, vp);
@@ -308,7 +321,10 @@ impl<'a> Engine<'a> {
                 kept.push(r);
             }
         }
-        self.active = kept;
+        if kept.len() < self.active.idx.len() {
+            self.active.tiles.gather(self.src.x, kept.iter().copied());
+        }
+        self.active.idx = kept;
     }
 
     /// Iterates until `m − M ≤ tol` on all rows or `max_iterations` steps.

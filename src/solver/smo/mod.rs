@@ -28,16 +28,19 @@
 
 mod cache;
 mod engine;
+mod rows;
 
 use std::time::Instant;
 
-use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis, Zip};
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::kernel::Kernel;
-use cache::{kernel_value, RowCache, RowSource};
+use cache::{RowCache, RowSource};
 use engine::Engine;
+use rows::{Tiles, TILE};
 
 /// How SMO chooses the pair of variables to move.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -142,21 +145,30 @@ impl KernelModel {
             "predict: coef and support disagree in length"
         );
         let sv = self.support.as_standard_layout();
-        let sv = sv.as_slice().expect("standard layout");
+        let mut tiles = Tiles::new(sv.ncols());
+        tiles.gather(sv.as_slice().expect("standard layout"), 0..sv.nrows());
         let coef = self.coef.as_standard_layout();
         let coef = coef.as_slice().expect("standard layout");
-        let d = x.ncols();
         let mut out = Array1::zeros(x.nrows());
-        Zip::from(&mut out)
-            .and(x.axis_iter(Axis(0)))
-            .par_for_each(|o, row| {
-                let row = row.as_standard_layout();
-                let row = row.as_slice().expect("standard layout");
-                let mut acc = 0.0;
-                for (s, c) in coef.iter().enumerate() {
-                    acc += c * kernel_value(&self.kernel, row, &sv[s * d..(s + 1) * d]);
+        let rows: Vec<_> = x.axis_iter(Axis(0)).collect();
+        // Blocks of rows in parallel, one kernel-row buffer per block; each row's sum
+        // runs over the support vectors in order.
+        out.as_slice_mut()
+            .expect("fresh array")
+            .par_chunks_mut(TILE / 8)
+            .zip(rows.par_chunks(TILE / 8))
+            .for_each(|(outs, rows)| {
+                let mut k = vec![0.0; tiles.len()];
+                let mut xr = vec![0.0; rows.first().map_or(0, |r| r.len())];
+                for (o, row) in outs.iter_mut().zip(rows) {
+                    xr.iter_mut().zip(row).for_each(|(a, b)| *a = *b);
+                    tiles.row_into_seq(&self.kernel, &xr, &mut k);
+                    let mut acc = 0.0;
+                    for (c, kv) in coef.iter().zip(&k) {
+                        acc += c * kv;
+                    }
+                    *o = acc + self.bias;
                 }
-                *o = acc + self.bias;
             });
         out
     }
@@ -253,12 +265,7 @@ pub fn fit(
     let xs = x.as_standard_layout();
     let xs = xs.as_slice().expect("standard layout");
     let ys = y.to_vec();
-    let src = RowSource {
-        kernel,
-        x: xs,
-        d,
-        n,
-    };
+    let src = RowSource::new(kernel, xs, d, n);
     let cache_rows = RowCache::rows_in_budget(settings.cache_bytes, n);
     let mut engine = Engine::new(src, &ys, settings.c, settings.epsilon, cache_rows);
     // The sequential loop runs on a worker of the current rayon pool, so that the
