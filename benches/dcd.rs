@@ -10,10 +10,10 @@
 
 use kernlake::features::{FeatureMap, FourierMap, FourierVariant};
 use kernlake::kernel::Kernel;
-use kernlake::solver::newton;
 use kernlake::solver::dcd::{
     solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, PrimalAccumulator,
 };
+use kernlake::solver::newton;
 use ndarray::{s, Array1, Array2, ArrayView2, Axis};
 use rand::seq::SliceRandom;
 use rand::SeedableRng;

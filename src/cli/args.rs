@@ -9,8 +9,8 @@ use crate::error::{Error, Result};
 use crate::features::{FourierVariant, Landmarks, MapKind, MapSpec};
 use crate::fit::FitOptions;
 use crate::kernel::KernelKind;
-use crate::solver::dcd::Loss;
 use crate::solver::blocks::Method;
+use crate::solver::dcd::Loss;
 
 const ABOUT: &str =
     "Fit non-linear epsilon-insensitive support vector regression on tables larger \

@@ -238,7 +238,9 @@ struct EpochOut {
     stalled: bool,
 }
 
-/// The solver-specific part of an epoch.
+/// The solver-specific part of an epoch (one per run, so the variants' sizes do not
+/// matter).
+#[allow(clippy::large_enum_variant)]
 enum Engine {
     Dual {
         state: DcdState,
@@ -314,8 +316,15 @@ impl Trainer<'_> {
         for epoch in 1..=self.settings.dcd.max_epochs {
             let t0 = std::time::Instant::now();
             observer.pass_started(epoch, if epoch == 1 { 0 } else { cache.rows_read });
-            let (out, resident_blocks) =
-                self.epoch(&mut engine, &streamer, source, &mut cache, observer, &dcd, &pool)?;
+            let (out, resident_blocks) = self.epoch(
+                &mut engine,
+                &streamer,
+                source,
+                &mut cache,
+                observer,
+                &dcd,
+                &pool,
+            )?;
             updates_total += out.updates;
             let current = engine.weights().clone();
             let holdout = streamer.holdout_metrics(current.view(), &cache);
@@ -344,7 +353,9 @@ impl Trainer<'_> {
                 break;
             }
             if let Some(m) = holdout {
-                let improved = best.as_ref().is_none_or(|(b, _, _)| m.rmse < b * (1.0 - 1e-4));
+                let improved = best
+                    .as_ref()
+                    .is_none_or(|(b, _, _)| m.rmse < b * (1.0 - 1e-4));
                 if improved {
                     best = Some((m.rmse, current, current_cert));
                     since_best = 0;
@@ -435,8 +446,7 @@ impl Trainer<'_> {
                 // before the solver sees them: small files (one site, one month) then
                 // mix into one sub-problem instead of pulling the weights towards each
                 // file in turn.
-                let mut group: Vec<std::sync::Arc<crate::solver::stream::MappedBlock>> =
-                    Vec::new();
+                let mut group: Vec<std::sync::Arc<crate::solver::stream::MappedBlock>> = Vec::new();
                 let mut group_rows = 0usize;
                 let target_rows = self.settings.block_rows.max(1);
                 let mut flush = |group: &mut Vec<_>| {

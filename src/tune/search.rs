@@ -196,7 +196,8 @@ impl Run {
             let share = (HESSIAN_ROWS as f64 / fold.z_train.nrows().max(1) as f64).min(1.0);
             let newton = self.newton.get_or_insert_with(|| NewtonState::new(d));
             while self.epochs < budget && !self.converged {
-                let mut acc = newton.accumulator(std.c, std.epsilon, share, self.seed ^ SAMPLE_SALT);
+                let mut acc =
+                    newton.accumulator(std.c, std.epsilon, share, self.seed ^ SAMPLE_SALT);
                 acc.add_block(None, fold.z_train.view(), fold.y_train.view(), &fold.index);
                 self.epochs += 1;
                 let gap = match newton.step(acc) {

@@ -2,8 +2,8 @@
 //! (clarabel), the optimality conditions of the epsilon tube, weak duality and the
 //! unit conversion of C and epsilon, on open datasets and Friedman #1.
 
-mod qp;
 mod newton;
+mod qp;
 mod support;
 
 use kernlake::solver::dcd::{

@@ -37,7 +37,11 @@ fn newton_matches_qp_with_the_exact_hessian() {
     // published: the generalized Newton method on this piecewise-quadratic primal ends in
     // finitely many steps (Mangasarian 2002; Keerthi & DeCoste, JMLR 2005); the bound of
     // 30 passes is ours, far above what it needs here.
-    assert!(fitted.report.epochs <= 30, "{} passes", fitted.report.epochs);
+    assert!(
+        fitted.report.epochs <= 30,
+        "{} passes",
+        fitted.report.epochs
+    );
 }
 
 #[test]

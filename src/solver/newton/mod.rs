@@ -118,7 +118,13 @@ impl NewtonState {
     }
 
     /// An accumulator for the next pass.
-    pub fn accumulator(&self, c: f64, epsilon: f64, share: f64, sample_seed: u64) -> LineAccumulator {
+    pub fn accumulator(
+        &self,
+        c: f64,
+        epsilon: f64,
+        share: f64,
+        sample_seed: u64,
+    ) -> LineAccumulator {
         let dim = self.w.len() - 1;
         let (steps, grid) = match self.dir {
             Some(_) => (
@@ -261,9 +267,9 @@ fn newton_direction(mut s: Array2<f64>, scale: f64, g: &Array1<f64>) -> Result<A
         }
         s[[j, j]] = 1.0 + scale * s[[j, j]];
     }
-    let factor = s.factorizec(UPLO::Upper).map_err(|e| {
-        Error::Numerical(format!("the Newton system could not be factorized: {e}"))
-    })?;
+    let factor = s
+        .factorizec(UPLO::Upper)
+        .map_err(|e| Error::Numerical(format!("the Newton system could not be factorized: {e}")))?;
     let rhs = g.mapv(|v| -v);
     let d = factor
         .solvec(&rhs)

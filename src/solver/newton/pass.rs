@@ -82,7 +82,11 @@ impl LineAccumulator {
         rows: &[usize],
     ) {
         let (n, d) = z.dim();
-        assert_eq!(d, self.dim, "add_block: {d} features, expected {}", self.dim);
+        assert_eq!(
+            d, self.dim,
+            "add_block: {d} features, expected {}",
+            self.dim
+        );
         assert_eq!(y.len(), n, "add_block: {n} rows but {} targets", y.len());
         assert_eq!(rows.len(), n, "add_block: {n} rows but {} ids", rows.len());
         // Columns [w, d] of the line: o_i = ẑ_iᵀw and δ_i = ẑ_iᵀd in one product.
@@ -188,7 +192,13 @@ impl LineAccumulator {
             }
         }
         let mut grad = Array2::zeros((self.dim + 1, m));
-        general_mat_mul(1.0, &z.t(), &beta, 0.0, &mut grad.slice_mut(s![..self.dim, ..]));
+        general_mat_mul(
+            1.0,
+            &z.t(),
+            &beta,
+            0.0,
+            &mut grad.slice_mut(s![..self.dim, ..]),
+        );
         grad.row_mut(self.dim).assign(&beta.sum_axis(Axis(0)));
         ChunkPart {
             grad,
