@@ -283,7 +283,7 @@ pub struct DemoArgs {
     #[arg(long, short = 'D', default_value_t = 512)]
     pub components: usize,
     /// Largest number of passes over the data.
-    #[arg(long, default_value_t = 12)]
+    #[arg(long, default_value_t = 30)]
     pub epochs: usize,
     /// Threads (0 = all cores).
     #[arg(long, default_value_t = 0)]
