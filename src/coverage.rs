@@ -9,7 +9,8 @@
 //!
 //! The landmarks are up to [`COVERAGE_LANDMARKS`] rows of the survey's uniform random
 //! sample. The flag threshold is chosen at fit time: the [`FLAG_QUANTILE`] quantile of the
-//! coverage of held-out rows (rows not used as landmarks), so about 1% of rows like the
+//! coverage of held-out rows (the training holdout when the fit has one, else the sample
+//! rows not used as landmarks), so about 1% of rows like the
 //! training data are flagged and rows unlike it are flagged far more often.
 //!
 //! # Method and cost

@@ -402,7 +402,13 @@ impl Fitter {
                 o.threads
             },
         };
-        let coverage = Coverage::fit(facts.sample_x.view(), kernel, None)?;
+        // The flag threshold comes from the training holdout when there is one (rows
+        // the solver never saw), else from the sample rows not used as landmarks.
+        let coverage = Coverage::fit(
+            facts.sample_x.view(),
+            kernel,
+            out.holdout_inputs.as_ref().map(|h| h.view()),
+        )?;
         let mut model = Model::new(
             facts.columns,
             facts.scaler,

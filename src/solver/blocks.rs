@@ -195,6 +195,9 @@ pub struct TrainOutcome {
     pub support_share: f64,
     /// Total coordinate updates (dual solver).
     pub updates: u64,
+    /// Up to 10,000 standardized holdout input rows, evenly spread (None without a
+    /// holdout): the rows coverage thresholds are chosen on.
+    pub holdout_inputs: Option<ndarray::Array2<f64>>,
 }
 
 /// Progress callbacks for a person watching (the CLI draws bars with them).
@@ -416,6 +419,7 @@ impl Trainer<'_> {
             holdout,
             support_share,
             updates: updates_total,
+            holdout_inputs: cache.holdout_inputs(10_000),
         })
     }
 

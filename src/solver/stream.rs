@@ -143,6 +143,30 @@ impl PassCache {
         }
     }
 
+    /// Up to `max` standardized holdout input rows, spread evenly over the holdout (for
+    /// choosing thresholds on rows the solver never saw); `None` without a holdout.
+    pub fn holdout_inputs(&self, max: usize) -> Option<Array2<f64>> {
+        let total: usize = self.holdout_x.iter().map(|x| x.nrows()).sum();
+        if total == 0 || max == 0 {
+            return None;
+        }
+        let d = self.holdout_x.iter().map(|x| x.ncols()).max().unwrap_or(0);
+        let step = total.div_ceil(max);
+        let mut out = Array2::zeros((total.div_ceil(step), d));
+        let mut k = 0;
+        let mut i = 0;
+        for x in &self.holdout_x {
+            for row in x.rows() {
+                if i % step == 0 {
+                    out.row_mut(k).assign(&row);
+                    k += 1;
+                }
+                i += 1;
+            }
+        }
+        Some(out.slice(ndarray::s![..k, ..]).to_owned())
+    }
+
     /// Passes run so far.
     pub fn passes(&self) -> usize {
         self.passes
