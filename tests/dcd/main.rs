@@ -14,7 +14,7 @@ use ndarray::{s, Array1, Array2, Axis};
 use qp::{check_against_qp, tight};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-use support::{ccpp, friedman1, inputs_and_target, read_table, rff, sd};
+use support::{ccpp, friedman_features, inputs_and_target, read_table, rff, sd};
 
 #[test]
 fn matches_qp_on_yacht_linear_l1_and_l2() {
@@ -29,15 +29,7 @@ fn matches_qp_on_yacht_linear_l1_and_l2() {
 fn matches_qp_on_friedman1_nonlinear_features_l2() {
     // dataset: Friedman #1 (Friedman, Annals of Statistics 1991), 200 rows, fixed seed;
     // features x, x² and sin(π x1 x2), deterministic nonlinear functions of the inputs.
-    let (x, y) = friedman1(200, 11);
-    let mut z = Array2::zeros((200, 21));
-    for i in 0..200 {
-        for j in 0..10 {
-            z[[i, j]] = x[[i, j]];
-            z[[i, 10 + j]] = x[[i, j]] * x[[i, j]];
-        }
-        z[[i, 20]] = (std::f64::consts::PI * x[[i, 0]] * x[[i, 1]]).sin();
-    }
+    let (z, y) = friedman_features();
     check_against_qp(z.view(), y.view(), &tight(1.0, 0.5, Loss::L2));
     check_against_qp(z.view(), y.view(), &tight(1.0, 0.5, Loss::L1));
 }

@@ -2,25 +2,9 @@
 //! (clarabel) as dual coordinate descent, against DCD itself, and for weak duality.
 
 use super::qp::{check_fit_against_qp, tight};
-use super::support::{ccpp, friedman1, inputs_and_target, read_table, rff};
+use super::support::{ccpp, friedman_features, inputs_and_target, read_table, rff};
 use kernlake::solver::dcd::{self, Loss};
 use kernlake::solver::newton;
-use ndarray::Array2;
-
-fn friedman_features() -> (Array2<f64>, ndarray::Array1<f64>) {
-    // dataset: Friedman #1 (Friedman, Annals of Statistics 1991), 200 rows, fixed seed;
-    // features x, x² and sin(π x1 x2).
-    let (x, y) = friedman1(200, 11);
-    let mut z = Array2::zeros((200, 21));
-    for i in 0..200 {
-        for j in 0..10 {
-            z[[i, j]] = x[[i, j]];
-            z[[i, 10 + j]] = x[[i, j]] * x[[i, j]];
-        }
-        z[[i, 20]] = (std::f64::consts::PI * x[[i, 0]] * x[[i, 1]]).sin();
-    }
-    (z, y)
-}
 
 #[test]
 fn newton_matches_qp_with_the_exact_hessian() {

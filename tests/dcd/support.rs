@@ -84,3 +84,18 @@ pub fn ccpp(rows: usize) -> (Array2<f64>, Array1<f64>) {
 pub fn sd(y: ArrayView1<f64>) -> f64 {
     y.std(0.0)
 }
+
+/// Friedman #1 (Friedman, Annals of Statistics 1991), 200 rows, seed 11, with the
+/// deterministic non-linear features x, x² and sin(π x1 x2) (21 columns).
+pub fn friedman_features() -> (Array2<f64>, Array1<f64>) {
+    let (x, y) = friedman1(200, 11);
+    let mut z = Array2::zeros((200, 21));
+    for i in 0..200 {
+        for j in 0..10 {
+            z[[i, j]] = x[[i, j]];
+            z[[i, 10 + j]] = x[[i, j]] * x[[i, j]];
+        }
+        z[[i, 20]] = (std::f64::consts::PI * x[[i, 0]] * x[[i, 1]]).sin();
+    }
+    (z, y)
+}

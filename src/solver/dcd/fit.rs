@@ -89,39 +89,10 @@ pub fn fit(
     if block_rows == 0 {
         return Err(Error::invalid("block_rows", "must be at least 1"));
     }
-    if n == 0 {
-        return Err(Error::NoRows("the feature array has zero rows".into()));
-    }
-    for (row, zi) in z.rows().into_iter().enumerate() {
-        if let Some(column) = zi.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite { row, column });
-        }
-    }
-    if let Some(row) = y.iter().position(|v| !v.is_finite()) {
-        return Err(Error::NonFiniteTarget { row });
-    }
-
-    let mean = y.sum() / n as f64;
-    let sd = (y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
-    if sd <= 4.0 * f64::EPSILON * mean.abs() || sd == 0.0 {
-        let zero = Objective {
-            primal: 0.0,
-            dual: 0.0,
-            gap: 0.0,
-        };
-        return Ok(DcdFit {
-            weights: Array1::zeros(d),
-            intercept: mean,
-            beta: vec![0.0; n],
-            report: DcdReport {
-                epochs: 0,
-                objective: zero,
-                history: Vec::new(),
-                converged: true,
-                updates: 0,
-            },
-        });
-    }
+    let (mean, sd) = match target_scale(z, y)? {
+        TargetScaling::Constant(fit) => return Ok(fit),
+        TargetScaling::Scaled { mean, sd } => (mean, sd),
+    };
     let ys = y.mapv(|v| (v - mean) / sd);
     let solver = settings.in_standard_units(sd);
 
@@ -178,4 +149,56 @@ pub fn fit(
             updates,
         },
     })
+}
+
+/// How an in-memory problem's target is scaled, or the constant model when the target
+/// does not vary.
+pub(crate) enum TargetScaling {
+    /// The target is constant: the fit is the constant model at its mean.
+    Constant(DcdFit),
+    /// Centre by `mean` and divide by the population standard deviation `sd`.
+    Scaled { mean: f64, sd: f64 },
+}
+
+/// Checks the in-memory features and targets shared by the in-memory solvers (rows
+/// present, every value finite) and returns how to scale the target.
+///
+/// # Errors
+/// [`Error::NoRows`], [`Error::NonFinite`] or [`Error::NonFiniteTarget`].
+pub(crate) fn target_scale(z: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<TargetScaling> {
+    let (n, d) = z.dim();
+    if n == 0 {
+        return Err(Error::NoRows("the feature array has zero rows".into()));
+    }
+    for (row, zi) in z.rows().into_iter().enumerate() {
+        if let Some(column) = zi.iter().position(|v| !v.is_finite()) {
+            return Err(Error::NonFinite { row, column });
+        }
+    }
+    if let Some(row) = y.iter().position(|v| !v.is_finite()) {
+        return Err(Error::NonFiniteTarget { row });
+    }
+
+    let mean = y.sum() / n as f64;
+    let sd = (y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
+    if sd <= 4.0 * f64::EPSILON * mean.abs() || sd == 0.0 {
+        let zero = Objective {
+            primal: 0.0,
+            dual: 0.0,
+            gap: 0.0,
+        };
+        return Ok(TargetScaling::Constant(DcdFit {
+            weights: Array1::zeros(d),
+            intercept: mean,
+            beta: vec![0.0; n],
+            report: DcdReport {
+                epochs: 0,
+                objective: zero,
+                history: Vec::new(),
+                converged: true,
+                updates: 0,
+            },
+        }));
+    }
+    Ok(TargetScaling::Scaled { mean, sd })
 }

@@ -30,6 +30,7 @@ mod objective;
 
 pub use block::{solve_block, BlockStats, BlockWorkspace};
 pub use fit::{fit, DcdFit, DcdReport};
+pub(crate) use fit::{target_scale, TargetScaling};
 pub use objective::{Objective, PrimalAccumulator};
 
 use crate::{Error, Result};

@@ -4,7 +4,7 @@
 use ndarray::{s, ArrayView1, ArrayView2};
 
 use super::{NewtonState, Step, SAMPLE_SALT};
-use crate::solver::dcd::{DcdFit, DcdReport, DcdSettings, Loss, Objective};
+use crate::solver::dcd::{target_scale, DcdFit, DcdReport, DcdSettings, Loss, TargetScaling};
 use crate::{Error, Result};
 
 /// Fits a linear epsilon-SVR with the squared loss on the in-memory features `z`
@@ -45,38 +45,10 @@ pub fn fit(
     if hessian_rows == 0 {
         return Err(Error::invalid("hessian rows", "must be at least 1"));
     }
-    if n == 0 {
-        return Err(Error::NoRows("the feature array has zero rows".into()));
-    }
-    for (row, zi) in z.rows().into_iter().enumerate() {
-        if let Some(column) = zi.iter().position(|v| !v.is_finite()) {
-            return Err(Error::NonFinite { row, column });
-        }
-    }
-    if let Some(row) = y.iter().position(|v| !v.is_finite()) {
-        return Err(Error::NonFiniteTarget { row });
-    }
-    let mean = y.sum() / n as f64;
-    let sd = (y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
-    if sd <= 4.0 * f64::EPSILON * mean.abs() || sd == 0.0 {
-        let zero = Objective {
-            primal: 0.0,
-            dual: 0.0,
-            gap: 0.0,
-        };
-        return Ok(DcdFit {
-            weights: ndarray::Array1::zeros(d),
-            intercept: mean,
-            beta: vec![0.0; n],
-            report: DcdReport {
-                epochs: 0,
-                objective: zero,
-                history: Vec::new(),
-                converged: true,
-                updates: 0,
-            },
-        });
-    }
+    let (mean, sd) = match target_scale(z, y)? {
+        TargetScaling::Constant(fit) => return Ok(fit),
+        TargetScaling::Scaled { mean, sd } => (mean, sd),
+    };
     let ys = y.mapv(|v| (v - mean) / sd);
     let solver = settings.in_standard_units(sd);
     let pool = rayon::ThreadPoolBuilder::new()
