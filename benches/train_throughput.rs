@@ -39,10 +39,12 @@ struct Epochs;
 impl TrainObserver for Epochs {
     fn epoch_finished(&self, r: &EpochRecord) {
         eprintln!(
-            "  epoch {:>3}: {:.2} s, gap {:.3e}, from memory {} blocks, holdout rmse {:?}",
+            "  epoch {:>3}: {:.2} s, primal {:.6e}, gap {:.3e}, step {:?}, from memory {} blocks, holdout rmse {:?}",
             r.epoch,
             r.seconds,
+            r.objective.primal,
             r.objective.gap,
+            r.step,
             r.resident_blocks,
             r.holdout.map(|m| m.rmse)
         );

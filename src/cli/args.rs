@@ -218,8 +218,8 @@ pub struct ModelArgs {
     /// Solver for the linear model in feature space.
     #[arg(long, value_enum, default_value = "auto")]
     pub solver: SolverArg,
-    /// Newton solver: rows sampled each pass to form the Hessian (default: 32 per
-    /// feature, at least 16384).
+    /// Newton solver: rows sampled each pass to form the Hessian, chosen by their
+    /// estimated leverage after the first pass (default: 32 per feature, at least 16384).
     #[arg(long)]
     pub hessian_rows: Option<usize>,
     /// Largest number of passes over the data.

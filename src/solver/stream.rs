@@ -80,17 +80,30 @@ pub struct TargetScale {
     pub sd: f64,
 }
 
-/// Is global row `row` in the holdout? A hash of the row id, fixed for the whole run
-/// (splitmix64 finalizer, Steele, Lea & Flood, OOPSLA 2014).
+/// Upper bound on the bytes of one mapped piece of a block.
+const PIECE_BYTES: usize = 32 << 20;
+
+/// Rows of a mapped piece for `dim` features: as many as fit in `PIECE_BYTES`, rounded
+/// down to a multiple of 1,024 (the Newton solver's chunk, so that splitting a block into
+/// pieces keeps its chunk boundaries), at least 1,024.
+fn piece_rows(dim: usize) -> usize {
+    (PIECE_BYTES / (8 * dim.max(1)) / 1024).max(1) * 1024
+}
+
+/// Is global row `row` in the holdout? A hash of the row id, fixed for the whole run.
 pub fn is_holdout(row: u64, seed: u64, share: f64) -> bool {
-    if share <= 0.0 {
-        return false;
-    }
+    share > 0.0 && row_unit(row, seed) < share
+}
+
+/// A number in [0, 1) fixed by the row id and the seed, uniform over rows (splitmix64
+/// finalizer, Steele, Lea & Flood, OOPSLA 2014): row subsets drawn from it are the same
+/// whatever the block layout or the number of threads.
+pub(crate) fn row_unit(row: u64, seed: u64) -> f64 {
     let mut z = row ^ seed.rotate_left(17) ^ 0x9E37_79B9_7F4A_7C15;
     z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
     z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
     z ^= z >> 31;
-    ((z >> 11) as f64 / (1u64 << 53) as f64) < share
+    (z >> 11) as f64 / (1u64 << 53) as f64
 }
 
 /// A block after standardization and mapping, split into training and holdout rows.
@@ -199,7 +212,7 @@ pub(crate) struct Streamer<'a> {
 
 impl Streamer<'_> {
     /// Standardizes, maps and splits one raw block.
-    fn prepare(&self, mut b: Block) -> Result<MappedBlock> {
+    fn prepare(&self, mut b: Block) -> Result<Vec<MappedBlock>> {
         let y_raw = b
             .y
             .take()
@@ -231,16 +244,37 @@ impl Streamer<'_> {
                 it += 1;
             }
         }
-        let mut z = Array2::zeros((n_train, self.map.output_dim()));
-        self.map.transform_into(xt.view(), z.view_mut());
-        Ok(MappedBlock {
-            z,
-            y,
-            rows,
-            hold_x,
-            hold_y,
-            read_rows: b.rows as u64,
-        })
+        // Map in pieces of at most `piece_rows(D)` rows, so the mapped blocks in flight
+        // (one being mapped, one in the channel, one being visited) stay small whatever
+        // the batch size of the files.
+        let dim = self.map.output_dim();
+        let piece = piece_rows(dim);
+        let pieces = n_train.div_ceil(piece).max(1);
+        let mut out = Vec::with_capacity(pieces);
+        let (mut hold_x, mut hold_y) = (Some(hold_x), Some(hold_y));
+        for k in 0..pieces {
+            let lo = k * piece;
+            let hi = (lo + piece).min(n_train);
+            let mut z = Array2::zeros((hi - lo, dim));
+            self.map
+                .transform_into(xt.slice(s![lo..hi, ..]), z.view_mut());
+            let last = k + 1 == pieces;
+            out.push(MappedBlock {
+                z,
+                y: y.slice(s![lo..hi]).to_owned(),
+                rows: rows[lo..hi].to_vec(),
+                hold_x: hold_x.take().unwrap_or_else(|| Array2::zeros((0, d))),
+                hold_y: hold_y.take().unwrap_or_else(|| Array1::zeros(0)),
+                // Rows read: each piece its training rows; the last also the holdout and
+                // skipped rows, so the pieces add up to the batch.
+                read_rows: if last {
+                    (b.rows - lo) as u64
+                } else {
+                    (hi - lo) as u64
+                },
+            });
+        }
+        Ok(out)
     }
 
     /// One pass: visits every block of the units in `order`, resident ones from memory
@@ -270,9 +304,11 @@ impl Streamer<'_> {
                 scope.spawn(move || {
                     for &u in to_read {
                         let mut sink = |b: Block| -> Result<()> {
-                            let mb = self.pool.install(|| self.prepare(b))?;
-                            tx.send(Msg::Block(Box::new(mb)))
-                                .map_err(|_| Error::Numerical("training stopped".into()))
+                            for mb in self.pool.install(|| self.prepare(b))? {
+                                tx.send(Msg::Block(Box::new(mb)))
+                                    .map_err(|_| Error::Numerical("training stopped".into()))?;
+                            }
+                            Ok(())
                         };
                         match source.read_unit(u, &mut sink) {
                             Ok(()) => {

@@ -10,7 +10,7 @@ use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
 use rayon::prelude::*;
 
 use crate::solver::dcd::CompensatedSum;
-use crate::solver::stream::is_holdout;
+use crate::solver::stream::row_unit;
 
 /// Rows of a block handled together by one task.
 const CHUNK_ROWS: usize = 1024;
@@ -18,6 +18,20 @@ const CHUNK_ROWS: usize = 1024;
 const PANEL_COLS: usize = 128;
 /// Salt that makes the Hessian's row sample independent of the holdout's.
 pub(crate) const SAMPLE_SALT: u64 = 0x5DEE_CE66_D1CE_4E5B;
+
+/// Row sampling by approximate ridge leverage scores for the Hessian (see the module
+/// docs of [`super`]): with H = UᵀU the last Newton matrix and G a K × (D + 1) Gaussian
+/// sketch, `x` = U⁻¹Gᵀ, so that ℓ̃_i = 2C‖ẑ_iᵀx‖²/K estimates the ridge leverage
+/// ℓ_i = 2C ẑ_iᵀH⁻¹ẑ_i (Johnson–Lindenstrauss; Drineas, Magdon-Ismail, Mahoney &
+/// Woodruff, JMLR 2012). A row outside the tube enters with probability
+/// p_i = min(1, gain·ℓ̃_i) and weight 1/p_i.
+#[derive(Clone, Debug)]
+pub(crate) struct Lever {
+    /// U⁻¹Gᵀ, (D + 1) × K.
+    pub x: Array2<f64>,
+    /// Inclusion probability per unit of estimated leverage.
+    pub gain: f64,
+}
 
 /// Sums gathered over one pass (see the module docs). `steps[0]` carries the Hessian.
 pub(crate) struct LineAccumulator {
@@ -40,10 +54,20 @@ pub(crate) struct LineAccumulator {
     pub grid_loss: Vec<CompensatedSum>,
     /// Σ ẑ_i ẑ_iᵀ over sampled rows outside the tube at `steps[0]` (upper triangle).
     pub hess: Array2<f64>,
-    /// Share of rows in the Hessian's sample.
+    /// Share of rows in the Hessian's sample (1: every row, exactly).
     pub share: f64,
+    /// Leverage estimates that weight the sample (uniform without them).
+    pub lever: Option<Lever>,
     pub sample_seed: u64,
     pub rows: u64,
+}
+
+/// The columns of the pass's one product per chunk: [w, d, sketch] without the bias
+/// row, the bias row's entries, and how many leading columns are [w] or [w, d].
+struct Line<'a> {
+    cols: &'a Array2<f64>,
+    bias: &'a [f64],
+    m_dir: usize,
 }
 
 /// What one chunk of rows adds.
@@ -52,7 +76,8 @@ struct ChunkPart {
     sums: Vec<[f64; 4]>,
     active: Vec<u64>,
     grid_loss: Vec<f64>,
-    sampled: Vec<usize>,
+    /// Sampled rows (offsets in the block) with their weights 1/P(row sampled).
+    sampled: Vec<(usize, f64)>,
 }
 
 /// max(0, |r| − ε) with the sign of r: the residual's excess over the tube.
@@ -89,14 +114,23 @@ impl LineAccumulator {
         );
         assert_eq!(y.len(), n, "add_block: {n} rows but {} targets", y.len());
         assert_eq!(rows.len(), n, "add_block: {n} rows but {} ids", rows.len());
-        // Columns [w, d] of the line: o_i = ẑ_iᵀw and δ_i = ẑ_iᵀd in one product.
+        // Columns [w, d, x] of one product: o_i = ẑ_iᵀw, δ_i = ẑ_iᵀd and the sketch ẑ_iᵀx.
         let m_dir = if self.dir.is_some() { 2 } else { 1 };
-        let mut line = Array2::zeros((d, m_dir));
+        let sketch = self.lever.as_ref().map_or(0, |l| l.x.ncols());
+        let mut line = Array2::zeros((d, m_dir + sketch));
+        let mut bias = vec![0.0; m_dir + sketch];
         line.column_mut(0).assign(&self.w.slice(s![..d]));
-        let mut bias = [self.w[d], 0.0];
+        bias[0] = self.w[d];
         if let Some(dir) = &self.dir {
             line.column_mut(1).assign(&dir.slice(s![..d]));
             bias[1] = dir[d];
+        }
+        if let Some(lever) = &self.lever {
+            line.slice_mut(s![.., m_dir..])
+                .assign(&lever.x.slice(s![..d, ..]));
+            for j in 0..sketch {
+                bias[m_dir + j] = lever.x[[d, j]];
+            }
         }
         let chunks = n.div_ceil(CHUNK_ROWS);
         let run = || -> Vec<ChunkPart> {
@@ -110,8 +144,11 @@ impl LineAccumulator {
                         y.slice(s![lo..hi]),
                         &rows[lo..hi],
                         lo,
-                        &line,
-                        bias,
+                        &Line {
+                            cols: &line,
+                            bias: &bias,
+                            m_dir,
+                        },
                     )
                 })
                 .collect()
@@ -137,9 +174,12 @@ impl LineAccumulator {
         }
         self.rows += n as u64;
         if !sampled.is_empty() {
-            let mut a = Array2::ones((sampled.len(), d + 1));
-            for (r, &i) in sampled.iter().enumerate() {
-                a.slice_mut(s![r, ..d]).assign(&z.row(i));
+            let mut a = Array2::zeros((sampled.len(), d + 1));
+            for (r, &(i, weight)) in sampled.iter().enumerate() {
+                let root = weight.sqrt();
+                let mut row = a.row_mut(r);
+                row.slice_mut(s![..d]).assign(&z.row(i).mapv(|v| v * root));
+                row[d] = root;
             }
             add_gram_upper(pool, &mut self.hess, a.view());
         }
@@ -151,25 +191,22 @@ impl LineAccumulator {
         y: ArrayView1<f64>,
         ids: &[usize],
         offset: usize,
-        line: &Array2<f64>,
-        bias: [f64; 2],
+        line: &Line,
     ) -> ChunkPart {
+        let (bias, m_dir) = (line.bias, line.m_dir);
         let n = z.nrows();
         let m = self.steps.len();
-        let od = z.dot(line);
+        let od = z.dot(line.cols);
         let mut beta = Array2::<f64>::zeros((n, m));
         let mut sums = vec![[0.0; 4]; m];
         let mut active = vec![0u64; m];
         let mut grid_loss = vec![0.0; self.grid.len()];
         let mut sampled = Vec::new();
         let (c2, eps) = (2.0 * self.c, self.epsilon);
+        let score_scale = c2 / (od.ncols() - m_dir).max(1) as f64;
         for i in 0..n {
             let r0 = y[i] - (od[[i, 0]] + bias[0]);
-            let delta = if od.ncols() > 1 {
-                od[[i, 1]] + bias[1]
-            } else {
-                0.0
-            };
+            let delta = if m_dir > 1 { od[[i, 1]] + bias[1] } else { 0.0 };
             for (k, &t) in self.steps.iter().enumerate() {
                 let e = excess(r0 - t * delta, eps);
                 if e != 0.0 {
@@ -181,8 +218,12 @@ impl LineAccumulator {
                     s[2] += b.abs();
                     s[3] += b * b;
                     active[k] += 1;
-                    if k == 0 && is_holdout(ids[i] as u64, self.sample_seed, self.share) {
-                        sampled.push(offset + i);
+                    if k == 0 {
+                        if let Some(weight) =
+                            self.sample_weight(od.row(i), bias, m_dir, ids[i], score_scale)
+                        {
+                            sampled.push((offset + i, weight));
+                        }
                     }
                 }
             }
@@ -207,6 +248,38 @@ impl LineAccumulator {
             grid_loss,
             sampled,
         }
+    }
+}
+
+impl LineAccumulator {
+    /// The weight 1/P(row in the sample) of a row outside the tube if the Hessian's
+    /// sample takes it: every row with weight 1 when the Hessian is exact; else with
+    /// probability p = min(1, gain·ℓ̃) from the sketch columns of `od_row` when there are
+    /// leverage estimates, or with the uniform share.
+    #[inline]
+    fn sample_weight(
+        &self,
+        od_row: ArrayView1<f64>,
+        bias: &[f64],
+        m_dir: usize,
+        id: usize,
+        score_scale: f64,
+    ) -> Option<f64> {
+        if self.share >= 1.0 {
+            return Some(1.0);
+        }
+        let p = match &self.lever {
+            Some(lever) => {
+                let mut sq = 0.0;
+                for j in m_dir..od_row.len() {
+                    let u = od_row[j] + bias[j];
+                    sq += u * u;
+                }
+                (lever.gain * score_scale * sq).min(1.0)
+            }
+            None => self.share,
+        };
+        (row_unit(id as u64, self.sample_seed) < p).then(|| 1.0 / p)
     }
 }
 
