@@ -303,23 +303,20 @@ impl RowCache {
     }
 
     /// Keeps, in order, the entries of the row in `su` (stored for version `v`) whose
-    /// rows are still active.
+    /// rows are still active. Branch-free: every entry is copied to the next free place,
+    /// which advances only for a kept row (the place never passes the entry read).
     fn filter(&mut self, su: usize, v: usize, active: &ActiveRows) {
         let row = &mut self.rows[su];
         let mut out = 0;
         if v == 0 {
-            for p in 0..self.n {
-                if active.mask[p] {
-                    row[out] = row[p];
-                    out += 1;
-                }
+            for (p, &keep) in active.mask.iter().enumerate() {
+                row[out] = row[p];
+                out += usize::from(keep);
             }
         } else {
             for (p, &r) in self.members[v].iter().enumerate() {
-                if active.mask[r as usize] {
-                    row[out] = row[p];
-                    out += 1;
-                }
+                row[out] = row[p];
+                out += usize::from(active.mask[r as usize]);
             }
         }
         debug_assert_eq!(out, active.idx.len());
