@@ -2,11 +2,12 @@
 //! `rows.rs`), and keeping the most recently used ones in a byte-budgeted cache with
 //! least-recently-used eviction.
 //!
-//! A cached row holds `k(x_r, x_s)` for every training row `s` (f64, `8·n` bytes). While
-//! shrinking is in force only the columns of the active rows are computed; such a row
-//! stays valid until the active set grows again (an "epoch" ends), because between two
-//! reconstructions the active set only shrinks (Joachims, *Making large-scale SVM
-//! learning practical*, 1999; Fan, Chen & Lin, JMLR 6, 2005, section 5).
+//! A cached row holds `k(x_r, x_s)` for the active rows `s`, in their order (f64, at
+//! most `8·n` bytes). While shrinking is in force only the active columns are computed;
+//! such a row stays usable until the active set grows again (an "epoch" ends), because
+//! between two reconstructions the active set only shrinks (Joachims, *Making
+//! large-scale SVM learning practical*, 1999; Fan, Chen & Lin, JMLR 6, 2005, section 5):
+//! after a shrink it is compacted to the remaining rows when next used.
 
 use std::time::Instant;
 
