@@ -2,11 +2,12 @@
 //! `rows.rs`), and keeping the most recently used ones in a byte-budgeted cache with
 //! least-recently-used eviction.
 //!
-//! A cached row holds `k(x_r, x_s)` for every training row `s` (f64, `8·n` bytes). While
-//! shrinking is in force only the columns of the active rows are computed; such a row
-//! stays valid until the active set grows again (an "epoch" ends), because between two
-//! reconstructions the active set only shrinks (Joachims, *Making large-scale SVM
-//! learning practical*, 1999; Fan, Chen & Lin, JMLR 6, 2005, section 5).
+//! A cached row holds `k(x_r, x_s)` for the active rows `s`, in their order (f64, at
+//! most `8·n` bytes). While shrinking is in force only the active columns are computed;
+//! such a row stays usable until the active set grows again (an "epoch" ends), because
+//! between two reconstructions the active set only shrinks (Joachims, *Making
+//! large-scale SVM learning practical*, 1999; Fan, Chen & Lin, JMLR 6, 2005, section 5):
+//! after a shrink it is compacted to the remaining rows when next used.
 
 use std::time::Instant;
 
@@ -89,29 +90,53 @@ impl<'a> RowSource<'a> {
     }
 }
 
-/// The active rows: their indices (increasing) and a tiled copy of their inputs.
+/// The active rows: their indices (increasing), which rows are active, a tiled copy of
+/// their inputs, and the layout their kernel rows are stored in.
 pub(super) struct ActiveRows {
     /// Indices of the active rows, increasing.
     pub idx: Vec<usize>,
+    /// Whether each training row is active.
+    pub mask: Vec<bool>,
     /// Their inputs, tiled (kept equal to `idx` while some rows are inactive).
     pub tiles: Tiles,
 }
 
+/// A kernel row's layout: `(epoch, version)`; version 0 of any epoch is every row in
+/// order, so a row computed on every row has epoch [`ANY`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+struct Layout {
+    epoch: u64,
+    version: u32,
+}
+
+/// Epoch of a row computed on every training row.
+const ANY: u64 = u64::MAX;
+
 /// A least-recently-used cache of kernel rows within a memory budget.
+///
+/// A row is stored compactly for the active set it was computed (or last used) on: entry
+/// `p` is `k(x_r, x_{idx[p]})`. Between two gradient reconstructions (an epoch) the
+/// active set only shrinks, each shrink making a new layout version; a row of an older
+/// version of the same epoch is filtered in place to the current active set (Joachims
+/// 1999 and Fan, Chen & Lin 2005, §5, keep rows valid the same way; here the rows are
+/// compacted so that the passes over them are contiguous).
 pub(super) struct RowCache {
     n: usize,
     capacity: usize,
     rows: Vec<Vec<f64>>,
     owner: Vec<usize>,
-    full: Vec<bool>,
-    epoch: Vec<u64>,
+    layout: Vec<Layout>,
     prev: Vec<u32>,
     next: Vec<u32>,
     head: u32,
     tail: u32,
     slot_of: Vec<u32>,
-    current_epoch: u64,
-    scratch: Vec<f64>,
+    epoch: u64,
+    /// The members of each layout version of this epoch (version 0: every row, empty
+    /// list), freed when no cached row uses them and they are not current.
+    members: Vec<Vec<u32>>,
+    /// Cached rows stored in each version of this epoch.
+    users: Vec<usize>,
     /// Kernel values computed so far.
     pub evaluations: u64,
     /// Wall-clock seconds spent computing kernel rows.
@@ -133,29 +158,71 @@ impl RowCache {
             capacity,
             rows: Vec::new(),
             owner: Vec::new(),
-            full: Vec::new(),
-            epoch: Vec::new(),
+            layout: Vec::new(),
             prev: Vec::new(),
             next: Vec::new(),
             head: NONE,
             tail: NONE,
             slot_of: vec![NONE; n],
-            current_epoch: 0,
-            scratch: vec![0.0; n],
+            epoch: 0,
+            members: vec![Vec::new()],
+            users: vec![0],
             evaluations: 0,
             seconds: 0.0,
         }
     }
 
-    /// Ends an epoch: rows computed on part of the columns are no longer trusted.
-    pub fn new_epoch(&mut self) {
-        self.current_epoch += 1;
+    fn version(&self) -> u32 {
+        (self.members.len() - 1) as u32
     }
 
-    /// The row held in `slot`.
+    /// Starts an epoch with every row active: rows computed on part of the rows are no
+    /// longer usable.
+    pub fn new_epoch(&mut self) {
+        self.epoch += 1;
+        self.members = vec![Vec::new()];
+        self.users = vec![0];
+    }
+
+    /// Records that the active set shrank to `idx` (a subset of the current one).
+    pub fn shrunk(&mut self, idx: &[usize]) {
+        let v = self.members.len() - 1;
+        if v > 0 && self.users[v] == 0 {
+            self.members[v] = Vec::new();
+        }
+        self.members.push(idx.iter().map(|&r| r as u32).collect());
+        self.users.push(0);
+    }
+
+    /// The row held in `slot` (one entry per active row).
     #[inline]
     pub fn row(&self, slot: usize) -> &[f64] {
         &self.rows[slot]
+    }
+
+    /// Stops counting `slot` as a user of its layout version (version 0, every row, is
+    /// not counted: it needs no member list).
+    fn release(&mut self, slot: usize) {
+        let l = self.layout[slot];
+        let v = l.version as usize;
+        if l.epoch == self.epoch && v > 0 {
+            self.users[v] -= 1;
+            if self.users[v] == 0 && v + 1 < self.members.len() {
+                self.members[v] = Vec::new();
+            }
+        }
+    }
+
+    /// Records `slot` as stored for the current version (on every row when `full`).
+    fn acquire(&mut self, slot: usize, full: bool) {
+        let version = self.version();
+        self.layout[slot] = Layout {
+            epoch: if full { ANY } else { self.epoch },
+            version,
+        };
+        if !full && version > 0 {
+            self.users[version as usize] += 1;
+        }
     }
 
     fn unlink(&mut self, s: u32) {
@@ -184,72 +251,95 @@ impl RowCache {
         }
     }
 
-    /// The slot holding row `r` valid on the columns `active` (all columns when
-    /// `all_active`, and then `active.tiles` is not used), computing it if needed. The returned slot stays valid until the
-    /// next call that must evict (the least recently used row goes first, so with room
-    /// for two rows the previous call's slot survives one more call).
-    pub fn fetch(
-        &mut self,
-        r: usize,
-        src: &RowSource,
-        active: &ActiveRows,
-        all_active: bool,
-    ) -> usize {
+    /// The slot holding row `r` on the current active rows, computing or filtering it
+    /// if needed. The returned slot stays valid until the next call that must evict (the
+    /// least recently used row goes first, so with room for two rows the previous call's
+    /// slot survives one more call).
+    pub fn fetch(&mut self, r: usize, src: &RowSource, active: &ActiveRows) -> usize {
         let s = self.slot_of[r];
         if s != NONE {
             let su = s as usize;
             self.unlink(s);
             self.push_front(s);
-            if self.full[su] || self.epoch[su] == self.current_epoch {
+            let l = self.layout[su];
+            let current = self.version();
+            let same_epoch = l.epoch == self.epoch || (l.epoch == ANY && l.version == 0);
+            if same_epoch && l.version == current {
                 return su;
             }
-            self.compute(su, r, src, active, all_active);
+            self.release(su);
+            if same_epoch {
+                self.filter(su, l.version as usize, active);
+            } else {
+                self.compute(su, r, src, active);
+            }
             return su;
         }
         let su = if self.rows.len() < self.capacity {
-            // Written once here (NaN: never a kernel value, so a read of a column that
-            // was not computed shows), so that the memory is mapped before, and not
-            // timed as part of, the row's kernel values.
+            // Written once here, so that the memory is mapped before, and not timed as
+            // part of, the row's kernel values.
             let mut row = Vec::with_capacity(self.n);
             row.resize(self.n, f64::NAN);
             self.rows.push(row);
             self.owner.push(r);
-            self.full.push(false);
-            self.epoch.push(0);
+            self.layout.push(Layout {
+                epoch: ANY - 1,
+                version: 0,
+            });
             self.prev.push(NONE);
             self.next.push(NONE);
             self.rows.len() - 1
         } else {
             let victim = self.tail;
             self.unlink(victim);
+            self.release(victim as usize);
             self.slot_of[self.owner[victim as usize]] = NONE;
             victim as usize
         };
         self.owner[su] = r;
         self.slot_of[r] = su as u32;
         self.push_front(su as u32);
-        self.compute(su, r, src, active, all_active);
+        self.compute(su, r, src, active);
         su
     }
 
-    fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &ActiveRows, all: bool) {
+    /// Keeps, in order, the entries of the row in `su` (stored for version `v`) whose
+    /// rows are still active. Branch-free: every entry is copied to the next free place,
+    /// which advances only for a kept row (the place never passes the entry read).
+    fn filter(&mut self, su: usize, v: usize, active: &ActiveRows) {
+        let row = &mut self.rows[su];
+        let mut out = 0;
+        if v == 0 {
+            for (p, &keep) in active.mask.iter().enumerate() {
+                row[out] = row[p];
+                out += usize::from(keep);
+            }
+        } else {
+            for (p, &r) in self.members[v].iter().enumerate() {
+                row[out] = row[p];
+                out += usize::from(active.mask[r as usize]);
+            }
+        }
+        debug_assert_eq!(out, active.idx.len());
+        row.truncate(out);
+        self.acquire(su, false);
+    }
+
+    fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &ActiveRows) {
         let t0 = Instant::now();
+        let m = active.idx.len();
+        let all = m == self.n;
         let out = &mut self.rows[su];
+        // Never reallocates: the capacity is n.
+        out.resize(m, 0.0);
         let xr = src.row(r);
         if all {
             src.tiles.row_into(&src.kernel, xr, out);
-            self.evaluations += self.n as u64;
         } else {
-            let m = active.idx.len();
-            let scratch = &mut self.scratch[..m];
-            active.tiles.row_into(&src.kernel, xr, scratch);
-            for (&col, &v) in active.idx.iter().zip(scratch.iter()) {
-                out[col] = v;
-            }
-            self.evaluations += m as u64;
+            active.tiles.row_into(&src.kernel, xr, out);
         }
-        self.full[su] = all;
-        self.epoch[su] = self.current_epoch;
+        self.evaluations += m as u64;
+        self.acquire(su, all);
         self.seconds += t0.elapsed().as_secs_f64();
     }
 }

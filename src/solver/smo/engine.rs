@@ -16,6 +16,7 @@
 
 use super::cache::{ActiveRows, RowCache, RowSource};
 use super::rows::{Tiles, TILE};
+use super::scan::{self, Extremes, View, NONE};
 use super::Selection;
 use rayon::prelude::*;
 use std::time::Instant;
@@ -24,64 +25,38 @@ use std::time::Instant;
 /// Lin (2005), eq. (17).
 const TAU: f64 = 1e-12;
 
-/// One dual variable: row and sign.
+/// A shrink happens when at least `1/SHRINK_SHARE` of the active rows can leave.
+const SHRINK_SHARE: usize = 8;
+
+/// One dual variable: position among the active rows and sign.
 #[derive(Clone, Copy, Debug)]
 struct Var {
-    row: usize,
+    pos: usize,
     plus: bool,
 }
 
-/// The outcome of a first pass over the active rows.
-struct Extremes {
-    /// `m(α)` and the variable reaching it.
-    m: f64,
-    i: Option<Var>,
-    /// `M(α)` and the variable reaching it.
-    big_m: f64,
-    j: Option<Var>,
-}
-
-impl Extremes {
-    fn new() -> Self {
-        Extremes {
-            m: f64::NEG_INFINITY,
-            i: None,
-            big_m: f64::INFINITY,
-            j: None,
-        }
-    }
-
-    /// Takes row `r` (with `g_r`, `α⁺_r`, `α⁻_r`) into account.
-    #[inline(always)]
-    fn visit(&mut self, r: usize, gr: f64, ap: f64, am: f64, c: f64, eps: f64) {
-        let vp = -gr - eps;
-        let vm = -gr + eps;
-        if ap < c && vp > self.m {
-            self.m = vp;
-            self.i = Some(Var { row: r, plus: true });
-        }
-        if am > 0.0 && vm > self.m {
-            self.m = vm;
-            self.i = Some(Var {
-                row: r,
-                plus: false,
-            });
-        }
-        if ap > 0.0 && vp < self.big_m {
-            self.big_m = vp;
-            self.j = Some(Var { row: r, plus: true });
-        }
-        if am < c && vm < self.big_m {
-            self.big_m = vm;
-            self.j = Some(Var {
-                row: r,
-                plus: false,
-            });
-        }
+impl Var {
+    /// From a code of `scan` (`2·position + 1` for `α⁻`).
+    fn from_code(code: u64) -> Option<Var> {
+        (code != NONE).then_some(Var {
+            pos: (code / 2) as usize,
+            plus: code % 2 == 0,
+        })
     }
 }
 
-/// Solver state; see the module documentation.
+/// The state of the active rows, stored contiguously in the order of `ActiveRows::idx`
+/// (the passes over them dominate an iteration; see `scan.rs`).
+struct Compact {
+    g: Vec<f64>,
+    ap: Vec<f64>,
+    am: Vec<f64>,
+    diag: Vec<f64>,
+}
+
+/// Solver state; see the module documentation. The per-row vectors `ap`, `am`, `g` are
+/// indexed by training row and are current for the inactive rows; those of the active
+/// rows live in `act` and are written back by [`Engine::sync`].
 pub(super) struct Engine<'a> {
     src: RowSource<'a>,
     y: &'a [f64],
@@ -93,7 +68,7 @@ pub(super) struct Engine<'a> {
     pub g: Vec<f64>,
     diag: Vec<f64>,
     active: ActiveRows,
-    mask: Vec<bool>,
+    act: Compact,
     pub cache: RowCache,
     /// Kernel values computed outside the cache (diagonal, gradient reconstruction).
     pub extra_evaluations: u64,
@@ -112,6 +87,7 @@ impl<'a> Engine<'a> {
         let n = src.n;
         let t0 = Instant::now();
         let diag: Vec<f64> = (0..n).map(|r| src.value(r, r)).collect();
+        let g: Vec<f64> = y.iter().map(|v| -v).collect();
         Engine {
             y,
             c,
@@ -119,13 +95,19 @@ impl<'a> Engine<'a> {
             ap: vec![0.0; n],
             am: vec![0.0; n],
             beta: vec![0.0; n],
-            g: y.iter().map(|v| -v).collect(),
+            act: Compact {
+                g: g.clone(),
+                ap: vec![0.0; n],
+                am: vec![0.0; n],
+                diag: diag.clone(),
+            },
+            g,
             diag,
             active: ActiveRows {
                 idx: (0..n).collect(),
+                mask: vec![true; n],
                 tiles: Tiles::new(src.d),
             },
-            mask: vec![true; n],
             cache: RowCache::new(n, cache_rows),
             extra_evaluations: n as u64,
             extra_seconds: t0.elapsed().as_secs_f64(),
@@ -141,131 +123,116 @@ impl<'a> Engine<'a> {
         self.active.idx.len() == self.n()
     }
 
+    fn view(&self) -> View<'_> {
+        View {
+            ap: &self.act.ap,
+            am: &self.act.am,
+            c: self.c,
+            eps: self.eps,
+        }
+    }
+
     #[inline]
     fn value(&self, v: Var) -> f64 {
         if v.plus {
-            -self.g[v.row] - self.eps
+            -self.act.g[v.pos] - self.eps
         } else {
-            -self.g[v.row] + self.eps
+            -self.act.g[v.pos] + self.eps
         }
     }
 
     /// `m(α)`, `M(α)` and the variables reaching them, over the active rows.
-    fn extremes(&self) -> Extremes {
-        let mut e = Extremes::new();
-        for &r in &self.active.idx {
-            e.visit(r, self.g[r], self.ap[r], self.am[r], self.c, self.eps);
-        }
-        e
+    fn extremes(&mut self) -> Extremes {
+        let view = View {
+            ap: &self.act.ap,
+            am: &self.act.am,
+            c: self.c,
+            eps: self.eps,
+        };
+        scan::extremes::<false>(&mut self.act.g, view.ap, view.ap, 0.0, 0.0, &view)
     }
 
-    /// Second-order choice of `j` given `i` (Fan, Chen & Lin 2005, WSS2): among the
-    /// down-movable variables with `v_t < m`, minimise `−(m − v_t)² / a_it`.
-    fn second_order_j(&self, i: Var, m: f64, ki: &[f64]) -> Option<Var> {
-        let (c, eps) = (self.c, self.eps);
-        let kii = self.diag[i.row];
-        let mut best = f64::INFINITY;
-        let mut j = None;
-        for &r in &self.active.idx {
-            let a = kii + self.diag[r] - 2.0 * ki[r];
-            let a = if a > 0.0 { a } else { TAU };
-            if self.ap[r] > 0.0 {
-                let b = m - (-self.g[r] - eps);
-                if b > 0.0 {
-                    let o = -b * b / a;
-                    if o < best {
-                        best = o;
-                        j = Some(Var { row: r, plus: true });
-                    }
-                }
-            }
-            if self.am[r] < c {
-                let b = m - (-self.g[r] + eps);
-                if b > 0.0 {
-                    let o = -b * b / a;
-                    if o < best {
-                        best = o;
-                        j = Some(Var {
-                            row: r,
-                            plus: false,
-                        });
-                    }
-                }
-            }
+    /// Writes the active rows' state back to the per-row vectors.
+    fn sync(&mut self) {
+        for (p, &r) in self.active.idx.iter().enumerate() {
+            self.g[r] = self.act.g[p];
+            self.ap[r] = self.act.ap[p];
+            self.am[r] = self.act.am[p];
         }
-        j
     }
 
     /// Moves the pair `(i, j)` to the minimum of the objective on their segment and
     /// returns the extremes of the new point (found in the same pass as the gradient
     /// update).
     fn step(&mut self, i: Var, j: Var, si: usize) -> Extremes {
-        let (ri, rj) = (i.row, j.row);
+        let (pi, pj) = (i.pos, j.pos);
+        let (ri, rj) = (self.active.idx[pi], self.active.idx[pj]);
         let c = self.c;
-        let ki_rj = self.cache.row(si)[rj];
+        let ki_j = self.cache.row(si)[pj];
         let b = self.value(i) - self.value(j);
-        let a = self.diag[ri] + self.diag[rj] - 2.0 * ki_rj;
+        let a = self.act.diag[pi] + self.act.diag[pj] - 2.0 * ki_j;
         let a = if a > 0.0 { a } else { TAU };
-        let cap_i = if i.plus { c - self.ap[ri] } else { self.am[ri] };
-        let cap_j = if j.plus { self.ap[rj] } else { c - self.am[rj] };
+        let (ap, am) = (&mut self.act.ap, &mut self.act.am);
+        let cap_i = if i.plus { c - ap[pi] } else { am[pi] };
+        let cap_j = if j.plus { ap[pj] } else { c - am[pj] };
         let delta = (b / a).min(cap_i).min(cap_j);
         // Variables that reach a bound are set to it exactly.
         if i.plus {
-            self.ap[ri] = if delta >= cap_i {
+            ap[pi] = if delta >= cap_i {
                 c
             } else {
-                (self.ap[ri] + delta).min(c)
+                (ap[pi] + delta).min(c)
             };
         } else {
-            self.am[ri] = if delta >= cap_i {
+            am[pi] = if delta >= cap_i {
                 0.0
             } else {
-                (self.am[ri] - delta).max(0.0)
+                (am[pi] - delta).max(0.0)
             };
         }
         if j.plus {
-            self.ap[rj] = if delta >= cap_j {
+            ap[pj] = if delta >= cap_j {
                 0.0
             } else {
-                (self.ap[rj] - delta).max(0.0)
+                (ap[pj] - delta).max(0.0)
             };
         } else {
-            self.am[rj] = if delta >= cap_j {
+            am[pj] = if delta >= cap_j {
                 c
             } else {
-                (self.am[rj] + delta).min(c)
+                (am[pj] + delta).min(c)
             };
         }
-        let db_i = (self.ap[ri] - self.am[ri]) - self.beta[ri];
+        let db_i = (ap[pi] - am[pi]) - self.beta[ri];
+        let beta_j = ap[pj] - am[pj];
         self.beta[ri] += db_i;
         if ri == rj {
             // α⁺ and α⁻ of one row fell together; β and hence g are unchanged.
             return self.extremes();
         }
-        let db_j = (self.ap[rj] - self.am[rj]) - self.beta[rj];
+        let db_j = beta_j - self.beta[rj];
         self.beta[rj] += db_j;
-        let all = self.all_active();
-        let sj = self.cache.fetch(rj, &self.src, &self.active, all);
+        let sj = self.cache.fetch(rj, &self.src, &self.active);
         let (ki, kj) = (self.cache.row(si), self.cache.row(sj));
-        let (c, eps) = (self.c, self.eps);
-        let mut e = Extremes::new();
-        for &r in &self.active.idx {
-            let gr = self.g[r] + (db_i * ki[r] + db_j * kj[r]);
-            self.g[r] = gr;
-            e.visit(r, gr, self.ap[r], self.am[r], c, eps);
-        }
-        e
+        let view = View {
+            ap: &self.act.ap,
+            am: &self.act.am,
+            c: self.c,
+            eps: self.eps,
+        };
+        scan::extremes::<true>(&mut self.act.g, ki, kj, db_i, db_j, &view)
     }
 
     /// Recomputes `g` on the inactive rows from the support vectors and makes every row
     /// active again.
     pub fn reconstruct(&mut self) {
+        self.sync();
         if self.all_active() {
             return;
         }
         let t0 = Instant::now();
         let sv: Vec<usize> = (0..self.n()).filter(|&s| self.beta[s] != 0.0).collect();
-        let inactive: Vec<usize> = (0..self.n()).filter(|&r| !self.mask[r]).collect();
+        let inactive: Vec<usize> = (0..self.n()).filter(|&r| !self.active.mask[r]).collect();
         let mut sv_tiles = Tiles::new(self.src.d);
         sv_tiles.gather(self.src.x, sv.iter().copied());
         let sv_beta: Vec<f64> = sv.iter().map(|&s| self.beta[s]).collect();
@@ -293,7 +260,11 @@ impl<'a> Engine<'a> {
         self.extra_evaluations += (inactive.len() * sv.len()) as u64;
         self.extra_seconds += t0.elapsed().as_secs_f64();
         self.active.idx = (0..self.n()).collect();
-        self.mask.iter_mut().for_each(|m| *m = true);
+        self.active.mask.iter_mut().for_each(|m| *m = true);
+        self.act.g.clone_from(&self.g);
+        self.act.ap.clone_from(&self.ap);
+        self.act.am.clone_from(&self.am);
+        self.act.diag.clone_from(&self.diag);
         self.cache.new_epoch();
     }
 
@@ -309,22 +280,47 @@ impl<'a> Engine<'a> {
                 (false, false) => true,
             }
         };
-        let mut kept = Vec::with_capacity(self.active.idx.len());
-        for &r in &self.active.idx {
-            let vp = -self.g[r] - eps;
-            let vm = -self.g[r] + eps;
-            let plus_out = can_go(self.ap[r] < c, self.ap[r] > 0.0, vp);
-            let minus_out = can_go(self.am[r] > 0.0, self.am[r] < c, vm);
-            if plus_out && minus_out {
-                self.mask[r] = false;
-            } else {
+        let keep: Vec<bool> = (0..self.active.idx.len())
+            .map(|p| {
+                let (g, ap, am) = (self.act.g[p], self.act.ap[p], self.act.am[p]);
+                let plus_out = can_go(ap < c, ap > 0.0, -g - eps);
+                let minus_out = can_go(am > 0.0, am < c, -g + eps);
+                !(plus_out && minus_out)
+            })
+            .collect();
+        // Each shrink makes cached kernel rows be compacted again when next used (an
+        // O(active) pass each), so rows leave only in groups of at least an eighth of the
+        // active set; the few that could leave earlier just stay in the scans.
+        let leaving = keep.iter().filter(|&&k| !k).count();
+        if leaving == 0 || leaving * SHRINK_SHARE < keep.len() {
+            return;
+        }
+        self.sync();
+        let filter = |v: &mut Vec<f64>| {
+            let mut out = 0;
+            for p in 0..keep.len() {
+                if keep[p] {
+                    v[out] = v[p];
+                    out += 1;
+                }
+            }
+            v.truncate(out);
+        };
+        filter(&mut self.act.g);
+        filter(&mut self.act.ap);
+        filter(&mut self.act.am);
+        filter(&mut self.act.diag);
+        let mut kept = Vec::with_capacity(self.act.g.len());
+        for (p, &r) in self.active.idx.iter().enumerate() {
+            if keep[p] {
                 kept.push(r);
+            } else {
+                self.active.mask[r] = false;
             }
         }
-        if kept.len() < self.active.idx.len() {
-            self.active.tiles.gather(self.src.x, kept.iter().copied());
-        }
+        self.active.tiles.gather(self.src.x, kept.iter().copied());
         self.active.idx = kept;
+        self.cache.shrunk(&self.active.idx);
     }
 
     /// Iterates until `m − M ≤ tol` on all rows or `max_iterations` steps.
@@ -357,7 +353,7 @@ impl<'a> Engine<'a> {
                 Some(e) => e,
                 None => self.extremes(),
             };
-            let (i, first_j) = match (e.i, e.j) {
+            let (i, first_j) = match (Var::from_code(e.i), Var::from_code(e.j)) {
                 (Some(i), Some(j)) if e.m - e.big_m > tol => (i, j),
                 _ => {
                     if self.all_active() {
@@ -372,13 +368,23 @@ impl<'a> Engine<'a> {
             if iterations >= max_iterations {
                 break false;
             }
-            let all = self.all_active();
-            let si = self.cache.fetch(i.row, &self.src, &self.active, all);
+            let si = self
+                .cache
+                .fetch(self.active.idx[i.pos], &self.src, &self.active);
             let j = match selection {
                 Selection::FirstOrder => first_j,
-                Selection::SecondOrder => self
-                    .second_order_j(i, e.m, self.cache.row(si))
-                    .unwrap_or(first_j),
+                Selection::SecondOrder => {
+                    let code = scan::wss2(
+                        &self.act.g,
+                        &self.act.diag,
+                        self.cache.row(si),
+                        self.act.diag[i.pos],
+                        e.m,
+                        TAU,
+                        &self.view(),
+                    );
+                    Var::from_code(code).unwrap_or(first_j)
+                }
             };
             next = Some(self.step(i, j, si));
             iterations += 1;
@@ -393,9 +399,9 @@ impl<'a> Engine<'a> {
 
     /// `m(α) − M(α)` over all rows (call after [`Engine::reconstruct`]); zero when no
     /// pair of variables can move.
-    pub fn gap_and_bias(&self) -> (f64, f64) {
+    pub fn gap_and_bias(&mut self) -> (f64, f64) {
         let e = self.extremes();
-        let gap = if e.i.is_some() && e.j.is_some() {
+        let gap = if e.i != NONE && e.j != NONE {
             (e.m - e.big_m).max(0.0)
         } else {
             0.0

@@ -29,6 +29,7 @@
 mod cache;
 mod engine;
 mod rows;
+mod scan;
 
 use std::time::Instant;
 

@@ -1,0 +1,433 @@
+//! The passes over the active variables that dominate an SMO iteration: the maximal
+//! violating values `m(α)`, `M(α)` (fused with the gradient update `g += δᵢKᵢ + δⱼKⱼ`,
+//! as in Fan, Chen & Lin, JMLR 6, 2005, §4 and §6) and the second-order choice of the
+//! second variable (their WSS2).
+//!
+//! The active rows are stored contiguously (see `engine.rs`), so every pass is a
+//! straight loop over slices. It runs [`LANES`] positions at a time, each lane keeping
+//! its own best value and the position reaching it with a strict comparison (the
+//! earliest in that lane wins ties); the lanes are then merged taking the best value and,
+//! among equal values, the smallest position. That is exactly the result of one
+//! sequential scan with a strict comparison, so the chosen variables do not depend on
+//! the lane count, the instruction set or the thread count; no sum is reordered.
+//!
+//! The two variables of one row share their gradient, so a row contributes at most one
+//! candidate to each choice: with `v⁺ = −g − ε ≤ v⁻ = −g + ε` (rounding is monotone),
+//! the up-movable `α⁻` beats `α⁺` exactly when `v⁻ > v⁺`, the down-movable `α⁺` always
+//! beats `α⁻`, and in WSS2 `α⁺` (whose gap `b` is the larger) always beats `α⁻`. A
+//! candidate is coded `2·position + 1` for `α⁻`, `2·position` for `α⁺`.
+
+/// Positions handled together.
+const LANES: usize = 8;
+/// Code of "no candidate".
+pub(super) const NONE: u64 = u64::MAX;
+
+/// `m(α)` with the code of a variable reaching it, and `M(α)` likewise.
+#[derive(Clone, Copy, Debug)]
+pub(super) struct Extremes {
+    /// `m(α)` (−∞ when no variable can move up).
+    pub m: f64,
+    /// Its variable, or [`NONE`].
+    pub i: u64,
+    /// `M(α)` (+∞ when no variable can move down).
+    pub big_m: f64,
+    /// Its variable, or [`NONE`].
+    pub j: u64,
+}
+
+/// The state of the active rows a pass reads.
+pub(super) struct View<'s> {
+    /// `α⁺` of each active row.
+    pub ap: &'s [f64],
+    /// `α⁻` of each active row.
+    pub am: &'s [f64],
+    /// The box bound C.
+    pub c: f64,
+    /// The tube half-width ε.
+    pub eps: f64,
+}
+
+/// Lane-wise best values and codes (maximum when `MAX`, else minimum).
+struct Best<const MAX: bool> {
+    v: [f64; LANES],
+    code: [u64; LANES],
+}
+
+impl<const MAX: bool> Best<MAX> {
+    fn new() -> Self {
+        let start = if MAX {
+            f64::NEG_INFINITY
+        } else {
+            f64::INFINITY
+        };
+        Best {
+            v: [start; LANES],
+            code: [NONE; LANES],
+        }
+    }
+
+    #[inline(always)]
+    fn offer(&mut self, q: usize, v: f64, code: u64) {
+        let better = if MAX { v > self.v[q] } else { v < self.v[q] };
+        self.v[q] = if better { v } else { self.v[q] };
+        self.code[q] = if better { code } else { self.code[q] };
+    }
+
+    /// The best over lanes, the smallest code among equal values.
+    fn merge(&self) -> (f64, u64) {
+        let mut best = (self.v[0], self.code[0]);
+        for q in 1..LANES {
+            let (v, c) = (self.v[q], self.code[q]);
+            let better = if MAX { v > best.0 } else { v < best.0 };
+            if c != NONE && (better || (v == best.0 && c < best.1)) {
+                best = (v, c);
+            }
+        }
+        best
+    }
+}
+
+/// The up and down candidates of one row with gradient `g` at position `p`: value and
+/// code of each (±∞ and [`NONE`] when the row has none).
+#[inline(always)]
+fn candidates(p: u64, g: f64, ap: f64, am: f64, c: f64, eps: f64) -> (f64, u64, f64, u64) {
+    let vp = -g - eps;
+    let vm = -g + eps;
+    let (up_p, up_m) = (ap < c, am > 0.0);
+    let take_m = up_m & (!up_p | (vm > vp));
+    let up_v = if take_m {
+        vm
+    } else if up_p {
+        vp
+    } else {
+        f64::NEG_INFINITY
+    };
+    let up_c = if take_m { 2 * p + 1 } else { 2 * p };
+    let (down_p, down_m) = (ap > 0.0, am < c);
+    let down_v = if down_p {
+        vp
+    } else if down_m {
+        vm
+    } else {
+        f64::INFINITY
+    };
+    let down_c = if down_p { 2 * p } else { 2 * p + 1 };
+    (up_v, up_c, down_v, down_c)
+}
+
+/// Gradient update `g_p += di·ki_p + dj·kj_p` over the active rows when `UPDATE`, then
+/// `m(α)`, `M(α)` of the (new) point, in one pass.
+#[inline(always)]
+fn extremes_generic<const UPDATE: bool>(
+    g: &mut [f64],
+    ki: &[f64],
+    kj: &[f64],
+    di: f64,
+    dj: f64,
+    s: &View,
+) -> Extremes {
+    let n = g.len();
+    assert!(
+        s.ap.len() == n && s.am.len() == n && ki.len() == n && kj.len() == n,
+        "scan: lengths"
+    );
+    let (c, eps) = (s.c, s.eps);
+    let mut up = Best::<true>::new();
+    let mut down = Best::<false>::new();
+    let full = n - n % LANES;
+    let chunks = g[..full]
+        .chunks_exact_mut(LANES)
+        .zip(s.ap.chunks_exact(LANES))
+        .zip(s.am.chunks_exact(LANES))
+        .zip(ki.chunks_exact(LANES).zip(kj.chunks_exact(LANES)));
+    for (b, (((gc, apc), amc), (kic, kjc))) in chunks.enumerate() {
+        let gc: &mut [f64; LANES] = gc.try_into().expect("chunk");
+        let apc: &[f64; LANES] = apc.try_into().expect("chunk");
+        let amc: &[f64; LANES] = amc.try_into().expect("chunk");
+        let kic: &[f64; LANES] = kic.try_into().expect("chunk");
+        let kjc: &[f64; LANES] = kjc.try_into().expect("chunk");
+        let base = (b * LANES) as u64;
+        for q in 0..LANES {
+            if UPDATE {
+                gc[q] += di * kic[q] + dj * kjc[q];
+            }
+            let (uv, uc, dv, dc) = candidates(base + q as u64, gc[q], apc[q], amc[q], c, eps);
+            up.offer(q, uv, uc);
+            down.offer(q, dv, dc);
+        }
+    }
+    for p in full..n {
+        if UPDATE {
+            g[p] += di * ki[p] + dj * kj[p];
+        }
+        let (uv, uc, dv, dc) = candidates(p as u64, g[p], s.ap[p], s.am[p], c, eps);
+        up.offer(0, uv, uc);
+        down.offer(0, dv, dc);
+    }
+    let (m, i) = up.merge();
+    let (big_m, j) = down.merge();
+    Extremes { m, i, big_m, j }
+}
+
+/// One row's WSS2 objective `−b²/a` and code, `+∞` when it offers no candidate.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn wss2_row(
+    p: u64,
+    g: f64,
+    ap: f64,
+    am: f64,
+    d: f64,
+    k: f64,
+    kii: f64,
+    m: f64,
+    tau: f64,
+    c: f64,
+    eps: f64,
+) -> (f64, u64) {
+    let a = kii + d - 2.0 * k;
+    let a = if a > 0.0 { a } else { tau };
+    let bp = m - (-g - eps);
+    let bm = m - (-g + eps);
+    let take_p = (ap > 0.0) & (bp > 0.0);
+    let take_m = (am < c) & (bm > 0.0);
+    let b = if take_p { bp } else { bm };
+    let o = -b * b / a;
+    let o = if take_p | take_m { o } else { f64::INFINITY };
+    (o, if take_p { 2 * p } else { 2 * p + 1 })
+}
+
+/// WSS2 (Fan, Chen & Lin 2005): among the down-movable variables `t` with `v_t < m`,
+/// the one minimising `−(m − v_t)² / a_t`, with `a_t = K_ii + K_tt − 2K_it` (or `tau`
+/// when not positive).
+#[inline(always)]
+fn wss2_generic(g: &[f64], diag: &[f64], ki: &[f64], kii: f64, m: f64, tau: f64, s: &View) -> u64 {
+    let n = g.len();
+    assert!(
+        s.ap.len() == n && s.am.len() == n && diag.len() == n && ki.len() == n,
+        "wss2: lengths"
+    );
+    let (c, eps) = (s.c, s.eps);
+    let mut best = Best::<false>::new();
+    let full = n - n % LANES;
+    let chunks = g[..full]
+        .chunks_exact(LANES)
+        .zip(s.ap.chunks_exact(LANES))
+        .zip(s.am.chunks_exact(LANES))
+        .zip(diag.chunks_exact(LANES).zip(ki.chunks_exact(LANES)));
+    for (b, (((gc, apc), amc), (dc, kc))) in chunks.enumerate() {
+        let gc: &[f64; LANES] = gc.try_into().expect("chunk");
+        let apc: &[f64; LANES] = apc.try_into().expect("chunk");
+        let amc: &[f64; LANES] = amc.try_into().expect("chunk");
+        let dc: &[f64; LANES] = dc.try_into().expect("chunk");
+        let kc: &[f64; LANES] = kc.try_into().expect("chunk");
+        let base = (b * LANES) as u64;
+        for q in 0..LANES {
+            let (o, code) = wss2_row(
+                base + q as u64,
+                gc[q],
+                apc[q],
+                amc[q],
+                dc[q],
+                kc[q],
+                kii,
+                m,
+                tau,
+                c,
+                eps,
+            );
+            best.offer(q, o, code);
+        }
+    }
+    for p in full..n {
+        let (o, code) = wss2_row(
+            p as u64, g[p], s.ap[p], s.am[p], diag[p], ki[p], kii, m, tau, c, eps,
+        );
+        best.offer(0, o, code);
+    }
+    best.merge().1
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn extremes_avx2<const UPDATE: bool>(
+    g: &mut [f64],
+    ki: &[f64],
+    kj: &[f64],
+    di: f64,
+    dj: f64,
+    s: &View,
+) -> Extremes {
+    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn wss2_avx2(
+    g: &[f64],
+    diag: &[f64],
+    ki: &[f64],
+    kii: f64,
+    m: f64,
+    tau: f64,
+    s: &View,
+) -> u64 {
+    wss2_generic(g, diag, ki, kii, m, tau, s)
+}
+
+/// `m(α)`, `M(α)` and their variables, after `g += di·ki + dj·kj` when `UPDATE`
+/// (`ki`, `kj` are not read otherwise). Compiled for AVX2 when the CPU has it (four f64
+/// a register instead of two); without FMA the operations, and so the results, are those
+/// of the generic build.
+pub(super) fn extremes<const UPDATE: bool>(
+    g: &mut [f64],
+    ki: &[f64],
+    kj: &[f64],
+    di: f64,
+    dj: f64,
+    s: &View,
+) -> Extremes {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU reports AVX2.
+            return unsafe { extremes_avx2::<UPDATE>(g, ki, kj, di, dj, s) };
+        }
+    }
+    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s)
+}
+
+/// The WSS2 choice of the second variable (its code, or [`NONE`]); dispatched like
+/// [`extremes`].
+pub(super) fn wss2(
+    g: &[f64],
+    diag: &[f64],
+    ki: &[f64],
+    kii: f64,
+    m: f64,
+    tau: f64,
+    s: &View,
+) -> u64 {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU reports AVX2.
+            return unsafe { wss2_avx2(g, diag, ki, kii, m, tau, s) };
+        }
+    }
+    wss2_generic(g, diag, ki, kii, m, tau, s)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// The sequential scans the lane-wise passes must reproduce: every variable visited
+    /// in order (α⁺ then α⁻ of each row) with a strict comparison, as written in Fan,
+    /// Chen & Lin (JMLR 2005), WSS2 and the maximal violating pair.
+    fn sequential(g: &[f64], ap: &[f64], am: &[f64], c: f64, eps: f64) -> Extremes {
+        let mut e = Extremes {
+            m: f64::NEG_INFINITY,
+            i: NONE,
+            big_m: f64::INFINITY,
+            j: NONE,
+        };
+        for p in 0..g.len() {
+            let (vp, vm) = (-g[p] - eps, -g[p] + eps);
+            let code = 2 * p as u64;
+            for (up, down, v, k) in [
+                (ap[p] < c, ap[p] > 0.0, vp, code),
+                (am[p] > 0.0, am[p] < c, vm, code + 1),
+            ] {
+                if up && v > e.m {
+                    (e.m, e.i) = (v, k);
+                }
+                if down && v < e.big_m {
+                    (e.big_m, e.j) = (v, k);
+                }
+            }
+        }
+        e
+    }
+
+    fn sequential_wss2(g: &[f64], s: &View, diag: &[f64], ki: &[f64], kii: f64, m: f64) -> u64 {
+        let (mut best, mut j) = (f64::INFINITY, NONE);
+        for p in 0..g.len() {
+            let a = kii + diag[p] - 2.0 * ki[p];
+            let a = if a > 0.0 { a } else { 1e-12 };
+            for (ok, v, k) in [
+                (s.ap[p] > 0.0, -g[p] - s.eps, 2 * p as u64),
+                (s.am[p] < s.c, -g[p] + s.eps, 2 * p as u64 + 1),
+            ] {
+                let b = m - v;
+                if ok && b > 0.0 && -b * b / a < best {
+                    (best, j) = (-b * b / a, k);
+                }
+            }
+        }
+        j
+    }
+
+    /// Lane-wise passes choose exactly the variables of the sequential scans, and update
+    /// the gradient exactly, on data full of ties (few distinct values, ε = 0 included,
+    /// lengths that end in a partial group of lanes). Reference: the definitions above
+    /// (common practice for a re-arranged computation).
+    #[test]
+    fn lanes_choose_as_the_sequential_scan() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let c = 2.0;
+        for trial in 0..300 {
+            let n = 1 + trial % 45;
+            let eps = if trial % 3 == 0 { 0.0 } else { 0.25 };
+            let pick = |rng: &mut ChaCha8Rng| [0.0, 0.5, c][rng.random_range(0..3)];
+            let g: Vec<f64> = (0..n)
+                .map(|_| rng.random_range(-3..=3) as f64 * 0.5)
+                .collect();
+            let ap: Vec<f64> = (0..n).map(|_| pick(&mut rng)).collect();
+            let am: Vec<f64> = (0..n).map(|_| pick(&mut rng)).collect();
+            let ki: Vec<f64> = (0..n)
+                .map(|_| rng.random_range(0..4) as f64 * 0.25)
+                .collect();
+            let kj: Vec<f64> = (0..n)
+                .map(|_| rng.random_range(0..4) as f64 * 0.25)
+                .collect();
+            let diag = vec![1.0; n];
+            let s = View {
+                ap: &ap,
+                am: &am,
+                c,
+                eps,
+            };
+            let mut g1 = g.clone();
+            let e = extremes::<false>(&mut g1, &ap, &ap, 0.0, 0.0, &s);
+            let r = sequential(&g, &ap, &am, c, eps);
+            assert_eq!(
+                (e.m, e.i, e.big_m, e.j),
+                (r.m, r.i, r.big_m, r.j),
+                "trial {trial}"
+            );
+            let e = extremes::<true>(&mut g1, &ki, &kj, 0.5, -0.25, &s);
+            let g2: Vec<f64> = (0..n)
+                .map(|p| g[p] + (0.5 * ki[p] + -0.25 * kj[p]))
+                .collect();
+            assert_eq!(g1, g2, "trial {trial}");
+            let r = sequential(&g2, &ap, &am, c, eps);
+            assert_eq!(
+                (e.m, e.i, e.big_m, e.j),
+                (r.m, r.i, r.big_m, r.j),
+                "trial {trial}"
+            );
+            if r.i != NONE {
+                let kii = 1.0;
+                let got = wss2(&g2, &diag, &ki, kii, r.m, 1e-12, &s);
+                assert_eq!(
+                    got,
+                    sequential_wss2(&g2, &s, &diag, &ki, kii, r.m),
+                    "trial {trial}"
+                );
+            }
+        }
+    }
+}
