@@ -212,18 +212,21 @@ pub(crate) fn chunk_rows(output_dim: usize) -> usize {
 pub(crate) const CHUNK_BYTES: usize = 512 * 1024;
 
 /// Output columns per panel of the Fourier transforms (see [`panel_layout`]).
-pub(crate) const PANEL_COLS: usize = 512;
+pub(crate) const PANEL_COLS: usize = 256;
 
-/// Target size of one output block of the Fourier transforms (256 KiB).
-pub(crate) const BLOCK_BYTES: usize = 256 * 1024;
+/// Target size of one output block of the Fourier transforms (128 KiB).
+pub(crate) const BLOCK_BYTES: usize = 128 * 1024;
 
 /// `(rows, columns)` of the output blocks a Fourier transform fills at a time: the rows
-/// of one parallel chunk (16 to 256) times a panel of at most [`PANEL_COLS`] columns,
-/// about [`BLOCK_BYTES`] in all. The product writes one block and the cosine pass runs
-/// over it at once, while the block, the panel of frequencies it was made from and the
-/// product's packing buffers are all still in the level-2 cache (1 MiB a core on the
-/// machine the targets were measured on); a whole chunk row of D = 4,096 values, by
-/// contrast, no longer fits there beside the frequency matrix.
+/// of one parallel chunk (16 to 256; 64 from D = 256 up) times a panel of at most
+/// [`PANEL_COLS`] columns, about [`BLOCK_BYTES`] in all. The product writes one block and
+/// the cosine pass runs over it at once, while the block, the panel of frequencies it was
+/// made from and the product's packing buffers are all still in the level-2 cache (1 MiB
+/// a core on the machine the targets were measured on). Whole rows of D = 4,096 values
+/// did not stay there beside the 640 KiB frequency matrix (chunks of 16 rows × 512 KiB),
+/// and 64-row chunks let the product pack each panel of W once per 64 rows instead of
+/// once per 16. Blocks of 64 × 256 to 128 × 256 and 64 × 512 measured alike; wider
+/// blocks of whole rows at D = 4,096 and 16-row chunks were slower.
 pub(crate) fn panel_layout(output_dim: usize) -> (usize, usize) {
     let cols = output_dim.clamp(1, PANEL_COLS);
     ((BLOCK_BYTES / (8 * cols)).clamp(16, 256), cols)
