@@ -39,12 +39,12 @@ fn fourier(kernel: Kernel, d: usize, dd: usize, variant: FourierVariant, seed: u
 
 // ---------------------------------------------------------------- fast cosine
 
+/// Every code path this CPU can run.
 fn paths() -> Vec<CosPath> {
-    let mut p = vec![CosPath::Generic];
-    if fastcos::detected_path() == CosPath::Avx2Fma {
-        p.push(CosPath::Avx2Fma);
-    }
-    p
+    [CosPath::Generic, CosPath::Avx2Fma, CosPath::Avx512]
+        .into_iter()
+        .filter(|p| fastcos::path_supported(*p))
+        .collect()
 }
 
 #[test]
@@ -53,10 +53,14 @@ fn fast_cosine_matches_std_on_a_dense_grid() {
     let mut xs: Vec<f64> = (0..=6_000_000).map(|i| -300.0 + i as f64 * 1e-4).collect();
     let mut rng = ChaCha8Rng::seed_from_u64(11);
     xs.extend((0..200_000).map(|_| rng.random_range(-1.0e6..1.0e6)));
+    let mut simd_bits: Vec<(CosPath, bool, Vec<u64>)> = Vec::new();
     for path in paths() {
         for sine in [false, true] {
             let mut ys = xs.clone();
             fastcos::eval_with(path, &mut ys, 1.0, sine);
+            if path != CosPath::Generic {
+                simd_bits.push((path, sine, bits_of(&ys)));
+            }
             let mut worst = 0.0f64;
             for (x, y) in xs.iter().zip(&ys) {
                 let want = if sine { x.sin() } else { x.cos() };
@@ -65,6 +69,16 @@ fn fast_cosine_matches_std_on_a_dense_grid() {
             println!("{path:?} sine={sine}: max abs error vs std {worst:.3e}");
             // reference library: Rust std f64::cos / f64::sin; documented bound 1e-15.
             assert!(worst <= 1e-15, "{path:?} sine={sine}: {worst:e}");
+        }
+    }
+    // The SIMD paths run the same correctly rounded IEEE 754 operations (fused
+    // multiply-add included) lane by lane, so they agree bit for bit (common practice:
+    // IEEE 754-2008 rounding of each operation).
+    for (pa, sa, a) in &simd_bits {
+        for (pb, sb, b) in &simd_bits {
+            if sa == sb && pa != pb {
+                assert!(a == b, "{pa:?} and {pb:?} differ (sine={sa})");
+            }
         }
     }
 }
@@ -147,34 +161,64 @@ fn cos_phase_map_is_the_published_feature() {
         (Kernel::new(KernelKind::Laplacian, 0.5).unwrap(), false),
         (Kernel::new(KernelKind::Matern32, 0.5).unwrap(), false),
     ] {
-        let dd = 333;
-        let map = if orthogonal {
-            OrthogonalMap::orthogonal(kernel, 7, dd, FourierVariant::CosPhase, 5).unwrap()
-        } else {
-            fourier(kernel, 7, dd, FourierVariant::CosPhase, 5)
-        };
-        let z = map.transform(x.view());
-        let (w, b) = (map.frequencies(), map.phases().unwrap());
-        let scale = (2.0 / dd as f64).sqrt();
-        for (row, zrow) in x.rows().into_iter().zip(z.rows()) {
-            for j in 0..dd {
-                let (mut arg, mut size) = (b[j], b[j].abs());
-                for (xk, wk) in row.iter().zip(w.column(j)) {
-                    arg += xk * wk;
-                    size += (xk * wk).abs();
+        // 333 fits one output panel; 1,100 spans three, the last one partial.
+        for dd in [333, 1100] {
+            let map = if orthogonal {
+                OrthogonalMap::orthogonal(kernel, 7, dd, FourierVariant::CosPhase, 5).unwrap()
+            } else {
+                fourier(kernel, 7, dd, FourierVariant::CosPhase, 5)
+            };
+            let z = map.transform(x.view());
+            let (w, b) = (map.frequencies(), map.phases().unwrap());
+            let scale = (2.0 / dd as f64).sqrt();
+            for (row, zrow) in x.rows().into_iter().zip(z.rows()) {
+                for j in 0..dd {
+                    let (mut arg, mut size) = (b[j], b[j].abs());
+                    for (xk, wk) in row.iter().zip(w.column(j)) {
+                        arg += xk * wk;
+                        size += (xk * wk).abs();
+                    }
+                    let want = scale * arg.cos();
+                    // published: Rahimi & Recht (NIPS 2007), the feature's definition; the
+                    // tolerance covers the rounding of the argument (a few units in the last
+                    // place of the sum of |terms|) and of the cosine (1e-15).
+                    let tol = scale * (1e-15 + 32.0 * f64::EPSILON * size);
+                    assert!(
+                        (zrow[j] - want).abs() <= tol,
+                        "{:?}: {} vs {want}",
+                        kernel.kind,
+                        zrow[j]
+                    );
                 }
-                let want = scale * arg.cos();
-                // published: Rahimi & Recht (NIPS 2007), the feature's definition; the
-                // tolerance covers the rounding of the argument (a few units in the last
-                // place of the sum of |terms|) and of the cosine (1e-15).
-                let tol = scale * (1e-15 + 32.0 * f64::EPSILON * size);
-                assert!(
-                    (zrow[j] - want).abs() <= tol,
-                    "{:?}: {} vs {want}",
-                    kernel.kind,
-                    zrow[j]
-                );
             }
+        }
+    }
+}
+
+#[test]
+fn sin_cos_map_is_the_published_feature() {
+    // z(x) = sqrt(2/D) [cos(w.x), sin(w.x)], evaluated directly with std cos, sin and a
+    // plain dot; D = 1,100 (550 frequencies) spans several output panels.
+    let x = normal_rows(200, 7, 14);
+    let kernel = Kernel::gaussian(0.3).unwrap();
+    let dd = 1100;
+    let m = dd / 2;
+    let map = fourier(kernel, 7, dd, FourierVariant::SinCos, 6);
+    let z = map.transform(x.view());
+    let w = map.frequencies();
+    let scale = (2.0 / dd as f64).sqrt();
+    for (row, zrow) in x.rows().into_iter().zip(z.rows()) {
+        for j in 0..m {
+            let (mut arg, mut size) = (0.0, 0.0);
+            for (xk, wk) in row.iter().zip(w.column(j)) {
+                arg += xk * wk;
+                size += (xk * wk).abs();
+            }
+            // published: Sutherland & Schneider (UAI 2015), the paired feature; tolerance
+            // as in the cos + phase check above.
+            let tol = scale * (1e-15 + 32.0 * f64::EPSILON * size);
+            assert!((zrow[j] - scale * arg.cos()).abs() <= tol, "cos {j}");
+            assert!((zrow[m + j] - scale * arg.sin()).abs() <= tol, "sin {j}");
         }
     }
 }
@@ -472,6 +516,10 @@ fn all_maps(pool: &rayon::ThreadPool) -> Vec<Box<dyn FeatureMap>> {
     });
     let lap = Kernel::new(KernelKind::Laplacian, 0.3).unwrap();
     maps.push(Box::new(fourier(lap, 5, 96, FourierVariant::SinCos, 4)));
+    // Wide maps: the output is filled in several column panels.
+    for variant in [FourierVariant::SinCos, FourierVariant::CosPhase] {
+        maps.push(Box::new(fourier(k, 5, 1100, variant, 5)));
+    }
     maps
 }
 

@@ -25,8 +25,8 @@ use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
 use super::{
-    bad_parts, check_kernel, par_row_chunks, saved_array, FeatureMap, Landmarks, MapParts,
-    SavedKernel,
+    bad_parts, check_kernel, chunk_rows, par_row_chunks, saved_array, FeatureMap, Landmarks,
+    MapParts, SavedKernel,
 };
 use crate::error::{Error, Result};
 use crate::kernel::Kernel;
@@ -222,7 +222,8 @@ impl FeatureMap for NystromMap {
 
     #[track_caller]
     fn transform_into(&self, x: ArrayView2<f64>, out: ArrayViewMut2<f64>) {
-        par_row_chunks(self, x, out, |xc, oc| self.map_chunk(xc, oc));
+        let rows = chunk_rows(self.output_dim());
+        par_row_chunks(self, x, out, rows, |xc, oc| self.map_chunk(xc, oc));
     }
 
     fn to_parts(&self) -> MapParts {

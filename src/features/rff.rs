@@ -17,9 +17,11 @@
 //! with 2ν degrees of freedom and scale `1/ℓ`, sampled as `z·√(2ν/u)/ℓ` with
 //! `z ~ N(0, I)`, `u ~ χ²(2ν)`.
 //!
-//! The transform is a matrix product `XW` written straight into a cache-sized output
-//! chunk, then one in-place pass of the vectorised kernel of [`super::fastcos`] over that
-//! chunk, which adds the phase and applies the scale `√(2/D)` as it goes. The cos + phase
+//! The transform works on blocks of a row chunk times a panel of output columns (see
+//! [`super::panel_layout`]): the matrix product of the chunk with that panel of W is
+//! written straight into the output block, then one in-place pass of the vectorised
+//! kernel of [`super::fastcos`] runs over the block while it is still in the level-2
+//! cache, adding the phase and applying the scale `√(2/D)` as it goes. The cos + phase
 //! variant is evaluated as `sin(Wᵀx + (b + π/2))` with `b + π/2` rounded once when the
 //! map is built (the sine is two operations shorter than the cosine); this moves each
 //! argument by at most half a unit in the last place of `b + π/2` (`4.5·10⁻¹⁶`), well
@@ -32,8 +34,8 @@ use rand_distr::{Cauchy, ChiSquared, Distribution, StandardNormal};
 use serde::{Deserialize, Serialize};
 
 use super::{
-    bad_parts, check_kernel, fastcos, for_each_row_slice, par_row_chunks, saved_array, FeatureMap,
-    FourierVariant, MapParts, SavedKernel,
+    bad_parts, check_kernel, fastcos, for_each_row_slice, panel_layout, par_row_chunks,
+    saved_array, FeatureMap, FourierVariant, MapParts, SavedKernel,
 };
 use crate::error::{Error, Result};
 use crate::kernel::{Kernel, KernelKind};
@@ -207,35 +209,47 @@ impl FourierMap {
         ))
     }
 
-    /// Maps one chunk: product into `out`, then one pass of phase + cosine + scale (or the
-    /// sin/cos pair).
-    fn map_chunk(&self, xc: ArrayView2<f64>, mut out: ArrayViewMut2<f64>) {
+    /// Maps one chunk of rows, one panel of at most `panel` output columns at a time: the
+    /// product of the chunk with the matching columns of W into that block of `out`, then
+    /// at once, while the block is in cache, one pass of phase + cosine + scale (or the
+    /// sin/cos pair, `panel / 2` frequencies a block) over it.
+    fn map_chunk(&self, xc: ArrayView2<f64>, mut out: ArrayViewMut2<f64>, panel: usize) {
         let m = self.freqs.ncols();
         let scale = self.scale;
-        match self.variant {
-            FourierVariant::CosPhase => {
-                ndarray::linalg::general_mat_mul(1.0, &xc, &self.freqs, 0.0, &mut out);
-                let shifts = self
-                    .sin_shifts
-                    .as_ref()
-                    .and_then(|p| p.as_slice())
-                    .expect("cos + phase map without contiguous phases");
-                // One pass per row, right after the chunk's product while it is in cache:
-                // phase, cosine (as a sine of the argument moved by π/2) and scale together.
-                for_each_row_slice(out, |row| fastcos::sin_shifted_in_place(row, shifts, scale));
-            }
-            FourierVariant::SinCos => {
-                {
-                    let mut left = out.slice_mut(s![.., ..m]);
-                    ndarray::linalg::general_mat_mul(1.0, &xc, &self.freqs, 0.0, &mut left);
+        // Only used when `out` has non-contiguous rows; allocated once per chunk then.
+        let mut scratch = Vec::new();
+        let width = match self.variant {
+            FourierVariant::CosPhase => panel,
+            FourierVariant::SinCos => (panel / 2).max(1),
+        };
+        let mut j0 = 0;
+        while j0 < m {
+            let j1 = (j0 + width).min(m);
+            let w = self.freqs.slice(s![.., j0..j1]);
+            match self.variant {
+                FourierVariant::CosPhase => {
+                    let shifts = &self
+                        .sin_shifts
+                        .as_ref()
+                        .and_then(|p| p.as_slice())
+                        .expect("cos + phase map without contiguous phases")[j0..j1];
+                    let mut block = out.slice_mut(s![.., j0..j1]);
+                    ndarray::linalg::general_mat_mul(1.0, &xc, &w, 0.0, &mut block);
+                    // Phase, cosine (as a sine of the argument moved by π/2) and scale.
+                    for_each_row_slice(block, &mut scratch, |row| {
+                        fastcos::sin_shifted_in_place(row, shifts, scale)
+                    });
                 }
-                for_each_row_slice(out, |row| {
-                    let (c, sn) = row.split_at_mut(m);
-                    sn.copy_from_slice(c);
-                    fastcos::cos_in_place(c, scale);
-                    fastcos::sin_in_place(sn, scale);
-                });
+                FourierVariant::SinCos => {
+                    let (mut c, mut sn) =
+                        out.multi_slice_mut((s![.., j0..j1], s![.., m + j0..m + j1]));
+                    ndarray::linalg::general_mat_mul(1.0, &xc, &w, 0.0, &mut c);
+                    sn.assign(&c);
+                    for_each_row_slice(c, &mut scratch, |row| fastcos::cos_in_place(row, scale));
+                    for_each_row_slice(sn, &mut scratch, |row| fastcos::sin_in_place(row, scale));
+                }
             }
+            j0 = j1;
         }
     }
 }
@@ -254,7 +268,8 @@ impl FeatureMap for FourierMap {
 
     #[track_caller]
     fn transform_into(&self, x: ArrayView2<f64>, out: ArrayViewMut2<f64>) {
-        par_row_chunks(self, x, out, |xc, oc| self.map_chunk(xc, oc));
+        let (rows, panel) = panel_layout(self.output_dim());
+        par_row_chunks(self, x, out, rows, |xc, oc| self.map_chunk(xc, oc, panel));
     }
 
     fn to_parts(&self) -> MapParts {

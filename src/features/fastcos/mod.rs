@@ -22,29 +22,34 @@
 //!
 //! The output scale and an optional per-value shift (the phase of a random Fourier
 //! feature, added on load) are applied in the same pass, so a feature map needs one pass
-//! over its product. The AVX2 path works on sixteen values per step (four independent
-//! dependency chains).
+//! over its product. The SIMD paths work on four vectors per step (four independent
+//! dependency chains): sixteen values with AVX2, thirty-two with AVX-512.
 //!
 //! Inputs with `|x| > 10⁶` or infinite are handed to the standard library (with their
-//! neighbours, in groups of four on the AVX2 path), so every input gets an accurate
-//! answer; NaN stays NaN.
+//! neighbours, in groups of four or eight on the SIMD paths), so every input gets an
+//! accurate answer; NaN stays NaN.
 //!
 //! # Accuracy
 //!
 //! The largest absolute difference from `f64::cos` / `f64::sin` measured by the tests
 //! (`tests/features.rs`, a dense grid on `[−300, 300]` and random points up to `10⁶`) is
-//! `2.2·10⁻¹⁶` (one unit in the last place of values near 1) on both code paths; the
+//! `2.2·10⁻¹⁶` (one unit in the last place of values near 1) on every code path; the
 //! tests accept at most `1e-15`.
 //!
 //! # Code paths
 //!
-//! On x86-64 with AVX2 and FMA (detected once at run time with
-//! `is_x86_feature_detected!` and cached) the same algorithms are compiled with those
-//! features and fused multiply–adds; elsewhere a generic build is used. The two paths may
-//! differ in the last bit; on one machine the choice is fixed, so results are
-//! reproducible.
+//! On x86-64 the CPU is probed once at run time (`is_x86_feature_detected!`, cached) and
+//! the widest supported build of the same algorithm runs: AVX-512F (eight values a
+//! vector; about 1.5× faster than AVX2 per value where measured, an AMD EPYC of the
+//! Zen 4 family), else AVX2 with FMA, else a generic build. The two SIMD paths perform the
+//! same correctly rounded operations (fused multiply–adds included) lane by lane, so they
+//! agree bit for bit (tested); the generic path, without fused multiply–adds, may differ
+//! in the last bit. On one machine the choice is fixed, so results are reproducible.
 
 use std::sync::atomic::{AtomicU8, Ordering};
+
+#[cfg(target_arch = "x86_64")]
+mod x86;
 
 /// Which compiled version of the kernel runs.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -53,6 +58,8 @@ pub enum CosPath {
     Generic,
     /// x86-64 build with AVX2 and FMA enabled.
     Avx2Fma,
+    /// x86-64 build with AVX-512F (and AVX2, FMA) enabled.
+    Avx512,
 }
 
 /// Above this magnitude the standard library takes over (keeps `|h| < 2²⁰`).
@@ -83,27 +90,38 @@ pub fn detected_path() -> CosPath {
     match DETECTED.load(Ordering::Relaxed) {
         1 => CosPath::Generic,
         2 => CosPath::Avx2Fma,
+        3 => CosPath::Avx512,
         _ => {
-            let path = detect();
-            let code = if path == CosPath::Avx2Fma { 2 } else { 1 };
+            let path = [CosPath::Avx512, CosPath::Avx2Fma]
+                .into_iter()
+                .find(|p| path_supported(*p))
+                .unwrap_or(CosPath::Generic);
+            let code = match path {
+                CosPath::Generic => 1,
+                CosPath::Avx2Fma => 2,
+                CosPath::Avx512 => 3,
+            };
             DETECTED.store(code, Ordering::Relaxed);
             path
         }
     }
 }
 
-#[cfg(target_arch = "x86_64")]
-fn detect() -> CosPath {
-    if is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma") {
-        CosPath::Avx2Fma
-    } else {
-        CosPath::Generic
+/// Whether this CPU can run `path` (the generic path runs everywhere).
+pub fn path_supported(path: CosPath) -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        let avx2 = is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma");
+        match path {
+            CosPath::Generic => true,
+            CosPath::Avx2Fma => avx2,
+            CosPath::Avx512 => avx2 && is_x86_feature_detected!("avx512f"),
+        }
     }
-}
-
-#[cfg(not(target_arch = "x86_64"))]
-fn detect() -> CosPath {
-    CosPath::Generic
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        path == CosPath::Generic
+    }
 }
 
 /// Replaces every `x` in `xs` by `scale·cos(x)`.
@@ -144,7 +162,7 @@ pub fn sin_shifted_in_place(xs: &mut [f64], shift: &[f64], scale: f64) {
 /// tests and benchmarks.
 ///
 /// # Panics
-/// If `path` is [`CosPath::Avx2Fma`] and this CPU does not support it.
+/// If this CPU cannot run `path` (see [`path_supported`]).
 pub fn eval_with(path: CosPath, xs: &mut [f64], scale: f64, sine: bool) {
     check_path(path);
     run(path, xs, None, scale, sine);
@@ -154,8 +172,8 @@ pub fn eval_with(path: CosPath, xs: &mut [f64], scale: f64, sine: bool) {
 /// code path, for tests and benchmarks.
 ///
 /// # Panics
-/// If `shift.len() != xs.len()`, or if `path` is [`CosPath::Avx2Fma`] and this CPU does
-/// not support it.
+/// If `shift.len() != xs.len()`, or if this CPU cannot run `path` (see
+/// [`path_supported`]).
 #[track_caller]
 pub fn eval_shifted_with(path: CosPath, xs: &mut [f64], shift: &[f64], scale: f64, sine: bool) {
     check_path(path);
@@ -176,8 +194,8 @@ fn check_shift(xs: &[f64], shift: &[f64]) {
 
 fn check_path(path: CosPath) {
     assert!(
-        path == CosPath::Generic || detected_path() == CosPath::Avx2Fma,
-        "the AVX2+FMA cosine was requested on a CPU without AVX2 and FMA"
+        path_supported(path),
+        "the {path:?} cosine was requested on a CPU that cannot run it"
     );
 }
 
@@ -187,14 +205,26 @@ fn run(path: CosPath, xs: &mut [f64], shift: Option<&[f64]>, scale: f64, sine: b
     let b = shift.unwrap_or(&[]);
     match (path, sine, shift.is_some()) {
         #[cfg(target_arch = "x86_64")]
-        // SAFETY (four arms): the path is only chosen when the CPU reports AVX2 and FMA.
-        (CosPath::Avx2Fma, false, false) => unsafe { apply_avx2::<false, false>(xs, b, scale) },
+        // SAFETY (eight arms): a SIMD path is only chosen when `path_supported` holds.
+        (CosPath::Avx512, false, false) => unsafe {
+            x86::apply_avx512::<false, false>(xs, b, scale)
+        },
         #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, false, true) => unsafe { apply_avx2::<false, true>(xs, b, scale) },
+        (CosPath::Avx512, false, true) => unsafe { x86::apply_avx512::<false, true>(xs, b, scale) },
         #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, true, false) => unsafe { apply_avx2::<true, false>(xs, b, scale) },
+        (CosPath::Avx512, true, false) => unsafe { x86::apply_avx512::<true, false>(xs, b, scale) },
         #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, true, true) => unsafe { apply_avx2::<true, true>(xs, b, scale) },
+        (CosPath::Avx512, true, true) => unsafe { x86::apply_avx512::<true, true>(xs, b, scale) },
+        #[cfg(target_arch = "x86_64")]
+        (CosPath::Avx2Fma, false, false) => unsafe {
+            x86::apply_avx2::<false, false>(xs, b, scale)
+        },
+        #[cfg(target_arch = "x86_64")]
+        (CosPath::Avx2Fma, false, true) => unsafe { x86::apply_avx2::<false, true>(xs, b, scale) },
+        #[cfg(target_arch = "x86_64")]
+        (CosPath::Avx2Fma, true, false) => unsafe { x86::apply_avx2::<true, false>(xs, b, scale) },
+        #[cfg(target_arch = "x86_64")]
+        (CosPath::Avx2Fma, true, true) => unsafe { x86::apply_avx2::<true, true>(xs, b, scale) },
         (_, false, false) => apply::<false, false>(xs, b, scale),
         (_, false, true) => apply::<false, true>(xs, b, scale),
         (_, true, false) => apply::<true, false>(xs, b, scale),
@@ -265,112 +295,5 @@ fn accurate<const FMA: bool, const SIN: bool>(y: f64, scale: f64) -> f64 {
         eval::<FMA, SIN>(y, scale)
     } else {
         scale * if SIN { y.sin() } else { y.cos() }
-    }
-}
-
-/// The AVX2+FMA path: four values per step with explicit intrinsics (the same operations
-/// as [`eval`] with fused multiply–adds, so the scalar tail agrees bit for bit).
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-unsafe fn apply_avx2<const SIN: bool, const SHIFT: bool>(
-    xs: &mut [f64],
-    shift: &[f64],
-    scale: f64,
-) {
-    use std::arch::x86_64::*;
-    let limit = _mm256_set1_pd(LIMIT);
-    let abs_mask = _mm256_castsi256_pd(_mm256_set1_epi64x(i64::MAX));
-    let inv_pi = _mm256_set1_pd(FRAC_1_PI);
-    let magic = _mm256_set1_pd(MAGIC);
-    let half = _mm256_set1_pd(0.5);
-    let (pi_a, pi_b) = (_mm256_set1_pd(PI_A), _mm256_set1_pd(PI_B));
-    let k = _mm256_set1_pd(if SIN { scale } else { -scale });
-    let len = xs.len();
-    let quads = len / 4 * 4;
-    let xp = xs.as_mut_ptr();
-    // One group of four values, `$y` already shifted and within LIMIT.
-    macro_rules! quad {
-        ($y:expr) => {{
-            let y = $y;
-            let shifted = if SIN {
-                _mm256_fmadd_pd(y, inv_pi, magic)
-            } else {
-                _mm256_add_pd(_mm256_fmsub_pd(y, inv_pi, half), magic)
-            };
-            let n = _mm256_sub_pd(shifted, magic);
-            let h = if SIN { n } else { _mm256_add_pd(n, half) };
-            let r = _mm256_fnmadd_pd(h, pi_a, y);
-            let r = _mm256_fnmadd_pd(h, pi_b, r);
-            let s = _mm256_mul_pd(r, r);
-            let mut p = _mm256_set1_pd(SIN_P[7]);
-            for c in [6, 5, 4, 3, 2, 1, 0] {
-                p = _mm256_fmadd_pd(p, s, _mm256_set1_pd(SIN_P[c]));
-            }
-            let v = _mm256_mul_pd(_mm256_fmadd_pd(_mm256_mul_pd(r, s), p, r), k);
-            let flip = _mm256_slli_epi64::<63>(_mm256_castpd_si256(shifted));
-            _mm256_castsi256_pd(_mm256_xor_si256(_mm256_castpd_si256(v), flip))
-        }};
-    }
-    // Loads four values at offset `$i`, adding the shift.
-    macro_rules! load {
-        ($i:expr) => {{
-            let y = _mm256_loadu_pd(xp.add($i));
-            if SHIFT {
-                _mm256_add_pd(y, _mm256_loadu_pd(shift.as_ptr().add($i)))
-            } else {
-                y
-            }
-        }};
-    }
-    // Lanes beyond LIMIT (NaN compares false and goes through the polynomial, which
-    // returns NaN).
-    macro_rules! big {
-        ($y:expr) => {
-            _mm256_cmp_pd::<_CMP_GT_OQ>(_mm256_and_pd($y, abs_mask), limit)
-        };
-    }
-    let mut i = 0;
-    // SAFETY (all loads and stores below): every offset + 4 <= quads <= len, and
-    // shift.len() == len when SHIFT.
-    while i < quads {
-        // Sixteen values per step: four independent chains keep both FMA pipes busy.
-        if i + 16 <= quads {
-            let (y0, y1, y2, y3) = (load!(i), load!(i + 4), load!(i + 8), load!(i + 12));
-            let any = _mm256_or_pd(
-                _mm256_or_pd(big!(y0), big!(y1)),
-                _mm256_or_pd(big!(y2), big!(y3)),
-            );
-            if _mm256_movemask_pd(any) == 0 {
-                let (o0, o1, o2, o3) = (quad!(y0), quad!(y1), quad!(y2), quad!(y3));
-                _mm256_storeu_pd(xp.add(i), o0);
-                _mm256_storeu_pd(xp.add(i + 4), o1);
-                _mm256_storeu_pd(xp.add(i + 8), o2);
-                _mm256_storeu_pd(xp.add(i + 12), o3);
-                i += 16;
-                continue;
-            }
-        }
-        let y = load!(i);
-        if _mm256_movemask_pd(big!(y)) != 0 {
-            let mut ys = [0.0; 4];
-            _mm256_storeu_pd(ys.as_mut_ptr(), y);
-            slow::<SIN>(&ys, std::slice::from_raw_parts_mut(xp.add(i), 4), scale);
-        } else {
-            _mm256_storeu_pd(xp.add(i), quad!(y));
-        }
-        i += 4;
-    }
-    let tail = std::slice::from_raw_parts_mut(xp.add(quads), len - quads);
-    for (j, v) in tail.iter_mut().enumerate() {
-        let y = if SHIFT { *v + shift[quads + j] } else { *v };
-        *v = accurate::<true, SIN>(y, scale);
-    }
-}
-
-/// A group of four with a huge or infinite argument: every value by the standard library.
-#[cold]
-fn slow<const SIN: bool>(ys: &[f64; 4], out: &mut [f64], scale: f64) {
-    for (o, y) in out.iter_mut().zip(ys) {
-        *o = scale * if SIN { y.sin() } else { y.cos() };
     }
 }
