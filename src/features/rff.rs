@@ -90,7 +90,7 @@ pub(crate) fn frequency_count(
     }
     match variant {
         FourierVariant::CosPhase => Ok(components),
-        FourierVariant::SinCos if components % 2 == 0 => Ok(components / 2),
+        FourierVariant::SinCos if components.is_multiple_of(2) => Ok(components / 2),
         FourierVariant::SinCos => Err(Error::invalid(
             "components",
             format!("sin/cos pairs need an even feature dimension D, got {components}"),

@@ -3,9 +3,7 @@
 //! Every operation is an IEEE 754 operation rounded once (fused multiply–add included), so
 //! the two paths and the scalar tail give the same bits for the same input.
 //!
-//! The AVX-512 intrinsics are stable since Rust 1.89, above the `rust-version` (1.85) the
-//! manifest declares; the manifest's arrow and parquet 60 already need Rust 1.88.
-#![allow(clippy::incompatible_msrv)]
+//! The AVX-512 intrinsics are stable since Rust 1.89, the manifest's `rust-version`.
 
 use std::arch::x86_64::*;
 

@@ -40,7 +40,7 @@ impl Var {
     fn from_code(code: u64) -> Option<Var> {
         (code != NONE).then_some(Var {
             pos: (code / 2) as usize,
-            plus: code % 2 == 0,
+            plus: code.is_multiple_of(2),
         })
     }
 }
