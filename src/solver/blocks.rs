@@ -37,7 +37,7 @@ use crate::solver::dcd::{solve_block, BlockWorkspace, DcdSettings, DcdState, Los
 use crate::solver::newton::{NewtonState, Step, SAMPLE_SALT};
 use crate::solver::stream::{PassCache, Streamer};
 
-pub use crate::solver::stream::{is_holdout, ArraySource, BlockSource, TargetScale};
+pub use crate::solver::stream::{is_holdout, piece_rows, ArraySource, BlockSource, TargetScale};
 
 /// Which solver trains the linear model.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]

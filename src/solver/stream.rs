@@ -85,8 +85,9 @@ const PIECE_BYTES: usize = 32 << 20;
 
 /// Rows of a mapped piece for `dim` features: as many as fit in `PIECE_BYTES`, rounded
 /// down to a multiple of 1,024 (the Newton solver's chunk, so that splitting a block into
-/// pieces keeps its chunk boundaries), at least 1,024.
-fn piece_rows(dim: usize) -> usize {
+/// pieces keeps its chunk boundaries), at least 1,024. Training maps its blocks in pieces
+/// of this size, so that the mapped rows in flight stay small whatever the files' batches.
+pub fn piece_rows(dim: usize) -> usize {
     (PIECE_BYTES / (8 * dim.max(1)) / 1024).max(1) * 1024
 }
 
