@@ -51,6 +51,10 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::StandardNormal;
 
+#[path = "support/rss.rs"]
+mod rss;
+use rss::{peak_rss_mib, reset_peak_rss};
+
 /// Rows of the generated demo scenario the samples are drawn from.
 const DEMO_ROWS: u64 = 200_000;
 /// Kernel-row cache of every fit.
@@ -138,23 +142,6 @@ fn scenario(reader: &TableReader, n: usize) -> Problem {
         c_raw: def.c,
         eps_raw: def.epsilon,
     }
-}
-
-/// Resets the peak resident set size (Linux: writing 5 to `/proc/self/clear_refs`), so
-/// that each fit reports its own peak; ignored where unsupported.
-fn reset_peak_rss() {
-    let _ = std::fs::write("/proc/self/clear_refs", "5");
-}
-
-/// Peak resident set size of this process since the last reset, in MiB (VmHWM).
-fn peak_rss_mib() -> f64 {
-    let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
-    status
-        .lines()
-        .find(|l| l.starts_with("VmHWM:"))
-        .and_then(|l| l.split_whitespace().nth(1))
-        .and_then(|v| v.parse::<f64>().ok())
-        .map_or(f64::NAN, |kb| kb / 1024.0)
 }
 
 /// Seconds to fit the approximate machine as the audit does: the Fourier map with

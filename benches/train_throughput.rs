@@ -25,21 +25,9 @@ use kernlake::scale::Standardizer;
 use kernlake::solver::blocks::{piece_rows, EpochRecord, Method, TrainObserver};
 use ndarray::{s, Array2};
 
-fn peak_rss_mib() -> f64 {
-    let s = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
-    s.lines()
-        .find(|l| l.starts_with("VmHWM:"))
-        .and_then(|l| l.split_whitespace().nth(1))
-        .and_then(|v| v.parse::<f64>().ok())
-        .map(|kb| kb / 1024.0)
-        .unwrap_or(f64::NAN)
-}
-
-/// Resets the peak resident set size (Linux: writing 5 to `/proc/self/clear_refs`), so
-/// that the training's peak is reported apart from generating and the bare pass.
-fn reset_peak_rss() {
-    let _ = std::fs::write("/proc/self/clear_refs", "5");
-}
+#[path = "support/rss.rs"]
+mod rss;
+use rss::{peak_rss_mib, reset_peak_rss};
 
 struct Epochs;
 impl TrainObserver for Epochs {

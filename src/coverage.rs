@@ -398,13 +398,7 @@ mod tests {
             x.row_mut(i).assign(&(&l + 1e-9 * i as f64));
         }
         x.slice_mut(s![600.., ..]).mapv_inplace(|v| v * 30.0);
-        for kind in [
-            KernelKind::Gaussian,
-            KernelKind::Laplacian,
-            KernelKind::Matern12,
-            KernelKind::Matern32,
-            KernelKind::Matern52,
-        ] {
+        for kind in KernelKind::ALL {
             let c = Coverage {
                 landmarks: landmarks.clone(),
                 kernel: Kernel::new(kind, 0.2).unwrap(),

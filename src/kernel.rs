@@ -43,6 +43,15 @@ pub enum KernelKind {
 }
 
 impl KernelKind {
+    /// Every family, in declaration order.
+    pub const ALL: [KernelKind; 5] = [
+        KernelKind::Gaussian,
+        KernelKind::Laplacian,
+        KernelKind::Matern12,
+        KernelKind::Matern32,
+        KernelKind::Matern52,
+    ];
+
     /// The name used in files, reports and on the command line.
     pub fn name(self) -> &'static str {
         match self {

@@ -6,13 +6,7 @@ use ndarray::{Array2, ArrayView2};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
-const KINDS: [KernelKind; 5] = [
-    KernelKind::Gaussian,
-    KernelKind::Laplacian,
-    KernelKind::Matern12,
-    KernelKind::Matern32,
-    KernelKind::Matern52,
-];
+const KINDS: [KernelKind; 5] = KernelKind::ALL;
 
 fn random_rows(n: usize, d: usize, seed: u64) -> Array2<f64> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);

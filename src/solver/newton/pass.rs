@@ -176,10 +176,10 @@ impl LineAccumulator {
         if !sampled.is_empty() {
             let mut a = Array2::zeros((sampled.len(), d + 1));
             for (r, &(i, weight)) in sampled.iter().enumerate() {
-                let root = weight.sqrt();
                 let mut row = a.row_mut(r);
-                row.slice_mut(s![..d]).assign(&z.row(i).mapv(|v| v * root));
-                row[d] = root;
+                row.slice_mut(s![..d]).assign(&z.row(i));
+                row[d] = 1.0;
+                row *= weight.sqrt();
             }
             add_gram_upper(pool, &mut self.hess, a.view());
         }

@@ -176,13 +176,7 @@ mod tests {
         let mut rng = ChaCha8Rng::seed_from_u64(11);
         let x: Vec<f64> = (0..n * d).map(|_| rng.random_range(-2.0..2.0)).collect();
         let idx: Vec<usize> = (0..n).filter(|r| r % 3 != 1).collect();
-        for kind in [
-            KernelKind::Gaussian,
-            KernelKind::Laplacian,
-            KernelKind::Matern12,
-            KernelKind::Matern32,
-            KernelKind::Matern52,
-        ] {
+        for kind in KernelKind::ALL {
             let kernel = Kernel::new(kind, 0.3).unwrap();
             let mut tiles = Tiles::new(d);
             tiles.gather(&x, idx.iter().copied());
