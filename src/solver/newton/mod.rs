@@ -356,7 +356,7 @@ mod tests {
 
     /// The sketch behind the Hessian's row sample against leverages computed from the
     /// explicit inverse: d_eff = Σ_i ℓ_i = tr(H⁻¹(H − I)) for H = I + 2C Σ_i ẑ_i ẑ_iᵀ
-    /// (standard identity), and ‖ẑ_iᵀx‖²/K is an unbiased estimate of ẑ_iᵀH⁻¹ẑ_i
+    /// (common practice: the trace identity of ridge leverages), and ‖ẑ_iᵀx‖²/K is an unbiased estimate of ẑ_iᵀH⁻¹ẑ_i
     /// (Johnson–Lindenstrauss with a Gaussian sketch, Drineas, Magdon-Ismail, Mahoney &
     /// Woodruff, JMLR 2012), so its ratio to the exact value averages to 1.
     #[test]
