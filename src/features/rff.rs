@@ -244,7 +244,14 @@ impl FourierMap {
                     let (mut c, mut sn) =
                         out.multi_slice_mut((s![.., j0..j1], s![.., m + j0..m + j1]));
                     ndarray::linalg::general_mat_mul(1.0, &xc, &w, 0.0, &mut c);
-                    sn.assign(&c);
+                    // Row by row: a plain copy of each contiguous row, not an
+                    // element-wise copy of the strided panel.
+                    for (mut to, from) in sn.rows_mut().into_iter().zip(c.rows()) {
+                        match (to.as_slice_mut(), from.as_slice()) {
+                            (Some(t), Some(f)) => t.copy_from_slice(f),
+                            _ => to.assign(&from),
+                        }
+                    }
                     for_each_row_slice(c, &mut scratch, |row| fastcos::cos_in_place(row, scale));
                     for_each_row_slice(sn, &mut scratch, |row| fastcos::sin_in_place(row, scale));
                 }

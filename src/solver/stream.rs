@@ -212,8 +212,9 @@ pub(crate) struct Streamer<'a> {
 }
 
 impl Streamer<'_> {
-    /// Standardizes, maps and splits one raw block.
-    fn prepare(&self, mut b: Block) -> Result<Vec<MappedBlock>> {
+    /// Standardizes and splits one raw block, then maps its training rows piece by piece,
+    /// handing each mapped piece to `emit` as soon as it is ready.
+    fn prepare(&self, mut b: Block, emit: &mut dyn FnMut(MappedBlock) -> Result<()>) -> Result<()> {
         let y_raw = b
             .y
             .take()
@@ -245,22 +246,23 @@ impl Streamer<'_> {
                 it += 1;
             }
         }
-        // Map in pieces of at most `piece_rows(D)` rows, so the mapped blocks in flight
-        // (one being mapped, one in the channel, one being visited) stay small whatever
-        // the batch size of the files.
+        // Map in pieces of at most `piece_rows(D)` rows, each handed on before the next is
+        // mapped, so the mapped rows in flight (one piece being mapped, one in the channel,
+        // one being visited) stay small whatever the batch size of the files.
         let dim = self.map.output_dim();
         let piece = piece_rows(dim);
         let pieces = n_train.div_ceil(piece).max(1);
-        let mut out = Vec::with_capacity(pieces);
         let (mut hold_x, mut hold_y) = (Some(hold_x), Some(hold_y));
         for k in 0..pieces {
             let lo = k * piece;
             let hi = (lo + piece).min(n_train);
             let mut z = Array2::zeros((hi - lo, dim));
-            self.map
-                .transform_into(xt.slice(s![lo..hi, ..]), z.view_mut());
+            self.pool.install(|| {
+                self.map
+                    .transform_into(xt.slice(s![lo..hi, ..]), z.view_mut())
+            });
             let last = k + 1 == pieces;
-            out.push(MappedBlock {
+            emit(MappedBlock {
                 z,
                 y: y.slice(s![lo..hi]).to_owned(),
                 rows: rows[lo..hi].to_vec(),
@@ -273,9 +275,9 @@ impl Streamer<'_> {
                 } else {
                     (hi - lo) as u64
                 },
-            });
+            })?;
         }
-        Ok(out)
+        Ok(())
     }
 
     /// One pass: visits every block of the units in `order`, resident ones from memory
@@ -305,11 +307,10 @@ impl Streamer<'_> {
                 scope.spawn(move || {
                     for &u in to_read {
                         let mut sink = |b: Block| -> Result<()> {
-                            for mb in self.pool.install(|| self.prepare(b))? {
+                            self.prepare(b, &mut |mb| {
                                 tx.send(Msg::Block(Box::new(mb)))
-                                    .map_err(|_| Error::Numerical("training stopped".into()))?;
-                            }
-                            Ok(())
+                                    .map_err(|_| Error::Numerical("training stopped".into()))
+                            })
                         };
                         match source.read_unit(u, &mut sink) {
                             Ok(()) => {

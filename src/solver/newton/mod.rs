@@ -53,6 +53,7 @@
 
 mod fit;
 mod pass;
+mod rowops;
 
 pub use fit::fit;
 pub(crate) use pass::{LineAccumulator, SAMPLE_SALT};
@@ -167,7 +168,7 @@ impl NewtonState {
             epsilon,
             w: self.w.clone(),
             dir: self.dir.clone(),
-            grad: Array2::zeros((dim + 1, m)),
+            grad: Array2::zeros((m, dim + 1)),
             loss: vec![CompensatedSum::default(); m],
             y_beta: vec![CompensatedSum::default(); m],
             beta_l1: vec![CompensatedSum::default(); m],
@@ -229,7 +230,7 @@ impl NewtonState {
         let t = acc.steps[k];
         let w = along(t);
         let primal = value(t, acc.loss[k].value());
-        let g_sum = acc.grad.column(k).to_owned();
+        let g_sum = acc.grad.row(k).to_owned();
         let dual = -(0.5 * g_sum.dot(&g_sum) - acc.y_beta[k].value()
             + acc.epsilon * acc.beta_l1[k].value()
             + acc.beta_sq[k].value() / (4.0 * c));

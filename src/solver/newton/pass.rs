@@ -3,12 +3,14 @@
 //! t, and, for a few candidate steps, the gradient sum Σ β_i ẑ_i, the dual terms of the
 //! certificate and (at the first candidate) a row-sampled Hessian. Everything a block
 //! adds is computed in fixed chunks of rows and summed in chunk order, so the totals do
-//! not depend on the number of threads.
+//! not depend on the number of threads. Within a chunk each row is handled whole while it
+//! is in cache (see [`super::rowops`]).
 
 use ndarray::linalg::general_mat_mul;
 use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
 use rayon::prelude::*;
 
+use super::rowops::{self, Path};
 use crate::solver::dcd::CompensatedSum;
 use crate::solver::stream::row_unit;
 
@@ -44,7 +46,7 @@ pub(crate) struct LineAccumulator {
     pub steps: Vec<f64>,
     /// Fine grid of steps with the objective only (empty without a direction).
     pub grid: Vec<f64>,
-    /// Σ β_i(t) ẑ_i per candidate step, (D + 1) × steps.
+    /// Σ β_i(t) ẑ_i per candidate step, steps × (D + 1).
     pub grad: Array2<f64>,
     pub loss: Vec<CompensatedSum>,
     pub y_beta: Vec<CompensatedSum>,
@@ -62,17 +64,24 @@ pub(crate) struct LineAccumulator {
     pub rows: u64,
 }
 
-/// The columns of the pass's one product per chunk: [w, d, sketch] without the bias
-/// row, the bias row's entries, and how many leading columns are [w] or [w, d].
-struct Line<'a> {
-    cols: &'a Array2<f64>,
-    bias: &'a [f64],
-    m_dir: usize,
+/// What every row is multiplied with: [w] or [w, d] and the sketch's columns, each without
+/// its bias entry and stored one after another, with the bias entries apart.
+struct Line {
+    /// [w] or [w, d], m_dir × D.
+    wd: Vec<f64>,
+    wd_bias: Vec<f64>,
+    /// The sketch x's columns, K × D (empty without leverage estimates).
+    sketch: Vec<f64>,
+    sketch_bias: Vec<f64>,
+    path: Path,
 }
 
 /// What one chunk of rows adds.
 struct ChunkPart {
-    grad: Array2<f64>,
+    /// Σ β_i(t_k) z_i, steps × D, one step after another.
+    grad: Vec<f64>,
+    /// Σ β_i(t_k), the bias entries.
+    grad_bias: Vec<f64>,
     sums: Vec<[f64; 4]>,
     active: Vec<u64>,
     grid_loss: Vec<f64>,
@@ -114,24 +123,27 @@ impl LineAccumulator {
         );
         assert_eq!(y.len(), n, "add_block: {n} rows but {} targets", y.len());
         assert_eq!(rows.len(), n, "add_block: {n} rows but {} ids", rows.len());
-        // Columns [w, d, x] of one product: o_i = ẑ_iᵀw, δ_i = ẑ_iᵀd and the sketch ẑ_iᵀx.
-        let m_dir = if self.dir.is_some() { 2 } else { 1 };
-        let sketch = self.lever.as_ref().map_or(0, |l| l.x.ncols());
-        let mut line = Array2::zeros((d, m_dir + sketch));
-        let mut bias = vec![0.0; m_dir + sketch];
-        line.column_mut(0).assign(&self.w.slice(s![..d]));
-        bias[0] = self.w[d];
+        // Columns [w, d] and the sketch x: o_i = ẑ_iᵀw, δ_i = ẑ_iᵀd and ẑ_iᵀx.
+        let mut wd = self.w.slice(s![..d]).to_vec();
+        let mut wd_bias = vec![self.w[d]];
         if let Some(dir) = &self.dir {
-            line.column_mut(1).assign(&dir.slice(s![..d]));
-            bias[1] = dir[d];
+            wd.extend(dir.slice(s![..d]).iter());
+            wd_bias.push(dir[d]);
         }
-        if let Some(lever) = &self.lever {
-            line.slice_mut(s![.., m_dir..])
-                .assign(&lever.x.slice(s![..d, ..]));
-            for j in 0..sketch {
-                bias[m_dir + j] = lever.x[[d, j]];
-            }
-        }
+        let (sketch, sketch_bias) = match &self.lever {
+            Some(lever) if self.share < 1.0 => (
+                lever.x.slice(s![..d, ..]).t().iter().copied().collect(),
+                lever.x.row(d).to_vec(),
+            ),
+            _ => (Vec::new(), Vec::new()),
+        };
+        let line = Line {
+            wd,
+            wd_bias,
+            sketch,
+            sketch_bias,
+            path: rowops::detected(),
+        };
         let chunks = n.div_ceil(CHUNK_ROWS);
         let run = || -> Vec<ChunkPart> {
             (0..chunks)
@@ -144,11 +156,7 @@ impl LineAccumulator {
                         y.slice(s![lo..hi]),
                         &rows[lo..hi],
                         lo,
-                        &Line {
-                            cols: &line,
-                            bias: &bias,
-                            m_dir,
-                        },
+                        &line,
                     )
                 })
                 .collect()
@@ -159,7 +167,13 @@ impl LineAccumulator {
         };
         let mut sampled = Vec::new();
         for p in parts {
-            self.grad += &p.grad;
+            for (k, mut g) in self.grad.outer_iter_mut().enumerate() {
+                let mut g = g.slice_mut(s![..d]);
+                g += &ArrayView1::from(&p.grad[k * d..(k + 1) * d]);
+            }
+            self.grad
+                .column_mut(d)
+                .scaled_add(1.0, &ArrayView1::from(&p.grad_bias));
             for (k, s) in p.sums.iter().enumerate() {
                 self.loss[k].add(s[0]);
                 self.y_beta[k].add(s[1]);
@@ -193,25 +207,46 @@ impl LineAccumulator {
         offset: usize,
         line: &Line,
     ) -> ChunkPart {
-        let (bias, m_dir) = (line.bias, line.m_dir);
-        let n = z.nrows();
+        let (n, d) = z.dim();
         let m = self.steps.len();
-        let od = z.dot(line.cols);
-        let mut beta = Array2::<f64>::zeros((n, m));
+        let m_dir = line.wd_bias.len();
+        let k_sketch = line.sketch_bias.len();
+        let mut grad = vec![0.0; m * d];
+        let mut grad_bias = vec![0.0; m];
         let mut sums = vec![[0.0; 4]; m];
         let mut active = vec![0u64; m];
         let mut grid_loss = vec![0.0; self.grid.len()];
         let mut sampled = Vec::new();
         let (c2, eps) = (2.0 * self.c, self.epsilon);
-        let score_scale = c2 / (od.ncols() - m_dir).max(1) as f64;
+        let score_scale = c2 / k_sketch.max(1) as f64;
+        let mut od = [0.0; 2];
+        let mut sk = vec![0.0; k_sketch];
+        let mut beta = vec![0.0; m];
+        let mut copy = Vec::new();
         for i in 0..n {
-            let r0 = y[i] - (od[[i, 0]] + bias[0]);
-            let delta = if m_dir > 1 { od[[i, 1]] + bias[1] } else { 0.0 };
+            let row = z.row(i);
+            let zi = match row.as_slice() {
+                Some(r) => r,
+                None => {
+                    copy.clear();
+                    copy.extend(row.iter());
+                    &copy[..]
+                }
+            };
+            rowops::dots(line.path, zi, &line.wd, &mut od[..m_dir]);
+            let r0 = y[i] - (od[0] + line.wd_bias[0]);
+            let delta = if m_dir > 1 {
+                od[1] + line.wd_bias[1]
+            } else {
+                0.0
+            };
+            let mut any = false;
             for (k, &t) in self.steps.iter().enumerate() {
                 let e = excess(r0 - t * delta, eps);
+                beta[k] = c2 * e;
                 if e != 0.0 {
-                    let b = c2 * e;
-                    beta[[i, k]] = b;
+                    any = true;
+                    let b = beta[k];
                     let s = &mut sums[k];
                     s[0] += e * e;
                     s[1] += y[i] * b;
@@ -219,9 +254,16 @@ impl LineAccumulator {
                     s[3] += b * b;
                     active[k] += 1;
                     if k == 0 {
-                        if let Some(weight) =
-                            self.sample_weight(od.row(i), bias, m_dir, ids[i], score_scale)
-                        {
+                        let sq = if k_sketch > 0 {
+                            rowops::dots(line.path, zi, &line.sketch, &mut sk);
+                            sk.iter()
+                                .zip(&line.sketch_bias)
+                                .map(|(u, b)| (u + b) * (u + b))
+                                .sum::<f64>()
+                        } else {
+                            0.0
+                        };
+                        if let Some(weight) = self.sample_weight(sq, ids[i], score_scale) {
                             sampled.push((offset + i, weight));
                         }
                     }
@@ -231,18 +273,16 @@ impl LineAccumulator {
                 let e = excess(r0 - t * delta, eps);
                 *acc += e * e;
             }
+            if any {
+                rowops::add_scaled(line.path, zi, &beta, &mut grad);
+                for (g, b) in grad_bias.iter_mut().zip(&beta) {
+                    *g += b;
+                }
+            }
         }
-        let mut grad = Array2::zeros((self.dim + 1, m));
-        general_mat_mul(
-            1.0,
-            &z.t(),
-            &beta,
-            0.0,
-            &mut grad.slice_mut(s![..self.dim, ..]),
-        );
-        grad.row_mut(self.dim).assign(&beta.sum_axis(Axis(0)));
         ChunkPart {
             grad,
+            grad_bias,
             sums,
             active,
             grid_loss,
@@ -254,29 +294,15 @@ impl LineAccumulator {
 impl LineAccumulator {
     /// The weight 1/P(row in the sample) of a row outside the tube if the Hessian's
     /// sample takes it: every row with weight 1 when the Hessian is exact; else with
-    /// probability p = min(1, gain·ℓ̃) from the sketch columns of `od_row` when there are
+    /// probability p = min(1, gain·ℓ̃) from `sketch_sq` = ‖ẑ_iᵀx‖² when there are
     /// leverage estimates, or with the uniform share.
     #[inline]
-    fn sample_weight(
-        &self,
-        od_row: ArrayView1<f64>,
-        bias: &[f64],
-        m_dir: usize,
-        id: usize,
-        score_scale: f64,
-    ) -> Option<f64> {
+    fn sample_weight(&self, sketch_sq: f64, id: usize, score_scale: f64) -> Option<f64> {
         if self.share >= 1.0 {
             return Some(1.0);
         }
         let p = match &self.lever {
-            Some(lever) => {
-                let mut sq = 0.0;
-                for j in m_dir..od_row.len() {
-                    let u = od_row[j] + bias[j];
-                    sq += u * u;
-                }
-                (lever.gain * score_scale * sq).min(1.0)
-            }
+            Some(lever) => (lever.gain * score_scale * sketch_sq).min(1.0),
             None => self.share,
         };
         (row_unit(id as u64, self.sample_seed) < p).then(|| 1.0 / p)

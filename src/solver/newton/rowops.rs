@@ -1,0 +1,357 @@
+//! Row kernels of the Newton pass: a few dot products of one mapped row with fixed
+//! columns, and a few scaled additions of one row into gradient sums.
+//!
+//! A pass touches every mapped row once. Doing the whole per-row job (the dots that give
+//! the residual, the leverage sketch, the additions into the gradient sums) while the row
+//! is in the first-level cache reads each row from memory once, where two matrix products
+//! per chunk (one for the dots, one for Σ β_i ẑ_i) read it twice and pack it twice; and it
+//! skips the rows inside the tube, whose β is zero at every candidate step, and the
+//! sketch of every such row.
+//!
+//! Each dot product keeps `L` partial sums in lanes (element j goes to lane j mod L, the
+//! tail to lane 0 in order) and adds the lanes in a fixed pairwise tree, so a result
+//! depends only on the inputs and the code path, never on threads. On x86-64 the CPU is
+//! probed at run time and the loops are compiled for AVX-512 or AVX2 with fused
+//! multiply-add; the generic path (no FMA) rounds differently but sums in the same order.
+
+/// Code path for the row kernels, fixed once per process.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) enum Path {
+    /// Plain multiply and add, any CPU.
+    Generic,
+    /// AVX2 with fused multiply-add.
+    #[cfg(target_arch = "x86_64")]
+    Avx2,
+    /// AVX-512F with fused multiply-add.
+    #[cfg(target_arch = "x86_64")]
+    Avx512,
+}
+
+/// The best path this CPU runs.
+pub(crate) fn detected() -> Path {
+    #[cfg(target_arch = "x86_64")]
+    {
+        let avx2 = is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma");
+        if avx2 && is_x86_feature_detected!("avx512f") {
+            return Path::Avx512;
+        }
+        if avx2 {
+            return Path::Avx2;
+        }
+    }
+    Path::Generic
+}
+
+/// Multiply-add as the path does it.
+trait Madd {
+    fn madd(a: f64, b: f64, c: f64) -> f64;
+}
+
+/// a·b + c rounded twice (no FMA instruction assumed).
+struct Plain;
+impl Madd for Plain {
+    #[inline(always)]
+    fn madd(a: f64, b: f64, c: f64) -> f64 {
+        a * b + c
+    }
+}
+
+/// a·b + c rounded once (only inside functions compiled with the `fma` feature).
+#[cfg(target_arch = "x86_64")]
+struct Fused;
+#[cfg(target_arch = "x86_64")]
+impl Madd for Fused {
+    #[inline(always)]
+    fn madd(a: f64, b: f64, c: f64) -> f64 {
+        a.mul_add(b, c)
+    }
+}
+
+/// `out[k] = Σ_j z[j]·cols[k·z.len() + j]` for the M = `out.len()` columns stored one
+/// after another in `cols`.
+///
+/// # Panics
+/// If `cols` does not hold `out.len()` columns of `z.len()` entries.
+#[track_caller]
+pub(crate) fn dots(path: Path, z: &[f64], cols: &[f64], out: &mut [f64]) {
+    assert_eq!(cols.len(), z.len() * out.len(), "dots: shape mismatch");
+    match path {
+        Path::Generic => dots_any::<Plain, 16>(z, cols, out),
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: `detected` chose this path only if the CPU has AVX2 and FMA.
+        Path::Avx2 => unsafe { dots_avx2(z, cols, out) },
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: `detected` chose this path only if the CPU has AVX-512F, AVX2 and FMA.
+        Path::Avx512 => unsafe { dots_avx512(z, cols, out) },
+    }
+}
+
+/// `g[k·z.len() + j] += b[k]·z[j]` for the M = `b.len()` sums stored one after another
+/// in `g`.
+///
+/// # Panics
+/// If `g` does not hold `b.len()` sums of `z.len()` entries.
+#[track_caller]
+pub(crate) fn add_scaled(path: Path, z: &[f64], b: &[f64], g: &mut [f64]) {
+    assert_eq!(g.len(), z.len() * b.len(), "add_scaled: shape mismatch");
+    match path {
+        Path::Generic => add_scaled_any::<Plain>(z, b, g),
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: as in `dots`.
+        Path::Avx2 => unsafe { add_scaled_avx2(z, b, g) },
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: as in `dots`.
+        Path::Avx512 => unsafe { add_scaled_avx512(z, b, g) },
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn dots_avx2(z: &[f64], cols: &[f64], out: &mut [f64]) {
+    dots_any::<Fused, 16>(z, cols, out);
+}
+
+/// [`dots_any`] with explicit AVX-512 registers (the compiler's own vectorisation of the
+/// four-column group mixes scalar and two-lane code): lane q of a group's partial sums is
+/// lane q mod 8 of register q / 8, so the sums are those of the other paths with FMA.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn dots_avx512(z: &[f64], cols: &[f64], out: &mut [f64]) {
+    let n = z.len();
+    let mut k = 0;
+    while k < out.len() {
+        let c = &cols[k * n..];
+        match out.len() - k {
+            1 => {
+                let [a] = avx512::group::<1, 2>(z, c);
+                out[k] = a;
+                k += 1;
+            }
+            2 | 3 => {
+                let [a, b] = avx512::group::<2, 2>(z, c);
+                out[k] = a;
+                out[k + 1] = b;
+                k += 2;
+            }
+            _ => {
+                let r = avx512::group::<4, 1>(z, c);
+                out[k..k + 4].copy_from_slice(&r);
+                k += 4;
+            }
+        }
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+mod avx512 {
+    use std::arch::x86_64::{
+        __m512d, _mm512_fmadd_pd, _mm512_loadu_pd, _mm512_setzero_pd, _mm512_storeu_pd,
+    };
+
+    /// M dot products of `z` with the columns `cols[k·n..(k+1)·n]`, R registers (8·R
+    /// lanes) of partial sums each, then the tail into lane 0 and the pairwise lane sum.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx2,fma")]
+    pub(super) fn group<const M: usize, const R: usize>(z: &[f64], cols: &[f64]) -> [f64; M] {
+        let n = z.len();
+        let step = 8 * R;
+        let body = n - n % step;
+        assert!(cols.len() >= M * n, "dots: shape mismatch");
+        let mut acc: [[__m512d; R]; M] = [[_mm512_setzero_pd(); R]; M];
+        let zp = z.as_ptr();
+        let cp = cols.as_ptr();
+        let mut j0 = 0;
+        while j0 < body {
+            for r in 0..R {
+                // SAFETY: j0 + 8·r + 8 ≤ body ≤ n, and column k holds n entries from k·n.
+                unsafe {
+                    let zv = _mm512_loadu_pd(zp.add(j0 + 8 * r));
+                    for (k, a) in acc.iter_mut().enumerate() {
+                        let cv = _mm512_loadu_pd(cp.add(k * n + j0 + 8 * r));
+                        a[r] = _mm512_fmadd_pd(zv, cv, a[r]);
+                    }
+                }
+            }
+            j0 += step;
+        }
+        let mut out = [0.0; M];
+        for (k, a) in acc.iter().enumerate() {
+            let mut lanes = [0.0f64; 16];
+            for (r, v) in a.iter().enumerate() {
+                // SAFETY: 8·r + 8 ≤ 8·R ≤ 16 entries of `lanes`.
+                unsafe { _mm512_storeu_pd(lanes.as_mut_ptr().add(8 * r), *v) };
+            }
+            for j in body..n {
+                lanes[0] = z[j].mul_add(cols[k * n + j], lanes[0]);
+            }
+            out[k] = match R {
+                1 => super::lane_sum(<&mut [f64; 8]>::try_from(&mut lanes[..8]).expect("8 lanes")),
+                _ => {
+                    super::lane_sum(<&mut [f64; 16]>::try_from(&mut lanes[..16]).expect("16 lanes"))
+                }
+            };
+        }
+        out
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn add_scaled_avx2(z: &[f64], b: &[f64], g: &mut [f64]) {
+    add_scaled_any::<Fused>(z, b, g);
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn add_scaled_avx512(z: &[f64], b: &[f64], g: &mut [f64]) {
+    add_scaled_any::<Fused>(z, b, g);
+}
+
+/// Splits the columns into groups the registers hold (two at a time keeps 2·L partial
+/// sums live; the sketch's eight go four at a time).
+#[inline(always)]
+fn dots_any<F: Madd, const L: usize>(z: &[f64], cols: &[f64], out: &mut [f64]) {
+    let n = z.len();
+    let mut k = 0;
+    while k < out.len() {
+        match out.len() - k {
+            1 => {
+                let [a] = dots_group::<F, 1, L>(z, &cols[k * n..]);
+                out[k] = a;
+                k += 1;
+            }
+            2 | 3 => {
+                let [a, b] = dots_group::<F, 2, L>(z, &cols[k * n..]);
+                out[k] = a;
+                out[k + 1] = b;
+                k += 2;
+            }
+            _ => {
+                let r = dots_group::<F, 4, 8>(z, &cols[k * n..]);
+                out[k..k + 4].copy_from_slice(&r);
+                k += 4;
+            }
+        }
+    }
+}
+
+/// M dot products of `z` with the columns `cols[k·n..(k+1)·n]`, `LL` lanes each.
+#[inline(always)]
+fn dots_group<F: Madd, const M: usize, const LL: usize>(z: &[f64], cols: &[f64]) -> [f64; M] {
+    let n = z.len();
+    let body = n - n % LL;
+    let mut acc = [[0.0f64; LL]; M];
+    for j0 in (0..body).step_by(LL) {
+        let zc: &[f64; LL] = z[j0..j0 + LL].try_into().expect("lane block");
+        for (k, a) in acc.iter_mut().enumerate() {
+            let c: &[f64; LL] = cols[k * n + j0..k * n + j0 + LL]
+                .try_into()
+                .expect("lane block");
+            for q in 0..LL {
+                a[q] = F::madd(zc[q], c[q], a[q]);
+            }
+        }
+    }
+    let mut out = [0.0; M];
+    for (k, a) in acc.iter_mut().enumerate() {
+        for j in body..n {
+            a[0] = F::madd(z[j], cols[k * n + j], a[0]);
+        }
+        out[k] = lane_sum(a);
+    }
+    out
+}
+
+/// Sum of the lanes in a fixed pairwise tree.
+#[inline(always)]
+fn lane_sum<const LL: usize>(a: &mut [f64; LL]) -> f64 {
+    let mut width = LL;
+    while width > 1 {
+        width /= 2;
+        for q in 0..width {
+            a[q] += a[q + width];
+        }
+    }
+    a[0]
+}
+
+#[inline(always)]
+fn add_scaled_any<F: Madd>(z: &[f64], b: &[f64], g: &mut [f64]) {
+    let n = z.len();
+    let mut k = 0;
+    // Three sums at once (the pass's three candidate steps) share each load of z.
+    while b.len() - k >= 3 {
+        let (g0, rest) = g[k * n..].split_at_mut(n);
+        let (g1, rest) = rest.split_at_mut(n);
+        let g2 = &mut rest[..n];
+        let (b0, b1, b2) = (b[k], b[k + 1], b[k + 2]);
+        for j in 0..n {
+            let zj = z[j];
+            g0[j] = F::madd(b0, zj, g0[j]);
+            g1[j] = F::madd(b1, zj, g1[j]);
+            g2[j] = F::madd(b2, zj, g2[j]);
+        }
+        k += 3;
+    }
+    while k < b.len() {
+        let bk = b[k];
+        if bk != 0.0 {
+            for (gj, &zj) in g[k * n..(k + 1) * n].iter_mut().zip(z) {
+                *gj = F::madd(bk, zj, *gj);
+            }
+        }
+        k += 1;
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn paths() -> Vec<Path> {
+        let mut p = vec![Path::Generic];
+        #[cfg(target_arch = "x86_64")]
+        {
+            if detected() != Path::Generic {
+                p.push(Path::Avx2);
+            }
+            if detected() == Path::Avx512 {
+                p.push(Path::Avx512);
+            }
+        }
+        p
+    }
+
+    /// Every path against plain sums in exact-enough arithmetic: integer-valued inputs
+    /// small enough that every product and partial sum is exact in f64, so each path must
+    /// give the exact value whatever its order or rounding (common practice).
+    #[test]
+    fn every_path_gives_exact_sums_on_integer_data() {
+        for n in [1usize, 7, 16, 33, 1025] {
+            let z: Vec<f64> = (0..n).map(|j| ((j * 7 + 3) % 11) as f64 - 5.0).collect();
+            for m in [1usize, 2, 3, 8, 10] {
+                let cols: Vec<f64> = (0..m * n)
+                    .map(|j| ((j * 5 + 1) % 13) as f64 - 6.0)
+                    .collect();
+                let want: Vec<f64> = (0..m)
+                    .map(|k| (0..n).map(|j| z[j] * cols[k * n + j]).sum())
+                    .collect();
+                let b: Vec<f64> = (0..m).map(|k| k as f64 - 1.0).collect();
+                let mut want_g = cols.clone();
+                for k in 0..m {
+                    for j in 0..n {
+                        want_g[k * n + j] += b[k] * z[j];
+                    }
+                }
+                for path in paths() {
+                    let mut out = vec![0.0; m];
+                    dots(path, &z, &cols, &mut out);
+                    assert_eq!(out, want, "dots n {n} m {m} {path:?}");
+                    let mut g = cols.clone();
+                    add_scaled(path, &z, &b, &mut g);
+                    assert_eq!(g, want_g, "add_scaled n {n} m {m} {path:?}");
+                }
+            }
+        }
+    }
+}
