@@ -290,6 +290,7 @@ impl Trainer<'_> {
             seed: self.settings.dcd.seed,
             epsilon: self.settings.dcd.epsilon,
             pool: &pool,
+            lazy: method == Method::Newton,
         };
         let mut engine = match method {
             Method::Newton => {
@@ -454,7 +455,16 @@ impl Trainer<'_> {
                 let mut group_rows = 0usize;
                 let target_rows = self.settings.block_rows.max(1);
                 let mut flush = |group: &mut Vec<_>| {
-                    updates += solve_group(group, state, dcd, rng, ws, &mut loss_start, &w_start);
+                    updates += solve_group(
+                        group,
+                        streamer,
+                        state,
+                        dcd,
+                        rng,
+                        ws,
+                        &mut loss_start,
+                        &w_start,
+                    );
                 };
                 let resident = streamer.pass(source, &order, cache, &rows_done, &mut |mb| {
                     group.push(std::sync::Arc::clone(mb));
@@ -488,7 +498,12 @@ impl Trainer<'_> {
                 let seed = self.settings.dcd.seed ^ SAMPLE_SALT;
                 let mut acc = state.accumulator(dcd.c, dcd.epsilon, *share, seed);
                 let resident = streamer.pass(source, &order, cache, &rows_done, &mut |mb| {
-                    acc.add_block(Some(pool), mb.z.view(), mb.y.view(), &mb.rows);
+                    acc.add_block(
+                        Some(pool),
+                        mb.rows_view(streamer.map),
+                        mb.y.view(),
+                        &mb.rows,
+                    );
                     Ok(())
                 })?;
                 let out = match state.step(acc)? {
@@ -544,7 +559,7 @@ impl Trainer<'_> {
         let mut loss = 0.0;
         let order: Vec<usize> = (0..source.units()).collect();
         streamer.pass(source, &order, cache, &|_| {}, &mut |mb| {
-            loss += loss_sum(w, mb.z.view(), mb.y.view(), dcd);
+            loss += loss_sum(w, mb.mapped(streamer).view(), mb.y.view(), dcd);
             Ok(())
         })?;
         let dual = match engine {
@@ -558,8 +573,10 @@ impl Trainer<'_> {
 
 /// Runs the dual solver's sweeps on one group of mapped blocks, after adding the group's
 /// primal loss at the start-of-epoch weights to `loss_start`; returns the updates made.
+#[allow(clippy::too_many_arguments)]
 fn solve_group(
     group: &mut Vec<std::sync::Arc<crate::solver::stream::MappedBlock>>,
+    streamer: &Streamer,
     state: &mut DcdState,
     dcd: &DcdSettings,
     rng: &mut ChaCha8Rng,
@@ -570,20 +587,23 @@ fn solve_group(
     if group.is_empty() {
         return 0;
     }
-    for mb in group.iter() {
-        *loss_start += loss_sum(w_start.view(), mb.z.view(), mb.y.view(), dcd);
+    // The dual solver's stream is not lazy, so these borrow the mapped rows.
+    let mapped: Vec<_> = group.iter().map(|mb| mb.mapped(streamer)).collect();
+    for (mb, z) in group.iter().zip(&mapped) {
+        *loss_start += loss_sum(w_start.view(), z.view(), mb.y.view(), dcd);
     }
     let st = if group.len() == 1 {
         let mb = &group[0];
-        solve_block(state, mb.z.view(), mb.y.view(), &mb.rows, dcd, rng, ws)
+        solve_block(state, mapped[0].view(), mb.y.view(), &mb.rows, dcd, rng, ws)
     } else {
-        let zs: Vec<_> = group.iter().map(|m| m.z.view()).collect();
+        let zs: Vec<_> = mapped.iter().map(|z| z.view()).collect();
         let ys: Vec<_> = group.iter().map(|m| m.y.view()).collect();
         let z = ndarray::concatenate(Axis(0), &zs).expect("blocks share D");
         let y = ndarray::concatenate(Axis(0), &ys).expect("vectors");
         let rows: Vec<usize> = group.iter().flat_map(|m| m.rows.iter().copied()).collect();
         solve_block(state, z.view(), y.view(), &rows, dcd, rng, ws)
     };
+    drop(mapped);
     group.clear();
     st.updates
 }

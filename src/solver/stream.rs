@@ -4,9 +4,14 @@
 //!
 //! A block is standardized, split into training and holdout rows by a hash of each row's
 //! stable id (the same rows every pass), and its training rows are mapped into the
-//! feature space. The solver visits the mapped blocks on the calling thread in the order
-//! it asks for, so whatever it accumulates is the same whatever the number of threads.
+//! feature space in pieces of at most 32 MiB, each handed on before the next is mapped.
+//! A lazy stream (the Newton solver's) maps only the pieces the memory budget will keep;
+//! the others travel as standardized inputs and the solver maps them a few rows at a
+//! time just before it reads them, so mapped rows never make a round trip through main
+//! memory. The solver visits the blocks on the calling thread in the order it asks for,
+//! so whatever it accumulates is the same whatever the number of threads.
 
+use std::borrow::Cow;
 use std::sync::mpsc::sync_channel;
 use std::sync::Arc;
 
@@ -107,10 +112,64 @@ pub(crate) fn row_unit(row: u64, seed: u64) -> f64 {
     (z >> 11) as f64 / (1u64 << 53) as f64
 }
 
-/// A block after standardization and mapping, split into training and holdout rows.
+/// The training rows of a streamed block: mapped, or standardized inputs that the visitor
+/// maps itself, a few rows at a time while they are in cache (see [`Streamer::lazy`]).
+pub(crate) enum TrainRows {
+    /// Mapped rows (rows × D).
+    Mapped(Array2<f64>),
+    /// Standardized inputs (rows × inputs), not yet mapped.
+    Inputs(Array2<f64>),
+}
+
+/// A block's training rows as a visitor reads them: mapped, or inputs with the map that
+/// maps them.
+#[derive(Clone, Copy)]
+pub(crate) enum BlockRows<'a> {
+    /// Mapped rows (rows × D).
+    Mapped(ArrayView2<'a, f64>),
+    /// Standardized inputs and the feature map.
+    Inputs {
+        /// Standardized inputs (rows × inputs).
+        x: ArrayView2<'a, f64>,
+        /// The map into the feature space.
+        map: &'a dyn FeatureMap,
+    },
+}
+
+impl<'a> BlockRows<'a> {
+    /// Rows held.
+    pub fn nrows(&self) -> usize {
+        match self {
+            BlockRows::Mapped(z) => z.nrows(),
+            BlockRows::Inputs { x, .. } => x.nrows(),
+        }
+    }
+
+    /// Features D of the mapped rows.
+    pub fn dim(&self) -> usize {
+        match self {
+            BlockRows::Mapped(z) => z.ncols(),
+            BlockRows::Inputs { map, .. } => map.output_dim(),
+        }
+    }
+
+    /// Rows `lo..hi`.
+    pub fn slice(&self, lo: usize, hi: usize) -> BlockRows<'a> {
+        match *self {
+            BlockRows::Mapped(z) => BlockRows::Mapped(z.slice_move(s![lo..hi, ..])),
+            BlockRows::Inputs { x, map } => BlockRows::Inputs {
+                x: x.slice_move(s![lo..hi, ..]),
+                map,
+            },
+        }
+    }
+}
+
+/// A block after standardization (and mapping, unless left to the visitor), split into
+/// training and holdout rows.
 pub(crate) struct MappedBlock {
-    /// Mapped training rows (rows × D).
-    pub z: Array2<f64>,
+    /// Training rows.
+    pub z: TrainRows,
     /// Standardized targets of the training rows.
     pub y: Array1<f64>,
     /// Global row ids of the training rows.
@@ -123,7 +182,34 @@ pub(crate) struct MappedBlock {
 
 impl MappedBlock {
     fn bytes(&self) -> usize {
-        (self.z.len() + self.y.len() + self.rows.len() + self.hold_x.len() + self.hold_y.len()) * 8
+        let z = match &self.z {
+            TrainRows::Mapped(z) | TrainRows::Inputs(z) => z.len(),
+        };
+        (z + self.y.len() + self.rows.len() + self.hold_x.len() + self.hold_y.len()) * 8
+    }
+
+    /// Whether the training rows are mapped (only mapped blocks stay resident).
+    fn is_mapped(&self) -> bool {
+        matches!(self.z, TrainRows::Mapped(_))
+    }
+
+    /// The mapped training rows, mapped now on `streamer`'s pool if the stream left that
+    /// to the visitor.
+    pub fn mapped(&self, streamer: &Streamer) -> Cow<'_, Array2<f64>> {
+        match &self.z {
+            TrainRows::Mapped(z) => Cow::Borrowed(z),
+            TrainRows::Inputs(x) => {
+                Cow::Owned(streamer.pool.install(|| streamer.map.transform(x.view())))
+            }
+        }
+    }
+
+    /// The training rows as a visitor reads them.
+    pub fn rows_view<'a>(&'a self, map: &'a dyn FeatureMap) -> BlockRows<'a> {
+        match &self.z {
+            TrainRows::Mapped(z) => BlockRows::Mapped(z.view()),
+            TrainRows::Inputs(x) => BlockRows::Inputs { x: x.view(), map },
+        }
     }
 }
 
@@ -209,12 +295,24 @@ pub(crate) struct Streamer<'a> {
     pub seed: u64,
     pub epsilon: f64,
     pub pool: &'a rayon::ThreadPool,
+    /// Leave the mapping of blocks that will not stay resident to the visitor, which
+    /// maps a few rows at a time just before it reads them (the Newton pass): mapped rows
+    /// then never travel through main memory, and nothing the size of a mapped block is
+    /// in flight.
+    pub lazy: bool,
 }
 
 impl Streamer<'_> {
     /// Standardizes and splits one raw block, then maps its training rows piece by piece,
     /// handing each mapped piece to `emit` as soon as it is ready.
-    fn prepare(&self, mut b: Block, emit: &mut dyn FnMut(MappedBlock) -> Result<()>) -> Result<()> {
+    /// `map_now(bytes)` says whether a piece whose mapped rows take `bytes` is mapped here
+    /// (always, unless the stream is lazy).
+    fn prepare(
+        &self,
+        mut b: Block,
+        map_now: &mut dyn FnMut(usize) -> bool,
+        emit: &mut dyn FnMut(MappedBlock) -> Result<()>,
+    ) -> Result<()> {
         let y_raw = b
             .y
             .take()
@@ -256,11 +354,16 @@ impl Streamer<'_> {
         for k in 0..pieces {
             let lo = k * piece;
             let hi = (lo + piece).min(n_train);
-            let mut z = Array2::zeros((hi - lo, dim));
-            self.pool.install(|| {
-                self.map
-                    .transform_into(xt.slice(s![lo..hi, ..]), z.view_mut())
-            });
+            let z = if map_now((hi - lo) * dim * 8) {
+                let mut z = Array2::zeros((hi - lo, dim));
+                self.pool.install(|| {
+                    self.map
+                        .transform_into(xt.slice(s![lo..hi, ..]), z.view_mut())
+                });
+                TrainRows::Mapped(z)
+            } else {
+                TrainRows::Inputs(xt.slice(s![lo..hi, ..]).to_owned())
+            };
             let last = k + 1 == pieces;
             emit(MappedBlock {
                 z,
@@ -302,12 +405,27 @@ impl Streamer<'_> {
         let mut resident_blocks = 0;
         std::thread::scope(|scope| -> Result<()> {
             let (tx, rx) = sync_channel::<Msg>(1);
+            // Mapped here: every piece of an eager stream; of a lazy one, on the first pass,
+            // the pieces that the budget will keep resident (the visitor's rule below, as
+            // far as it can be told ahead).
+            let budget = cache.budget.saturating_sub(cache.resident_bytes);
             let producer = {
                 let to_read = &to_read;
                 scope.spawn(move || {
+                    let mut planned = 0usize;
+                    let mut map_now = |bytes: usize| {
+                        if !self.lazy {
+                            return true;
+                        }
+                        let keep = first && planned + bytes <= budget;
+                        if keep {
+                            planned += bytes;
+                        }
+                        keep
+                    };
                     for &u in to_read {
                         let mut sink = |b: Block| -> Result<()> {
-                            self.prepare(b, &mut |mb| {
+                            self.prepare(b, &mut map_now, &mut |mb| {
                                 tx.send(Msg::Block(Box::new(mb)))
                                     .map_err(|_| Error::Numerical("training stopped".into()))
                             })
@@ -358,7 +476,7 @@ impl Streamer<'_> {
                             cache.holdout_y.extend(next.hold_y.iter());
                         }
                         let b = next.bytes();
-                        if fits && cache.resident_bytes + b <= cache.budget {
+                        if fits && next.is_mapped() && cache.resident_bytes + b <= cache.budget {
                             cache.resident_bytes += b;
                             kept.push(next);
                         } else if fits {

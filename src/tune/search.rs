@@ -18,6 +18,7 @@ use crate::solver::dcd::{
     solve_block, BlockWorkspace, DcdSettings, DcdState, Loss, PrimalAccumulator,
 };
 use crate::solver::newton::{NewtonState, Step, SAMPLE_SALT};
+use crate::solver::stream::BlockRows;
 
 /// Rows (expected) in the sample that forms each Newton pass's Hessian on a fold.
 const HESSIAN_ROWS: usize = 4_096;
@@ -198,7 +199,12 @@ impl Run {
             while self.epochs < budget && !self.converged {
                 let mut acc =
                     newton.accumulator(std.c, std.epsilon, share, self.seed ^ SAMPLE_SALT);
-                acc.add_block(None, fold.z_train.view(), fold.y_train.view(), &fold.index);
+                acc.add_block(
+                    None,
+                    BlockRows::Mapped(fold.z_train.view()),
+                    fold.y_train.view(),
+                    &fold.index,
+                );
                 self.epochs += 1;
                 let gap = match newton.step(acc) {
                     Ok(Step::Certified { objective, .. }) => objective.gap,

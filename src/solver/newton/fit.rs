@@ -5,6 +5,7 @@ use ndarray::{s, ArrayView1, ArrayView2};
 
 use super::{NewtonState, Step, SAMPLE_SALT};
 use crate::solver::dcd::{target_scale, DcdFit, DcdReport, DcdSettings, Loss, TargetScaling};
+use crate::solver::stream::BlockRows;
 use crate::{Error, Result};
 
 /// Fits a linear epsilon-SVR with the squared loss on the in-memory features `z`
@@ -61,7 +62,7 @@ pub fn fit(
     let mut converged = false;
     for _ in 0..solver.max_epochs {
         let mut acc = state.accumulator(solver.c, solver.epsilon, share, solver.seed ^ SAMPLE_SALT);
-        acc.add_block(Some(&pool), z, ys.view(), &rows);
+        acc.add_block(Some(&pool), BlockRows::Mapped(z), ys.view(), &rows);
         let objective = match state.step(acc)? {
             Step::Certified { objective, .. } => objective,
             Step::Moved { bound, .. } => bound,

@@ -12,10 +12,13 @@ use rayon::prelude::*;
 
 use super::rowops::{self, Path};
 use crate::solver::dcd::CompensatedSum;
-use crate::solver::stream::row_unit;
+use crate::solver::stream::{row_unit, BlockRows};
 
 /// Rows of a block handled together by one task.
 const CHUNK_ROWS: usize = 1024;
+/// Bytes of mapped rows a task maps at a time when it maps rows itself: small enough to
+/// stay in a core's second-level cache until the rows are used.
+const TILE_BYTES: usize = 256 * 1024;
 /// Columns of the Hessian updated together by one task.
 const PANEL_COLS: usize = 128;
 /// Salt that makes the Hessian's row sample independent of the holdout's.
@@ -85,8 +88,8 @@ struct ChunkPart {
     sums: Vec<[f64; 4]>,
     active: Vec<u64>,
     grid_loss: Vec<f64>,
-    /// Sampled rows (offsets in the block) with their weights 1/P(row sampled).
-    sampled: Vec<(usize, f64)>,
+    /// Sampled rows ẑ_i·√(1/P(row sampled)), D + 1 entries each, in row order.
+    sampled: Vec<f64>,
 }
 
 /// max(0, |r| − ε) with the sign of r: the residual's excess over the tube.
@@ -102,8 +105,9 @@ fn excess(r: f64, eps: f64) -> f64 {
 }
 
 impl LineAccumulator {
-    /// Adds one block: mapped rows `z` (rows × D), standardized targets `y`, global row
-    /// ids `rows`. The chunks run on `pool`, or on the current rayon pool when `None`.
+    /// Adds one block: its training rows `z` (mapped, or inputs that each task maps a
+    /// tile at a time), standardized targets `y`, global row ids `rows`. The chunks run on
+    /// `pool`, or on the current rayon pool when `None`.
     ///
     /// # Panics
     /// If the shapes disagree with each other or with the weights.
@@ -111,11 +115,11 @@ impl LineAccumulator {
     pub fn add_block(
         &mut self,
         pool: Option<&rayon::ThreadPool>,
-        z: ArrayView2<f64>,
+        z: BlockRows,
         y: ArrayView1<f64>,
         rows: &[usize],
     ) {
-        let (n, d) = z.dim();
+        let (n, d) = (z.nrows(), z.dim());
         assert_eq!(
             d, self.dim,
             "add_block: {d} features, expected {}",
@@ -151,13 +155,7 @@ impl LineAccumulator {
                 .map(|k| {
                     let lo = k * CHUNK_ROWS;
                     let hi = (lo + CHUNK_ROWS).min(n);
-                    self.chunk(
-                        z.slice(s![lo..hi, ..]),
-                        y.slice(s![lo..hi]),
-                        &rows[lo..hi],
-                        lo,
-                        &line,
-                    )
+                    self.chunk(z.slice(lo, hi), y.slice(s![lo..hi]), &rows[lo..hi], &line)
                 })
                 .collect()
         };
@@ -188,26 +186,14 @@ impl LineAccumulator {
         }
         self.rows += n as u64;
         if !sampled.is_empty() {
-            let mut a = Array2::zeros((sampled.len(), d + 1));
-            for (r, &(i, weight)) in sampled.iter().enumerate() {
-                let mut row = a.row_mut(r);
-                row.slice_mut(s![..d]).assign(&z.row(i));
-                row[d] = 1.0;
-                row *= weight.sqrt();
-            }
-            add_gram_upper(pool, &mut self.hess, a.view());
+            let a = ArrayView2::from_shape((sampled.len() / (d + 1), d + 1), &sampled)
+                .expect("sampled rows hold D + 1 entries each");
+            add_gram_upper(pool, &mut self.hess, a);
         }
     }
 
-    fn chunk(
-        &self,
-        z: ArrayView2<f64>,
-        y: ArrayView1<f64>,
-        ids: &[usize],
-        offset: usize,
-        line: &Line,
-    ) -> ChunkPart {
-        let (n, d) = z.dim();
+    fn chunk(&self, z: BlockRows, y: ArrayView1<f64>, ids: &[usize], line: &Line) -> ChunkPart {
+        let (n, d) = (z.nrows(), z.dim());
         let m = self.steps.len();
         let m_dir = line.wd_bias.len();
         let k_sketch = line.sketch_bias.len();
@@ -222,61 +208,85 @@ impl LineAccumulator {
         let mut od = [0.0; 2];
         let mut sk = vec![0.0; k_sketch];
         let mut beta = vec![0.0; m];
+        let tile = match z {
+            BlockRows::Mapped(_) => n.max(1),
+            BlockRows::Inputs { .. } => (TILE_BYTES / (8 * d.max(1))).clamp(8, 256),
+        };
+        let mut buf = match z {
+            BlockRows::Mapped(_) => Vec::new(),
+            BlockRows::Inputs { .. } => vec![0.0; tile.min(n) * d],
+        };
         let mut copy = Vec::new();
-        for i in 0..n {
-            let row = z.row(i);
-            let zi = match row.as_slice() {
-                Some(r) => r,
-                None => {
-                    copy.clear();
-                    copy.extend(row.iter());
-                    &copy[..]
+        for t0 in (0..n).step_by(tile) {
+            let t1 = (t0 + tile).min(n);
+            let zt = match z {
+                BlockRows::Mapped(z) => z.slice_move(s![t0..t1, ..]),
+                BlockRows::Inputs { x, map } => {
+                    let rows = t1 - t0;
+                    let out = ndarray::ArrayViewMut2::from_shape((rows, d), &mut buf[..rows * d])
+                        .expect("tile buffer");
+                    map.transform_into(x.slice(s![t0..t1, ..]), out);
+                    ArrayView2::from_shape((rows, d), &buf[..rows * d]).expect("tile buffer")
                 }
             };
-            rowops::dots(line.path, zi, &line.wd, &mut od[..m_dir]);
-            let r0 = y[i] - (od[0] + line.wd_bias[0]);
-            let delta = if m_dir > 1 {
-                od[1] + line.wd_bias[1]
-            } else {
-                0.0
-            };
-            let mut any = false;
-            for (k, &t) in self.steps.iter().enumerate() {
-                let e = excess(r0 - t * delta, eps);
-                beta[k] = c2 * e;
-                if e != 0.0 {
-                    any = true;
-                    let b = beta[k];
-                    let s = &mut sums[k];
-                    s[0] += e * e;
-                    s[1] += y[i] * b;
-                    s[2] += b.abs();
-                    s[3] += b * b;
-                    active[k] += 1;
-                    if k == 0 {
-                        let sq = if k_sketch > 0 {
-                            rowops::dots(line.path, zi, &line.sketch, &mut sk);
-                            sk.iter()
-                                .zip(&line.sketch_bias)
-                                .map(|(u, b)| (u + b) * (u + b))
-                                .sum::<f64>()
-                        } else {
-                            0.0
-                        };
-                        if let Some(weight) = self.sample_weight(sq, ids[i], score_scale) {
-                            sampled.push((offset + i, weight));
+            for ti in 0..t1 - t0 {
+                let i = t0 + ti;
+                let row = zt.row(ti);
+                let zi = match row.as_slice() {
+                    Some(r) => r,
+                    None => {
+                        copy.clear();
+                        copy.extend(row.iter());
+                        &copy[..]
+                    }
+                };
+                rowops::dots(line.path, zi, &line.wd, &mut od[..m_dir]);
+                let r0 = y[i] - (od[0] + line.wd_bias[0]);
+                let delta = if m_dir > 1 {
+                    od[1] + line.wd_bias[1]
+                } else {
+                    0.0
+                };
+                let mut any = false;
+                for (k, &t) in self.steps.iter().enumerate() {
+                    let e = excess(r0 - t * delta, eps);
+                    beta[k] = c2 * e;
+                    if e != 0.0 {
+                        any = true;
+                        let b = beta[k];
+                        let s = &mut sums[k];
+                        s[0] += e * e;
+                        s[1] += y[i] * b;
+                        s[2] += b.abs();
+                        s[3] += b * b;
+                        active[k] += 1;
+                        if k == 0 {
+                            let sq = if k_sketch > 0 {
+                                rowops::dots(line.path, zi, &line.sketch, &mut sk);
+                                sk.iter()
+                                    .zip(&line.sketch_bias)
+                                    .map(|(u, b)| (u + b) * (u + b))
+                                    .sum::<f64>()
+                            } else {
+                                0.0
+                            };
+                            if let Some(weight) = self.sample_weight(sq, ids[i], score_scale) {
+                                let root = weight.sqrt();
+                                sampled.extend(zi.iter().map(|v| v * root));
+                                sampled.push(root);
+                            }
                         }
                     }
                 }
-            }
-            for (acc, &t) in grid_loss.iter_mut().zip(&self.grid) {
-                let e = excess(r0 - t * delta, eps);
-                *acc += e * e;
-            }
-            if any {
-                rowops::add_scaled(line.path, zi, &beta, &mut grad);
-                for (g, b) in grad_bias.iter_mut().zip(&beta) {
-                    *g += b;
+                for (acc, &t) in grid_loss.iter_mut().zip(&self.grid) {
+                    let e = excess(r0 - t * delta, eps);
+                    *acc += e * e;
+                }
+                if any {
+                    rowops::add_scaled(line.path, zi, &beta, &mut grad);
+                    for (g, b) in grad_bias.iter_mut().zip(&beta) {
+                        *g += b;
+                    }
                 }
             }
         }
