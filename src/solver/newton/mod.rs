@@ -36,8 +36,9 @@
 //! needed 3. So after the first pass the rows are sampled by their ridge leverage scores
 //! ℓ_i = 2C ẑ_iᵀH⁻¹ẑ_i under the last Newton matrix H (Drineas, Magdon-Ismail, Mahoney
 //! & Woodruff, JMLR 2012; Cohen, Musco & Musco, SODA 2017, for the ridge form),
-//! estimated for every row outside the tube from an 8-column Gaussian sketch that rides
-//! in the same product as ẑ_iᵀw: a row enters with probability min(1, gain·ℓ̃_i), the
+//! estimated for every row outside the tube from an 8-column Gaussian sketch, applied to
+//! the row (in single precision: the estimate only sets a probability) while it is in
+//! cache for its residual: a row enters with probability min(1, gain·ℓ̃_i), the
 //! gain chosen so that about `hessian_rows` rows enter. The samples of earlier passes
 //! stay in the estimate with weight ½ per pass of age, which lowers its variance while
 //! letting the changing active set age out. On the same folder this takes 10 passes.

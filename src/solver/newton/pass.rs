@@ -73,8 +73,9 @@ struct Line {
     /// [w] or [w, d], m_dir × D.
     wd: Vec<f64>,
     wd_bias: Vec<f64>,
-    /// The sketch x's columns, K × D (empty without leverage estimates).
-    sketch: Vec<f64>,
+    /// The sketch x's columns, K × D, in single precision (empty without leverage
+    /// estimates).
+    sketch: Vec<f32>,
     sketch_bias: Vec<f64>,
     path: Path,
 }
@@ -136,7 +137,13 @@ impl LineAccumulator {
         }
         let (sketch, sketch_bias) = match &self.lever {
             Some(lever) if self.share < 1.0 => (
-                lever.x.slice(s![..d, ..]).t().iter().copied().collect(),
+                lever
+                    .x
+                    .slice(s![..d, ..])
+                    .t()
+                    .iter()
+                    .map(|&v| v as f32)
+                    .collect(),
                 lever.x.row(d).to_vec(),
             ),
             _ => (Vec::new(), Vec::new()),
@@ -207,6 +214,7 @@ impl LineAccumulator {
         let score_scale = c2 / k_sketch.max(1) as f64;
         let mut od = [0.0; 2];
         let mut sk = vec![0.0; k_sketch];
+        let mut z32 = vec![0.0f32; if k_sketch > 0 { d } else { 0 }];
         let mut beta = vec![0.0; m];
         let tile = match z {
             BlockRows::Mapped(_) => n.max(1),
@@ -217,6 +225,8 @@ impl LineAccumulator {
             BlockRows::Inputs { .. } => vec![0.0; tile.min(n) * d],
         };
         let mut copy = Vec::new();
+        let mut pending: Vec<usize> = Vec::with_capacity(4);
+        let mut pending_beta: Vec<f64> = Vec::with_capacity(4 * m);
         for t0 in (0..n).step_by(tile) {
             let t1 = (t0 + tile).min(n);
             let zt = match z {
@@ -262,7 +272,10 @@ impl LineAccumulator {
                         active[k] += 1;
                         if k == 0 {
                             let sq = if k_sketch > 0 {
-                                rowops::dots(line.path, zi, &line.sketch, &mut sk);
+                                for (a, &b) in z32.iter_mut().zip(zi) {
+                                    *a = b as f32;
+                                }
+                                rowops::dots_f32(line.path, &z32, &line.sketch, &mut sk);
                                 sk.iter()
                                     .zip(&line.sketch_bias)
                                     .map(|(u, b)| (u + b) * (u + b))
@@ -283,12 +296,33 @@ impl LineAccumulator {
                     *acc += e * e;
                 }
                 if any {
-                    rowops::add_scaled(line.path, zi, &beta, &mut grad);
                     for (g, b) in grad_bias.iter_mut().zip(&beta) {
                         *g += b;
                     }
+                    if row.as_slice().is_some() {
+                        // Added four rows at a time: one load and store of the sums
+                        // for four rows (the same operations, in the same order).
+                        pending.push(ti);
+                        pending_beta.extend_from_slice(&beta);
+                        if pending.len() == 4 {
+                            let rows: [&[f64]; 4] = std::array::from_fn(|q| {
+                                zt.row(pending[q]).to_slice().expect("contiguous row")
+                            });
+                            rowops::add_scaled4(line.path, rows, &pending_beta, &mut grad);
+                            pending.clear();
+                            pending_beta.clear();
+                        }
+                    } else {
+                        rowops::add_scaled(line.path, zi, &beta, &mut grad);
+                    }
                 }
             }
+            for (r, &ti) in pending.iter().enumerate() {
+                let zi = zt.row(ti).to_slice().expect("contiguous row");
+                rowops::add_scaled(line.path, zi, &pending_beta[r * m..(r + 1) * m], &mut grad);
+            }
+            pending.clear();
+            pending_beta.clear();
         }
         ChunkPart {
             grad,

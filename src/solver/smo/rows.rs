@@ -25,8 +25,11 @@ use crate::kernel::{Kernel, KernelKind};
 pub(super) const TILE: usize = 256;
 /// Entries computed together in registers.
 const LANES: usize = 16;
-/// Rows below which a kernel row is computed on the calling thread (parallel overhead).
-const PARALLEL_MIN: usize = 2048;
+/// Work (row length × (inputs + 8), the 8 standing for the kernel function's cost per
+/// entry) below which a kernel row is computed on the calling thread: handing half a row
+/// to the other thread costs a few microseconds, worth it only above this. 2,048 entries
+/// at 8 inputs; about 1,200 at 20.
+const PARALLEL_WORK: usize = 2048 * 16;
 
 /// A set of rows stored in tiles, feature-major within each tile; padding rows are zero.
 pub(super) struct Tiles {
@@ -76,7 +79,7 @@ impl Tiles {
         assert_eq!(out.len(), self.len, "kernel row: output length");
         assert_eq!(xr.len(), self.d, "kernel row: input length");
         let step = self.d * TILE;
-        if self.len >= PARALLEL_MIN {
+        if self.len * (self.d + 8) >= PARALLEL_WORK {
             out.par_chunks_mut(TILE)
                 .zip(self.data.par_chunks(step))
                 .for_each(|(o, t)| tile_row(kernel, xr, t, o));
