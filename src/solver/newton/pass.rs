@@ -217,39 +217,17 @@ impl LineAccumulator {
         let mut z32 = vec![0.0f32; if k_sketch > 0 { d } else { 0 }];
         let mut beta = vec![0.0; m];
         let tile = match z {
-            BlockRows::Mapped(_) => n.max(1),
-            BlockRows::Inputs { .. } => (TILE_BYTES / (8 * d.max(1))).clamp(8, 256),
+            BlockRows::Mapped(z) if z.is_standard_layout() => n.max(1),
+            _ => (TILE_BYTES / (8 * d.max(1))).clamp(8, 256),
         };
-        let mut buf = match z {
-            BlockRows::Mapped(_) => Vec::new(),
-            BlockRows::Inputs { .. } => vec![0.0; tile.min(n) * d],
-        };
-        let mut copy = Vec::new();
-        let mut pending: Vec<usize> = Vec::with_capacity(4);
-        let mut pending_beta: Vec<f64> = Vec::with_capacity(4 * m);
+        let mut buf = Vec::new();
+        let mut batch = RowBatch::new(m);
         for t0 in (0..n).step_by(tile) {
             let t1 = (t0 + tile).min(n);
-            let zt = match z {
-                BlockRows::Mapped(z) => z.slice_move(s![t0..t1, ..]),
-                BlockRows::Inputs { x, map } => {
-                    let rows = t1 - t0;
-                    let out = ndarray::ArrayViewMut2::from_shape((rows, d), &mut buf[..rows * d])
-                        .expect("tile buffer");
-                    map.transform_into(x.slice(s![t0..t1, ..]), out);
-                    ArrayView2::from_shape((rows, d), &buf[..rows * d]).expect("tile buffer")
-                }
-            };
+            let zt = tile_rows(z, t0, t1, &mut buf);
             for ti in 0..t1 - t0 {
                 let i = t0 + ti;
-                let row = zt.row(ti);
-                let zi = match row.as_slice() {
-                    Some(r) => r,
-                    None => {
-                        copy.clear();
-                        copy.extend(row.iter());
-                        &copy[..]
-                    }
-                };
+                let zi = zt.row(ti).to_slice().expect("tiles are in standard layout");
                 rowops::dots(line.path, zi, &line.wd, &mut od[..m_dir]);
                 let r0 = y[i] - (od[0] + line.wd_bias[0]);
                 let delta = if m_dir > 1 {
@@ -257,12 +235,13 @@ impl LineAccumulator {
                 } else {
                     0.0
                 };
-                let mut any = false;
+                let (mut any, mut outside_first) = (false, false);
                 for (k, &t) in self.steps.iter().enumerate() {
                     let e = excess(r0 - t * delta, eps);
                     beta[k] = c2 * e;
                     if e != 0.0 {
                         any = true;
+                        outside_first |= k == 0;
                         let b = beta[k];
                         let s = &mut sums[k];
                         s[0] += e * e;
@@ -270,25 +249,25 @@ impl LineAccumulator {
                         s[2] += b.abs();
                         s[3] += b * b;
                         active[k] += 1;
-                        if k == 0 {
-                            let sq = if k_sketch > 0 {
-                                for (a, &b) in z32.iter_mut().zip(zi) {
-                                    *a = b as f32;
-                                }
-                                rowops::dots_f32(line.path, &z32, &line.sketch, &mut sk);
-                                sk.iter()
-                                    .zip(&line.sketch_bias)
-                                    .map(|(u, b)| (u + b) * (u + b))
-                                    .sum::<f64>()
-                            } else {
-                                0.0
-                            };
-                            if let Some(weight) = self.sample_weight(sq, ids[i], score_scale) {
-                                let root = weight.sqrt();
-                                sampled.extend(zi.iter().map(|v| v * root));
-                                sampled.push(root);
-                            }
+                    }
+                }
+                if outside_first {
+                    let sq = if k_sketch > 0 {
+                        for (a, &b) in z32.iter_mut().zip(zi) {
+                            *a = b as f32;
                         }
+                        rowops::dots_f32(line.path, &z32, &line.sketch, &mut sk);
+                        sk.iter()
+                            .zip(&line.sketch_bias)
+                            .map(|(u, b)| (u + b) * (u + b))
+                            .sum::<f64>()
+                    } else {
+                        0.0
+                    };
+                    if let Some(weight) = self.sample_weight(sq, ids[i], score_scale) {
+                        let root = weight.sqrt();
+                        sampled.extend(zi.iter().map(|v| v * root));
+                        sampled.push(root);
                     }
                 }
                 for (acc, &t) in grid_loss.iter_mut().zip(&self.grid) {
@@ -299,30 +278,10 @@ impl LineAccumulator {
                     for (g, b) in grad_bias.iter_mut().zip(&beta) {
                         *g += b;
                     }
-                    if row.as_slice().is_some() {
-                        // Added four rows at a time: one load and store of the sums
-                        // for four rows (the same operations, in the same order).
-                        pending.push(ti);
-                        pending_beta.extend_from_slice(&beta);
-                        if pending.len() == 4 {
-                            let rows: [&[f64]; 4] = std::array::from_fn(|q| {
-                                zt.row(pending[q]).to_slice().expect("contiguous row")
-                            });
-                            rowops::add_scaled4(line.path, rows, &pending_beta, &mut grad);
-                            pending.clear();
-                            pending_beta.clear();
-                        }
-                    } else {
-                        rowops::add_scaled(line.path, zi, &beta, &mut grad);
-                    }
+                    batch.push(line.path, zt, ti, &beta, &mut grad);
                 }
             }
-            for (r, &ti) in pending.iter().enumerate() {
-                let zi = zt.row(ti).to_slice().expect("contiguous row");
-                rowops::add_scaled(line.path, zi, &pending_beta[r * m..(r + 1) * m], &mut grad);
-            }
-            pending.clear();
-            pending_beta.clear();
+            batch.finish(line.path, zt, &mut grad);
         }
         ChunkPart {
             grad,
@@ -332,6 +291,73 @@ impl LineAccumulator {
             grid_loss,
             sampled,
         }
+    }
+}
+
+/// Rows `t0..t1` of a chunk as a view in standard layout: borrowed when they are mapped
+/// and laid out so already, otherwise mapped (or copied) into `buf`.
+fn tile_rows<'a: 'b, 'b>(
+    z: BlockRows<'a>,
+    t0: usize,
+    t1: usize,
+    buf: &'b mut Vec<f64>,
+) -> ArrayView2<'b, f64> {
+    let (rows, d) = (t1 - t0, z.dim());
+    match z {
+        BlockRows::Mapped(z) if z.is_standard_layout() => z.slice_move(s![t0..t1, ..]),
+        _ => {
+            buf.resize(rows * d, 0.0);
+            let mut out =
+                ndarray::ArrayViewMut2::from_shape((rows, d), &mut buf[..]).expect("tile buffer");
+            match z {
+                BlockRows::Mapped(z) => out.assign(&z.slice(s![t0..t1, ..])),
+                BlockRows::Inputs { x, map } => map.transform_into(x.slice(s![t0..t1, ..]), out),
+            }
+            ArrayView2::from_shape((rows, d), &buf[..]).expect("tile buffer")
+        }
+    }
+}
+
+/// Rows of a tile whose additions into the gradient sums wait until four are ready, so
+/// that [`rowops::add_scaled4`] loads and stores each sum once for the four (the same
+/// operations, in the same order, as one row at a time).
+struct RowBatch {
+    rows: Vec<usize>,
+    beta: Vec<f64>,
+    m: usize,
+}
+
+impl RowBatch {
+    fn new(m: usize) -> Self {
+        RowBatch {
+            rows: Vec::with_capacity(4),
+            beta: Vec::with_capacity(4 * m),
+            m,
+        }
+    }
+
+    /// Queues tile row `ti` with its scales `beta`, adding the four queued rows when full.
+    fn push(&mut self, path: Path, zt: ArrayView2<f64>, ti: usize, beta: &[f64], grad: &mut [f64]) {
+        self.rows.push(ti);
+        self.beta.extend_from_slice(beta);
+        if self.rows.len() == 4 {
+            let rows: [&[f64]; 4] =
+                std::array::from_fn(|q| zt.row(self.rows[q]).to_slice().expect("standard layout"));
+            rowops::add_scaled4(path, rows, &self.beta, grad);
+            self.rows.clear();
+            self.beta.clear();
+        }
+    }
+
+    /// Adds the rows still queued, one at a time (at the end of a tile).
+    fn finish(&mut self, path: Path, zt: ArrayView2<f64>, grad: &mut [f64]) {
+        let m = self.m;
+        for (r, &ti) in self.rows.iter().enumerate() {
+            let zi = zt.row(ti).to_slice().expect("standard layout");
+            rowops::add_scaled(path, zi, &self.beta[r * m..(r + 1) * m], grad);
+        }
+        self.rows.clear();
+        self.beta.clear();
     }
 }
 

@@ -76,7 +76,7 @@ impl Madd for Fused {
 pub(crate) fn dots(path: Path, z: &[f64], cols: &[f64], out: &mut [f64]) {
     assert_eq!(cols.len(), z.len() * out.len(), "dots: shape mismatch");
     match path {
-        Path::Generic => dots_any::<Plain, 16>(z, cols, out),
+        Path::Generic => dots_any::<Plain>(z, cols, out),
         #[cfg(target_arch = "x86_64")]
         // SAFETY: `detected` chose this path only if the CPU has AVX2 and FMA.
         Path::Avx2 => unsafe { dots_avx2(z, cols, out) },
@@ -187,36 +187,21 @@ fn add_scaled4_any<F: Madd>(z: [&[f64]; 4], b: &[f64], g: &mut [f64]) {
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
 unsafe fn dots_avx2(z: &[f64], cols: &[f64], out: &mut [f64]) {
-    dots_any::<Fused, 16>(z, cols, out);
+    dots_any::<Fused>(z, cols, out);
 }
 
-/// [`dots_any`] with explicit AVX-512 registers (the compiler's own vectorisation of the
-/// four-column group mixes scalar and two-lane code): lane q of a group's partial sums is
-/// lane q mod 8 of register q / 8, so the sums are those of the other paths with FMA.
+/// [`dots_any`] with explicit AVX-512 registers (the compiler's own vectorisation mixes
+/// scalar and two-lane code): lane q of a column's partial sums is lane q mod 8 of
+/// register q / 8, so the sums are those of the other paths with FMA.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx2,fma")]
 unsafe fn dots_avx512(z: &[f64], cols: &[f64], out: &mut [f64]) {
     let n = z.len();
-    let mut k = 0;
-    while k < out.len() {
-        let c = &cols[k * n..];
-        match out.len() - k {
-            1 => {
-                let [a] = avx512::group::<1, 2>(z, c);
-                out[k] = a;
-                k += 1;
-            }
-            2 | 3 => {
-                let [a, b] = avx512::group::<2, 2>(z, c);
-                out[k] = a;
-                out[k + 1] = b;
-                k += 2;
-            }
-            _ => {
-                let r = avx512::group::<4, 1>(z, c);
-                out[k..k + 4].copy_from_slice(&r);
-                k += 4;
-            }
+    for (k0, o) in (0..).step_by(2).zip(out.chunks_mut(2)) {
+        match o {
+            [a] => [*a] = avx512::group::<1>(z, &cols[k0 * n..]),
+            [a, b] => [*a, *b] = avx512::group::<2>(z, &cols[k0 * n..]),
+            _ => unreachable!("chunks of at most two"),
         }
     }
 }
@@ -227,21 +212,23 @@ mod avx512 {
         __m512d, _mm512_fmadd_pd, _mm512_loadu_pd, _mm512_setzero_pd, _mm512_storeu_pd,
     };
 
-    /// M dot products of `z` with the columns `cols[k·n..(k+1)·n]`, R registers (8·R
-    /// lanes) of partial sums each, then the tail into lane 0 and the pairwise lane sum.
+    use super::LANES;
+
+    /// M dot products of `z` with the columns `cols[k·n..(k+1)·n]`, two registers
+    /// ([`LANES`] lanes) of partial sums each, then the tail into lane 0 and the pairwise
+    /// lane sum.
     #[inline]
     #[target_feature(enable = "avx512f,avx2,fma")]
-    pub(super) fn group<const M: usize, const R: usize>(z: &[f64], cols: &[f64]) -> [f64; M] {
+    pub(super) fn group<const M: usize>(z: &[f64], cols: &[f64]) -> [f64; M] {
         let n = z.len();
-        let step = 8 * R;
-        let body = n - n % step;
+        let body = n - n % LANES;
         assert!(cols.len() >= M * n, "dots: shape mismatch");
-        let mut acc: [[__m512d; R]; M] = [[_mm512_setzero_pd(); R]; M];
+        let mut acc: [[__m512d; 2]; M] = [[_mm512_setzero_pd(); 2]; M];
         let zp = z.as_ptr();
         let cp = cols.as_ptr();
         let mut j0 = 0;
         while j0 < body {
-            for r in 0..R {
+            for r in 0..2 {
                 // SAFETY: j0 + 8·r + 8 ≤ body ≤ n, and column k holds n entries from k·n.
                 unsafe {
                     let zv = _mm512_loadu_pd(zp.add(j0 + 8 * r));
@@ -251,24 +238,19 @@ mod avx512 {
                     }
                 }
             }
-            j0 += step;
+            j0 += LANES;
         }
         let mut out = [0.0; M];
         for (k, a) in acc.iter().enumerate() {
-            let mut lanes = [0.0f64; 16];
+            let mut lanes = [0.0f64; LANES];
             for (r, v) in a.iter().enumerate() {
-                // SAFETY: 8·r + 8 ≤ 8·R ≤ 16 entries of `lanes`.
+                // SAFETY: 8·r + 8 ≤ 16 = LANES entries of `lanes`.
                 unsafe { _mm512_storeu_pd(lanes.as_mut_ptr().add(8 * r), *v) };
             }
             for j in body..n {
                 lanes[0] = z[j].mul_add(cols[k * n + j], lanes[0]);
             }
-            out[k] = match R {
-                1 => super::lane_sum(<&mut [f64; 8]>::try_from(&mut lanes[..8]).expect("8 lanes")),
-                _ => {
-                    super::lane_sum(<&mut [f64; 16]>::try_from(&mut lanes[..16]).expect("16 lanes"))
-                }
-            };
+            out[k] = super::lane_sum(&mut lanes);
         }
         out
     }
@@ -286,47 +268,36 @@ unsafe fn add_scaled_avx512(z: &[f64], b: &[f64], g: &mut [f64]) {
     add_scaled_any::<Fused>(z, b, g);
 }
 
-/// Splits the columns into groups the registers hold (two at a time keeps 2·L partial
-/// sums live; the sketch's eight go four at a time).
+/// Lanes of partial sums per column in [`dots`].
+const LANES: usize = 16;
+
+/// Takes the columns two at a time (2·[`LANES`] partial sums live in registers), the last
+/// alone when their number is odd.
 #[inline(always)]
-fn dots_any<F: Madd, const L: usize>(z: &[f64], cols: &[f64], out: &mut [f64]) {
+fn dots_any<F: Madd>(z: &[f64], cols: &[f64], out: &mut [f64]) {
     let n = z.len();
-    let mut k = 0;
-    while k < out.len() {
-        match out.len() - k {
-            1 => {
-                let [a] = dots_group::<F, 1, L>(z, &cols[k * n..]);
-                out[k] = a;
-                k += 1;
-            }
-            2 | 3 => {
-                let [a, b] = dots_group::<F, 2, L>(z, &cols[k * n..]);
-                out[k] = a;
-                out[k + 1] = b;
-                k += 2;
-            }
-            _ => {
-                let r = dots_group::<F, 4, 8>(z, &cols[k * n..]);
-                out[k..k + 4].copy_from_slice(&r);
-                k += 4;
-            }
+    for (k0, o) in (0..).step_by(2).zip(out.chunks_mut(2)) {
+        match o {
+            [a] => [*a] = dots_group::<F, 1>(z, &cols[k0 * n..]),
+            [a, b] => [*a, *b] = dots_group::<F, 2>(z, &cols[k0 * n..]),
+            _ => unreachable!("chunks of at most two"),
         }
     }
 }
 
-/// M dot products of `z` with the columns `cols[k·n..(k+1)·n]`, `LL` lanes each.
+/// M dot products of `z` with the columns `cols[k·n..(k+1)·n]`, [`LANES`] lanes each.
 #[inline(always)]
-fn dots_group<F: Madd, const M: usize, const LL: usize>(z: &[f64], cols: &[f64]) -> [f64; M] {
+fn dots_group<F: Madd, const M: usize>(z: &[f64], cols: &[f64]) -> [f64; M] {
     let n = z.len();
-    let body = n - n % LL;
-    let mut acc = [[0.0f64; LL]; M];
-    for j0 in (0..body).step_by(LL) {
-        let zc: &[f64; LL] = z[j0..j0 + LL].try_into().expect("lane block");
+    let body = n - n % LANES;
+    let mut acc = [[0.0f64; LANES]; M];
+    for j0 in (0..body).step_by(LANES) {
+        let zc: &[f64; LANES] = z[j0..j0 + LANES].try_into().expect("lane block");
         for (k, a) in acc.iter_mut().enumerate() {
-            let c: &[f64; LL] = cols[k * n + j0..k * n + j0 + LL]
+            let c: &[f64; LANES] = cols[k * n + j0..k * n + j0 + LANES]
                 .try_into()
                 .expect("lane block");
-            for q in 0..LL {
+            for q in 0..LANES {
                 a[q] = F::madd(zc[q], c[q], a[q]);
             }
         }
@@ -343,7 +314,7 @@ fn dots_group<F: Madd, const M: usize, const LL: usize>(z: &[f64], cols: &[f64])
 
 /// Sum of the lanes in a fixed pairwise tree.
 #[inline(always)]
-fn lane_sum<const LL: usize>(a: &mut [f64; LL]) -> f64 {
+fn lane_sum<T: Copy + std::ops::AddAssign, const LL: usize>(a: &mut [T; LL]) -> T {
     let mut width = LL;
     while width > 1 {
         width /= 2;
@@ -440,7 +411,7 @@ unsafe fn dots32_avx512(z: &[f32], cols: &[f32], out: &mut [f64]) {
             for j in body..n {
                 lanes[0] = z[j].mul_add(cols[(k0 + q) * n + j], lanes[0]);
             }
-            o[q] = f64::from(lane_sum32(&mut lanes));
+            o[q] = f64::from(lane_sum(&mut lanes));
         }
     }
 }
@@ -472,21 +443,8 @@ fn dots32_any<const FMA: bool>(z: &[f32], cols: &[f32], out: &mut [f64]) {
                 z[j] * c[j] + lanes[0]
             };
         }
-        *o = f64::from(lane_sum32(&mut lanes));
+        *o = f64::from(lane_sum(&mut lanes));
     }
-}
-
-/// Sum of 16 f32 lanes in a fixed pairwise tree.
-#[inline(always)]
-fn lane_sum32(a: &mut [f32; 16]) -> f32 {
-    let mut width = 16;
-    while width > 1 {
-        width /= 2;
-        for q in 0..width {
-            a[q] += a[q + width];
-        }
-    }
-    a[0]
 }
 
 #[cfg(test)]
