@@ -400,9 +400,10 @@ fn tiny_cache_gives_the_same_solution() {
 }
 
 #[test]
-fn one_and_two_threads_are_bit_identical() {
+fn one_two_and_three_threads_are_bit_identical() {
     // common practice (project rule): results do not depend on the thread count. The
-    // size exceeds the threshold above which kernel rows are computed in parallel.
+    // size exceeds the thresholds above which kernel rows and the scans over the active
+    // rows are split over threads (in two or three parts here).
     let (x, y) = friedman1(4500, 13);
     let k = Kernel::gaussian(0.5).unwrap();
     let settings = SmoSettings {
@@ -423,10 +424,16 @@ fn one_and_two_threads_are_bit_identical() {
         })
     };
     let (a, pa) = run(1);
-    let (b, pb) = run(2);
-    assert_eq!(a.dual_coef, b.dual_coef);
-    assert_eq!(a.model.bias.to_bits(), b.model.bias.to_bits());
-    assert_eq!(pa, pb);
+    for threads in [2, 3] {
+        let (b, pb) = run(threads);
+        assert_eq!(
+            a.report.iterations, b.report.iterations,
+            "{threads} threads"
+        );
+        assert_eq!(a.dual_coef, b.dual_coef, "{threads} threads");
+        assert_eq!(a.model.bias.to_bits(), b.model.bias.to_bits());
+        assert_eq!(pa, pb, "{threads} threads");
+    }
 }
 
 #[test]

@@ -12,6 +12,7 @@
 use std::time::Instant;
 
 use super::rows::Tiles;
+use super::team::Crew;
 use crate::kernel::{Kernel, KernelKind};
 
 /// Marks an empty link or an uncached row.
@@ -255,7 +256,7 @@ impl RowCache {
     /// if needed. The returned slot stays valid until the next call that must evict (the
     /// least recently used row goes first, so with room for two rows the previous call's
     /// slot survives one more call).
-    pub fn fetch(&mut self, r: usize, src: &RowSource, active: &ActiveRows) -> usize {
+    pub fn fetch(&mut self, r: usize, src: &RowSource, active: &ActiveRows, crew: &Crew) -> usize {
         let s = self.slot_of[r];
         if s != NONE {
             let su = s as usize;
@@ -271,7 +272,7 @@ impl RowCache {
             if same_epoch {
                 self.filter(su, l.version as usize, active);
             } else {
-                self.compute(su, r, src, active);
+                self.compute(su, r, src, active, crew);
             }
             return su;
         }
@@ -299,7 +300,7 @@ impl RowCache {
         self.owner[su] = r;
         self.slot_of[r] = su as u32;
         self.push_front(su as u32);
-        self.compute(su, r, src, active);
+        self.compute(su, r, src, active, crew);
         su
     }
 
@@ -325,7 +326,7 @@ impl RowCache {
         self.acquire(su, false);
     }
 
-    fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &ActiveRows) {
+    fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &ActiveRows, crew: &Crew) {
         let t0 = Instant::now();
         let m = active.idx.len();
         let all = m == self.n;
@@ -334,9 +335,9 @@ impl RowCache {
         out.resize(m, 0.0);
         let xr = src.row(r);
         if all {
-            src.tiles.row_into(&src.kernel, xr, out);
+            src.tiles.row_into(crew, &src.kernel, xr, out);
         } else {
-            active.tiles.row_into(&src.kernel, xr, out);
+            active.tiles.row_into(crew, &src.kernel, xr, out);
         }
         self.evaluations += m as u64;
         self.acquire(su, all);

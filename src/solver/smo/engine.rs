@@ -17,8 +17,8 @@
 use super::cache::{ActiveRows, RowCache, RowSource};
 use super::rows::{Tiles, TILE};
 use super::scan::{self, Extremes, View, NONE};
+use super::team::Crew;
 use super::Selection;
-use rayon::prelude::*;
 use std::time::Instant;
 
 /// Curvature used when `K_ii + K_jj − 2K_ij ≤ 0` (duplicated rows), as in Fan, Chen &
@@ -142,14 +142,14 @@ impl<'a> Engine<'a> {
     }
 
     /// `m(α)`, `M(α)` and the variables reaching them, over the active rows.
-    fn extremes(&mut self) -> Extremes {
+    fn extremes(&mut self, crew: &Crew) -> Extremes {
         let view = View {
             ap: &self.act.ap,
             am: &self.act.am,
             c: self.c,
             eps: self.eps,
         };
-        scan::extremes::<false>(&mut self.act.g, view.ap, view.ap, 0.0, 0.0, &view)
+        scan::extremes::<false>(crew, &mut self.act.g, view.ap, view.ap, 0.0, 0.0, &view)
     }
 
     /// Writes the active rows' state back to the per-row vectors.
@@ -164,7 +164,7 @@ impl<'a> Engine<'a> {
     /// Moves the pair `(i, j)` to the minimum of the objective on their segment and
     /// returns the extremes of the new point (found in the same pass as the gradient
     /// update).
-    fn step(&mut self, i: Var, j: Var, si: usize) -> Extremes {
+    fn step(&mut self, i: Var, j: Var, si: usize, crew: &Crew) -> Extremes {
         let (pi, pj) = (i.pos, j.pos);
         let (ri, rj) = (self.active.idx[pi], self.active.idx[pj]);
         let c = self.c;
@@ -208,11 +208,11 @@ impl<'a> Engine<'a> {
         self.beta[ri] += db_i;
         if ri == rj {
             // α⁺ and α⁻ of one row fell together; β and hence g are unchanged.
-            return self.extremes();
+            return self.extremes(crew);
         }
         let db_j = beta_j - self.beta[rj];
         self.beta[rj] += db_j;
-        let sj = self.cache.fetch(rj, &self.src, &self.active);
+        let sj = self.cache.fetch(rj, &self.src, &self.active, crew);
         let (ki, kj) = (self.cache.row(si), self.cache.row(sj));
         let view = View {
             ap: &self.act.ap,
@@ -220,12 +220,12 @@ impl<'a> Engine<'a> {
             c: self.c,
             eps: self.eps,
         };
-        scan::extremes::<true>(&mut self.act.g, ki, kj, db_i, db_j, &view)
+        scan::extremes::<true>(crew, &mut self.act.g, ki, kj, db_i, db_j, &view)
     }
 
     /// Recomputes `g` on the inactive rows from the support vectors and makes every row
     /// active again.
-    pub fn reconstruct(&mut self) {
+    pub fn reconstruct(&mut self, crew: &Crew) {
         self.sync();
         if self.all_active() {
             return;
@@ -240,20 +240,19 @@ impl<'a> Engine<'a> {
         let (src, y) = (&self.src, self.y);
         // Blocks of inactive rows in parallel, one kernel-row buffer per block; each
         // row's sum runs over the support vectors in increasing order.
-        fresh
-            .par_chunks_mut(TILE / 8)
-            .zip(inactive.par_chunks(TILE / 8))
-            .for_each(|(outs, rows)| {
-                let mut k = vec![0.0; sv.len()];
-                for (o, &r) in outs.iter_mut().zip(rows) {
-                    sv_tiles.row_into_seq(&src.kernel, src.row(r), &mut k);
-                    let mut acc = -y[r];
-                    for (b, kv) in sv_beta.iter().zip(&k) {
-                        acc += b * kv;
-                    }
-                    *o = acc;
+        const SPAN: usize = TILE / 8;
+        crew.chunks_mut(&mut fresh, SPAN, |t, outs| {
+            let rows = &inactive[t * SPAN..];
+            let mut k = vec![0.0; sv.len()];
+            for (o, &r) in outs.iter_mut().zip(rows) {
+                sv_tiles.row_into_seq(&src.kernel, src.row(r), &mut k);
+                let mut acc = -y[r];
+                for (b, kv) in sv_beta.iter().zip(&k) {
+                    acc += b * kv;
                 }
-            });
+                *o = acc;
+            }
+        });
         for (&r, v) in inactive.iter().zip(fresh) {
             self.g[r] = v;
         }
@@ -326,6 +325,7 @@ impl<'a> Engine<'a> {
     /// Iterates until `m − M ≤ tol` on all rows or `max_iterations` steps.
     pub fn run(
         &mut self,
+        crew: &Crew,
         tol: f64,
         max_iterations: u64,
         shrinking: bool,
@@ -341,17 +341,17 @@ impl<'a> Engine<'a> {
             if shrinking && countdown == 0 {
                 countdown = shrink_every;
                 next = None;
-                let e = self.extremes();
+                let e = self.extremes(crew);
                 if !unshrunk && e.m - e.big_m <= 10.0 * tol {
                     unshrunk = true;
-                    self.reconstruct();
+                    self.reconstruct(crew);
                 }
-                let e = self.extremes();
+                let e = self.extremes(crew);
                 self.shrink(e.m, e.big_m);
             }
             let e = match next.take() {
                 Some(e) => e,
-                None => self.extremes(),
+                None => self.extremes(crew),
             };
             let (i, first_j) = match (Var::from_code(e.i), Var::from_code(e.j)) {
                 (Some(i), Some(j)) if e.m - e.big_m > tol => (i, j),
@@ -360,7 +360,7 @@ impl<'a> Engine<'a> {
                         break true;
                     }
                     // Check again on every row, without shrinking first.
-                    self.reconstruct();
+                    self.reconstruct(crew);
                     countdown = shrink_every;
                     continue;
                 }
@@ -370,11 +370,12 @@ impl<'a> Engine<'a> {
             }
             let si = self
                 .cache
-                .fetch(self.active.idx[i.pos], &self.src, &self.active);
+                .fetch(self.active.idx[i.pos], &self.src, &self.active, crew);
             let j = match selection {
                 Selection::FirstOrder => first_j,
                 Selection::SecondOrder => {
                     let code = scan::wss2(
+                        crew,
                         &self.act.g,
                         &self.act.diag,
                         self.cache.row(si),
@@ -386,11 +387,11 @@ impl<'a> Engine<'a> {
                     Var::from_code(code).unwrap_or(first_j)
                 }
             };
-            next = Some(self.step(i, j, si));
+            next = Some(self.step(i, j, si, crew));
             iterations += 1;
             countdown = countdown.saturating_sub(1);
         };
-        self.reconstruct();
+        self.reconstruct(crew);
         Outcome {
             iterations,
             converged,
@@ -399,8 +400,8 @@ impl<'a> Engine<'a> {
 
     /// `m(α) − M(α)` over all rows (call after [`Engine::reconstruct`]); zero when no
     /// pair of variables can move.
-    pub fn gap_and_bias(&mut self) -> (f64, f64) {
-        let e = self.extremes();
+    pub fn gap_and_bias(&mut self, crew: &Crew) -> (f64, f64) {
+        let e = self.extremes(crew);
         let gap = if e.i != NONE && e.j != NONE {
             (e.m - e.big_m).max(0.0)
         } else {

@@ -30,6 +30,7 @@ mod cache;
 mod engine;
 mod rows;
 mod scan;
+mod team;
 
 use std::time::Instant;
 
@@ -42,6 +43,7 @@ use crate::kernel::Kernel;
 use cache::{RowCache, RowSource};
 use engine::Engine;
 use rows::{Tiles, TILE};
+use team::with_crew;
 
 /// How SMO chooses the pair of variables to move.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -269,18 +271,18 @@ pub fn fit(
     let src = RowSource::new(kernel, xs, d, n);
     let cache_rows = RowCache::rows_in_budget(settings.cache_bytes, n);
     let mut engine = Engine::new(src, &ys, settings.c, settings.epsilon, cache_rows);
-    // The sequential loop runs on a worker of the current rayon pool, so that the
-    // parallel kernel rows are split with the calling thread taking part, instead of
-    // this thread blocking until pool threads are scheduled for every row.
-    let outcome = rayon::scope(|_| {
-        engine.run(
+    // Kernel rows, gradient rebuilds and the long scans are split over a crew of as many
+    // threads as the current rayon pool has, kept awake for the whole fit (`team.rs`).
+    let (outcome, (final_gap, bias)) = with_crew(|crew| {
+        let outcome = engine.run(
+            crew,
             settings.tol,
             settings.max_iterations,
             settings.shrinking,
             settings.selection,
-        )
+        );
+        (outcome, engine.gap_and_bias(crew))
     });
-    let (final_gap, bias) = engine.gap_and_bias();
     let objective = engine.objective();
 
     let support_rows: Vec<usize> = (0..n).filter(|&r| engine.beta[r] != 0.0).collect();

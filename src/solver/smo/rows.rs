@@ -14,11 +14,10 @@
 //! operations in the same order as [`Kernel::eval`], so every value equals it bit for bit,
 //! whatever the kernel (the Matérn forms take `√r²`, for which the product form
 //! `‖x‖² + ‖y‖² − 2x·y` would turn rounding into visible error for nearly equal rows).
-//! Each entry depends only on its own row, so splitting tiles across threads does not
-//! change any result.
+//! Each entry depends only on its own row, so splitting a row over the threads of the
+//! crew (`team.rs`) does not change any result.
 
-use rayon::prelude::*;
-
+use super::team::Crew;
 use crate::kernel::{Kernel, KernelKind};
 
 /// Rows per tile (a multiple of [`LANES`]).
@@ -26,10 +25,15 @@ pub(super) const TILE: usize = 256;
 /// Entries computed together in registers.
 const LANES: usize = 16;
 /// Work (row length × (inputs + 8), the 8 standing for the kernel function's cost per
-/// entry) below which a kernel row is computed on the calling thread: handing half a row
-/// to the other thread costs a few microseconds, worth it only above this. 2,048 entries
-/// at 8 inputs; about 1,200 at 20.
-const PARALLEL_WORK: usize = 2048 * 16;
+/// entry) below which a kernel row is computed on the calling thread alone: a hand-off
+/// to the crew costs about as much as a few dozen entries.
+const PARALLEL_WORK: usize = 256 * 16;
+/// Rows per task when a kernel row is split over the crew: parts of a tile that start on
+/// a multiple of [`LANES`].
+const SPANS: [usize; 3] = [TILE / 4, TILE / 2, TILE];
+/// Tasks per thread aimed at when splitting a kernel row (some slack for a thread that
+/// starts late).
+const TASKS_PER_THREAD: usize = 4;
 
 /// A set of rows stored in tiles, feature-major within each tile; padding rows are zero.
 pub(super) struct Tiles {
@@ -70,22 +74,26 @@ impl Tiles {
         }
     }
 
-    /// `out[s] = k(xr, row s)` for every row held (`out.len() == self.len()`), in
-    /// parallel over tiles when the row is long.
+    /// `out[s] = k(xr, row s)` for every row held (`out.len() == self.len()`), split
+    /// over the crew in parts of 64 to 256 rows when the row is long enough to pay for
+    /// the hand-off.
     ///
     /// # Panics
     /// If `out` or `xr` has the wrong length.
-    pub fn row_into(&self, kernel: &Kernel, xr: &[f64], out: &mut [f64]) {
+    pub fn row_into(&self, crew: &Crew, kernel: &Kernel, xr: &[f64], out: &mut [f64]) {
+        let threads = crew.threads();
+        if threads == 1 || self.len * (self.d + 8) < PARALLEL_WORK {
+            return self.row_into_seq(kernel, xr, out);
+        }
         assert_eq!(out.len(), self.len, "kernel row: output length");
         assert_eq!(xr.len(), self.d, "kernel row: input length");
+        let want = self.len.div_ceil(TASKS_PER_THREAD * threads);
+        let span = SPANS.into_iter().find(|&s| s >= want).unwrap_or(TILE);
         let step = self.d * TILE;
-        if self.len * (self.d + 8) >= PARALLEL_WORK {
-            out.par_chunks_mut(TILE)
-                .zip(self.data.par_chunks(step))
-                .for_each(|(o, t)| tile_row(kernel, xr, t, o));
-        } else {
-            self.row_into_seq(kernel, xr, out);
-        }
+        crew.chunks_mut(out, span, |k, o| {
+            let (t, j0) = ((k * span) / TILE, (k * span) % TILE);
+            tile_row(kernel, xr, &self.data[t * step..(t + 1) * step], j0, o);
+        });
     }
 
     /// Single-threaded form of [`Tiles::row_into`], for callers already running in
@@ -94,26 +102,26 @@ impl Tiles {
         assert_eq!(out.len(), self.len, "kernel row: output length");
         assert_eq!(xr.len(), self.d, "kernel row: input length");
         for (o, t) in out.chunks_mut(TILE).zip(self.data.chunks(self.d * TILE)) {
-            tile_row(kernel, xr, t, o);
+            tile_row(kernel, xr, t, 0, o);
         }
     }
 }
 
-/// Distances from `xr` to the rows of one tile, then the kernel on them, into `out`
-/// (the tile's first `out.len()` rows).
+/// Distances from `xr` to the rows `j0..j0 + out.len()` of one tile, then the kernel on
+/// them, into `out`.
 #[inline]
-fn tile_row(kernel: &Kernel, xr: &[f64], tile: &[f64], out: &mut [f64]) {
+fn tile_row(kernel: &Kernel, xr: &[f64], tile: &[f64], j0: usize, out: &mut [f64]) {
     let l1 = kernel.kind == KernelKind::Laplacian;
     #[cfg(target_arch = "x86_64")]
     {
         if is_x86_feature_detected!("avx2") {
             // SAFETY: the CPU reports AVX2.
-            unsafe { distances_avx2(l1, xr, tile, out) };
+            unsafe { distances_avx2(l1, xr, tile, j0, out) };
             apply(kernel, out);
             return;
         }
     }
-    distances(l1, xr, tile, out);
+    distances(l1, xr, tile, j0, out);
     apply(kernel, out);
 }
 
@@ -121,27 +129,28 @@ fn tile_row(kernel: &Kernel, xr: &[f64], tile: &[f64], out: &mut [f64]) {
 /// operations, and so the results, are exactly those of the generic build.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-unsafe fn distances_avx2(l1: bool, xr: &[f64], tile: &[f64], out: &mut [f64]) {
-    distances(l1, xr, tile, out);
+unsafe fn distances_avx2(l1: bool, xr: &[f64], tile: &[f64], j0: usize, out: &mut [f64]) {
+    distances(l1, xr, tile, j0, out);
 }
 
-/// `out[j] = Σ_k (xr_k − tile[k·TILE + j])²` (or `|·|` when `l1`), summed in the order
-/// k = 0, 1, …, d−1, [`LANES`] entries at a time in registers.
+/// `out[j] = Σ_k (xr_k − tile[k·TILE + j0 + j])²` (or `|·|` when `l1`), summed in the
+/// order k = 0, 1, …, d−1, [`LANES`] entries at a time in registers (`j0` is a multiple
+/// of [`LANES`]; the tile's padding rows make every group whole).
 #[inline(always)]
-fn distances(l1: bool, xr: &[f64], tile: &[f64], out: &mut [f64]) {
+fn distances(l1: bool, xr: &[f64], tile: &[f64], j0: usize, out: &mut [f64]) {
     for (g, o) in out.chunks_mut(LANES).enumerate() {
-        let j0 = g * LANES;
+        let j = j0 + g * LANES;
         let mut acc = [0.0f64; LANES];
         if l1 {
             for (k, &a) in xr.iter().enumerate() {
-                let c = &tile[k * TILE + j0..k * TILE + j0 + LANES];
+                let c = &tile[k * TILE + j..k * TILE + j + LANES];
                 for q in 0..LANES {
                     acc[q] += (a - c[q]).abs();
                 }
             }
         } else {
             for (k, &a) in xr.iter().enumerate() {
-                let c = &tile[k * TILE + j0..k * TILE + j0 + LANES];
+                let c = &tile[k * TILE + j..k * TILE + j + LANES];
                 for q in 0..LANES {
                     let t = a - c[q];
                     acc[q] += t * t;
@@ -166,30 +175,46 @@ fn apply(kernel: &Kernel, v: &mut [f64]) {
 
 #[cfg(test)]
 mod tests {
+    use super::super::team::with_crew;
     use super::*;
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
 
-    /// Every entry equals `Kernel::eval` exactly, for every family, on a subset of rows
-    /// that spans several tiles and ends in a partial one (reference: the definition in
-    /// `kernel.rs`, common practice for a re-arranged computation).
+    /// Every entry equals `Kernel::eval` exactly, for every family, on subsets of rows
+    /// that span several tiles and end in a partial one, whether the row is computed by
+    /// one thread or split over crews of two and three in parts of 64, 128 or 256 rows
+    /// (reference: the definition in `kernel.rs`, common practice for a re-arranged
+    /// computation).
     #[test]
     fn tiled_rows_equal_the_kernel_definition() {
-        let (n, d) = (2 * TILE + 37, 7);
-        let mut rng = ChaCha8Rng::seed_from_u64(11);
-        let x: Vec<f64> = (0..n * d).map(|_| rng.random_range(-2.0..2.0)).collect();
-        let idx: Vec<usize> = (0..n).filter(|r| r % 3 != 1).collect();
-        for kind in KernelKind::ALL {
-            let kernel = Kernel::new(kind, 0.3).unwrap();
+        let d = 7;
+        for n in [2 * TILE + 37, 8 * TILE + 37] {
+            let mut rng = ChaCha8Rng::seed_from_u64(11);
+            let x: Vec<f64> = (0..n * d).map(|_| rng.random_range(-2.0..2.0)).collect();
+            let idx: Vec<usize> = (0..n).filter(|r| r % 3 != 1).collect();
             let mut tiles = Tiles::new(d);
             tiles.gather(&x, idx.iter().copied());
             assert_eq!(tiles.len(), idx.len());
-            let r = 5;
-            let xr = &x[r * d..(r + 1) * d];
-            let mut out = vec![0.0; idx.len()];
-            tiles.row_into(&kernel, xr, &mut out);
-            for (s, &c) in idx.iter().enumerate() {
-                assert_eq!(out[s], kernel.eval(xr, &x[c * d..(c + 1) * d]), "{kind:?}");
+            for threads in [1, 2, 3] {
+                let pool = rayon::ThreadPoolBuilder::new()
+                    .num_threads(threads)
+                    .build()
+                    .unwrap();
+                pool.install(|| {
+                    with_crew(|crew| {
+                        for kind in KernelKind::ALL {
+                            let kernel = Kernel::new(kind, 0.3).unwrap();
+                            let r = 5;
+                            let xr = &x[r * d..(r + 1) * d];
+                            let mut out = vec![0.0; idx.len()];
+                            tiles.row_into(crew, &kernel, xr, &mut out);
+                            for (s, &c) in idx.iter().enumerate() {
+                                let want = kernel.eval(xr, &x[c * d..(c + 1) * d]);
+                                assert_eq!(out[s], want, "{kind:?}, {threads} threads");
+                            }
+                        }
+                    })
+                });
             }
         }
     }

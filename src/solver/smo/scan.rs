@@ -16,9 +16,19 @@
 //! the up-movable `α⁻` beats `α⁺` exactly when `v⁻ > v⁺`, the down-movable `α⁺` always
 //! beats `α⁻`, and in WSS2 `α⁺` (whose gap `b` is the larger) always beats `α⁻`. A
 //! candidate is coded `2·position + 1` for `α⁻`, `2·position` for `α⁺`.
+//!
+//! A long pass is split over the crew (`team.rs`) in parts of whole lane groups; the
+//! parts' results are merged by the same rule (best value, then smallest code), so the
+//! choice is again that of one sequential scan, and the gradient update is the same
+//! element-wise operation wherever it runs.
+
+use super::team::Crew;
 
 /// Positions handled together.
 const LANES: usize = 8;
+/// Fewest positions a thread takes of a pass split over the crew: a hand-off costs
+/// about as much as scanning a few hundred positions.
+const MIN_PART: usize = 1024;
 /// Code of "no candidate".
 pub(super) const NONE: u64 = u64::MAX;
 
@@ -45,6 +55,18 @@ pub(super) struct View<'s> {
     pub c: f64,
     /// The tube half-width ε.
     pub eps: f64,
+}
+
+impl View<'_> {
+    /// The state of the positions `r`.
+    fn part(&self, r: std::ops::Range<usize>) -> View<'_> {
+        View {
+            ap: &self.ap[r.clone()],
+            am: &self.am[r],
+            c: self.c,
+            eps: self.eps,
+        }
+    }
 }
 
 /// Lane-wise best values and codes (maximum when `MAX`, else minimum).
@@ -125,6 +147,7 @@ fn extremes_generic<const UPDATE: bool>(
     di: f64,
     dj: f64,
     s: &View,
+    offset: usize,
 ) -> Extremes {
     let n = g.len();
     assert!(
@@ -146,7 +169,7 @@ fn extremes_generic<const UPDATE: bool>(
         let amc: &[f64; LANES] = amc.try_into().expect("chunk");
         let kic: &[f64; LANES] = kic.try_into().expect("chunk");
         let kjc: &[f64; LANES] = kjc.try_into().expect("chunk");
-        let base = (b * LANES) as u64;
+        let base = (offset + b * LANES) as u64;
         for q in 0..LANES {
             if UPDATE {
                 gc[q] += di * kic[q] + dj * kjc[q];
@@ -160,7 +183,7 @@ fn extremes_generic<const UPDATE: bool>(
         if UPDATE {
             g[p] += di * ki[p] + dj * kj[p];
         }
-        let (uv, uc, dv, dc) = candidates(p as u64, g[p], s.ap[p], s.am[p], c, eps);
+        let (uv, uc, dv, dc) = candidates((offset + p) as u64, g[p], s.ap[p], s.am[p], c, eps);
         up.offer(0, uv, uc);
         down.offer(0, dv, dc);
     }
@@ -201,7 +224,17 @@ fn wss2_row(
 /// the one minimising `−(m − v_t)² / a_t`, with `a_t = K_ii + K_tt − 2K_it` (or `tau`
 /// when not positive).
 #[inline(always)]
-fn wss2_generic(g: &[f64], diag: &[f64], ki: &[f64], kii: f64, m: f64, tau: f64, s: &View) -> u64 {
+#[allow(clippy::too_many_arguments)]
+fn wss2_generic(
+    g: &[f64],
+    diag: &[f64],
+    ki: &[f64],
+    kii: f64,
+    m: f64,
+    tau: f64,
+    s: &View,
+    offset: usize,
+) -> (f64, u64) {
     let n = g.len();
     assert!(
         s.ap.len() == n && s.am.len() == n && diag.len() == n && ki.len() == n,
@@ -221,7 +254,7 @@ fn wss2_generic(g: &[f64], diag: &[f64], ki: &[f64], kii: f64, m: f64, tau: f64,
         let amc: &[f64; LANES] = amc.try_into().expect("chunk");
         let dc: &[f64; LANES] = dc.try_into().expect("chunk");
         let kc: &[f64; LANES] = kc.try_into().expect("chunk");
-        let base = (b * LANES) as u64;
+        let base = (offset + b * LANES) as u64;
         for q in 0..LANES {
             let (o, code) = wss2_row(
                 base + q as u64,
@@ -241,11 +274,21 @@ fn wss2_generic(g: &[f64], diag: &[f64], ki: &[f64], kii: f64, m: f64, tau: f64,
     }
     for p in full..n {
         let (o, code) = wss2_row(
-            p as u64, g[p], s.ap[p], s.am[p], diag[p], ki[p], kii, m, tau, c, eps,
+            (offset + p) as u64,
+            g[p],
+            s.ap[p],
+            s.am[p],
+            diag[p],
+            ki[p],
+            kii,
+            m,
+            tau,
+            c,
+            eps,
         );
         best.offer(0, o, code);
     }
-    best.merge().1
+    best.merge()
 }
 
 #[cfg(target_arch = "x86_64")]
@@ -257,12 +300,14 @@ unsafe fn extremes_avx2<const UPDATE: bool>(
     di: f64,
     dj: f64,
     s: &View,
+    offset: usize,
 ) -> Extremes {
-    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s)
+    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s, offset)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
+#[allow(clippy::too_many_arguments)]
 unsafe fn wss2_avx2(
     g: &[f64],
     diag: &[f64],
@@ -271,15 +316,82 @@ unsafe fn wss2_avx2(
     m: f64,
     tau: f64,
     s: &View,
-) -> u64 {
-    wss2_generic(g, diag, ki, kii, m, tau, s)
+    offset: usize,
+) -> (f64, u64) {
+    wss2_generic(g, diag, ki, kii, m, tau, s, offset)
+}
+
+/// [`extremes`] on one part of the active rows, the first at position `offset`.
+fn extremes_part<const UPDATE: bool>(
+    g: &mut [f64],
+    ki: &[f64],
+    kj: &[f64],
+    di: f64,
+    dj: f64,
+    s: &View,
+    offset: usize,
+) -> Extremes {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU reports AVX2.
+            return unsafe { extremes_avx2::<UPDATE>(g, ki, kj, di, dj, s, offset) };
+        }
+    }
+    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s, offset)
+}
+
+/// [`wss2`] on one part of the active rows, the first at position `offset`: the best
+/// objective and its code.
+#[allow(clippy::too_many_arguments)]
+fn wss2_part(
+    g: &[f64],
+    diag: &[f64],
+    ki: &[f64],
+    kii: f64,
+    m: f64,
+    tau: f64,
+    s: &View,
+    offset: usize,
+) -> (f64, u64) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU reports AVX2.
+            return unsafe { wss2_avx2(g, diag, ki, kii, m, tau, s, offset) };
+        }
+    }
+    wss2_generic(g, diag, ki, kii, m, tau, s, offset)
+}
+
+/// Parts a pass over `n` positions is split into on `crew`: one per thread, each of at
+/// least [`MIN_PART`] positions.
+fn parts(crew: &Crew, n: usize) -> usize {
+    crew.threads().min(n / MIN_PART).max(1)
+}
+
+/// Positions per part when `n` positions go into `parts` parts (whole lane groups).
+fn span(n: usize, parts: usize) -> usize {
+    n.div_ceil(parts).next_multiple_of(LANES).max(LANES)
+}
+
+/// The better of two part results: the best value, the smallest code among equal values
+/// (the order of one sequential scan).
+fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
+    let wins = if MAX { b.0 > a.0 } else { b.0 < a.0 };
+    if b.1 != NONE && (a.1 == NONE || wins || (b.0 == a.0 && b.1 < a.1)) {
+        b
+    } else {
+        a
+    }
 }
 
 /// `m(α)`, `M(α)` and their variables, after `g += di·ki + dj·kj` when `UPDATE`
-/// (`ki`, `kj` are not read otherwise). Compiled for AVX2 when the CPU has it (four f64
-/// a register instead of two); without FMA the operations, and so the results, are those
-/// of the generic build.
+/// (`ki`, `kj` are not read otherwise), split over the crew when long. Compiled for AVX2
+/// when the CPU has it (four f64 a register instead of two); without FMA the
+/// operations, and so the results, are those of the generic build.
 pub(super) fn extremes<const UPDATE: bool>(
+    crew: &Crew,
     g: &mut [f64],
     ki: &[f64],
     kj: &[f64],
@@ -287,19 +399,50 @@ pub(super) fn extremes<const UPDATE: bool>(
     dj: f64,
     s: &View,
 ) -> Extremes {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU reports AVX2.
-            return unsafe { extremes_avx2::<UPDATE>(g, ki, kj, di, dj, s) };
-        }
-    }
-    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s)
+    let parts = parts(crew, g.len());
+    extremes_split::<UPDATE>(crew, parts, g, ki, kj, di, dj, s)
 }
 
-/// The WSS2 choice of the second variable (its code, or [`NONE`]); dispatched like
-/// [`extremes`].
+/// [`extremes`] in `parts` parts of whole lane groups, the parts' results merged in the
+/// order of one sequential scan.
+#[allow(clippy::too_many_arguments)]
+fn extremes_split<const UPDATE: bool>(
+    crew: &Crew,
+    parts: usize,
+    g: &mut [f64],
+    ki: &[f64],
+    kj: &[f64],
+    di: f64,
+    dj: f64,
+    s: &View,
+) -> Extremes {
+    let n = g.len();
+    assert!(
+        s.ap.len() == n && s.am.len() == n && ki.len() == n && kj.len() == n,
+        "scan: lengths"
+    );
+    if parts <= 1 {
+        return extremes_part::<UPDATE>(g, ki, kj, di, dj, s, 0);
+    }
+    let span = span(n, parts);
+    let found = crew.chunks_mut(g, span, |k, gp| {
+        let r = k * span..k * span + gp.len();
+        let v = s.part(r.clone());
+        extremes_part::<UPDATE>(gp, &ki[r.clone()], &kj[r.clone()], di, dj, &v, r.start)
+    });
+    let mut e = found[0];
+    for f in &found[1..] {
+        (e.m, e.i) = better::<true>((e.m, e.i), (f.m, f.i));
+        (e.big_m, e.j) = better::<false>((e.big_m, e.j), (f.big_m, f.j));
+    }
+    e
+}
+
+/// The WSS2 choice of the second variable (its code, or [`NONE`]), split over the crew
+/// like [`extremes`].
+#[allow(clippy::too_many_arguments)]
 pub(super) fn wss2(
+    crew: &Crew,
     g: &[f64],
     diag: &[f64],
     ki: &[f64],
@@ -308,18 +451,55 @@ pub(super) fn wss2(
     tau: f64,
     s: &View,
 ) -> u64 {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU reports AVX2.
-            return unsafe { wss2_avx2(g, diag, ki, kii, m, tau, s) };
-        }
+    let parts = parts(crew, g.len());
+    wss2_split(crew, parts, g, diag, ki, kii, m, tau, s)
+}
+
+/// [`wss2`] in `parts` parts, merged like [`extremes_split`].
+#[allow(clippy::too_many_arguments)]
+fn wss2_split(
+    crew: &Crew,
+    parts: usize,
+    g: &[f64],
+    diag: &[f64],
+    ki: &[f64],
+    kii: f64,
+    m: f64,
+    tau: f64,
+    s: &View,
+) -> u64 {
+    let n = g.len();
+    assert!(
+        s.ap.len() == n && s.am.len() == n && diag.len() == n && ki.len() == n,
+        "wss2: lengths"
+    );
+    if parts <= 1 {
+        return wss2_part(g, diag, ki, kii, m, tau, s, 0).1;
     }
-    wss2_generic(g, diag, ki, kii, m, tau, s)
+    let span = span(n, parts);
+    let found = crew.map(n.div_ceil(span), |k| {
+        let r = k * span..((k + 1) * span).min(n);
+        let v = s.part(r.clone());
+        wss2_part(
+            &g[r.clone()],
+            &diag[r.clone()],
+            &ki[r.clone()],
+            kii,
+            m,
+            tau,
+            &v,
+            r.start,
+        )
+    });
+    found
+        .into_iter()
+        .reduce(better::<false>)
+        .map_or(NONE, |b| b.1)
 }
 
 #[cfg(test)]
 mod tests {
+    use super::super::team::with_crew;
     use super::*;
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
@@ -372,14 +552,26 @@ mod tests {
 
     /// Lane-wise passes choose exactly the variables of the sequential scans, and update
     /// the gradient exactly, on data full of ties (few distinct values, ε = 0 included,
-    /// lengths that end in a partial group of lanes). Reference: the definitions above
+    /// lengths that end in a partial group of lanes), whole or split in two or three
+    /// parts over crews of one to three threads. Reference: the definitions above
     /// (common practice for a re-arranged computation).
     #[test]
-    fn lanes_choose_as_the_sequential_scan() {
+    fn lanes_and_parts_choose_as_the_sequential_scan() {
+        for threads in [1, 2, 3] {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap()
+                .install(|| with_crew(compare_with_sequential));
+        }
+    }
+
+    fn compare_with_sequential(crew: &Crew) {
         let mut rng = ChaCha8Rng::seed_from_u64(5);
         let c = 2.0;
         for trial in 0..300 {
             let n = 1 + trial % 45;
+            let parts = 1 + trial % 3;
             let eps = if trial % 3 == 0 { 0.0 } else { 0.25 };
             let pick = |rng: &mut ChaCha8Rng| [0.0, 0.5, c][rng.random_range(0..3)];
             let g: Vec<f64> = (0..n)
@@ -401,14 +593,14 @@ mod tests {
                 eps,
             };
             let mut g1 = g.clone();
-            let e = extremes::<false>(&mut g1, &ap, &ap, 0.0, 0.0, &s);
+            let e = extremes_split::<false>(crew, parts, &mut g1, &ap, &ap, 0.0, 0.0, &s);
             let r = sequential(&g, &ap, &am, c, eps);
             assert_eq!(
                 (e.m, e.i, e.big_m, e.j),
                 (r.m, r.i, r.big_m, r.j),
                 "trial {trial}"
             );
-            let e = extremes::<true>(&mut g1, &ki, &kj, 0.5, -0.25, &s);
+            let e = extremes_split::<true>(crew, parts, &mut g1, &ki, &kj, 0.5, -0.25, &s);
             let g2: Vec<f64> = (0..n)
                 .map(|p| g[p] + (0.5 * ki[p] + -0.25 * kj[p]))
                 .collect();
@@ -421,7 +613,7 @@ mod tests {
             );
             if r.i != NONE {
                 let kii = 1.0;
-                let got = wss2(&g2, &diag, &ki, kii, r.m, 1e-12, &s);
+                let got = wss2_split(crew, parts, &g2, &diag, &ki, kii, r.m, 1e-12, &s);
                 assert_eq!(
                     got,
                     sequential_wss2(&g2, &s, &diag, &ki, kii, r.m),
