@@ -16,7 +16,7 @@
 
 use super::cache::{ActiveRows, RowCache, RowSource};
 use super::rows::{Tiles, TILE};
-use super::scan::{self, Extremes, View, NONE};
+use super::scan::{self, Extremes, Second, Update, View, NONE};
 use super::team::Crew;
 use super::Selection;
 use std::time::Instant;
@@ -149,7 +149,7 @@ impl<'a> Engine<'a> {
             c: self.c,
             eps: self.eps,
         };
-        scan::extremes::<false>(crew, &mut self.act.g, view.ap, view.ap, 0.0, 0.0, &view)
+        scan::extremes(crew, &mut self.act.g, None, &view)
     }
 
     /// Writes the active rows' state back to the per-row vectors.
@@ -220,7 +220,13 @@ impl<'a> Engine<'a> {
             c: self.c,
             eps: self.eps,
         };
-        scan::extremes::<true>(crew, &mut self.act.g, ki, kj, db_i, db_j, &view)
+        let update = Update {
+            ki,
+            kj,
+            di: db_i,
+            dj: db_j,
+        };
+        scan::extremes(crew, &mut self.act.g, Some(update), &view)
     }
 
     /// Recomputes `g` on the inactive rows from the support vectors and makes every row
@@ -374,16 +380,14 @@ impl<'a> Engine<'a> {
             let j = match selection {
                 Selection::FirstOrder => first_j,
                 Selection::SecondOrder => {
-                    let code = scan::wss2(
-                        crew,
-                        &self.act.g,
-                        &self.act.diag,
-                        self.cache.row(si),
-                        self.act.diag[i.pos],
-                        e.m,
-                        TAU,
-                        &self.view(),
-                    );
+                    let second = Second {
+                        diag: &self.act.diag,
+                        ki: self.cache.row(si),
+                        kii: self.act.diag[i.pos],
+                        m: e.m,
+                        tau: TAU,
+                    };
+                    let code = scan::wss2(crew, &self.act.g, &second, &self.view());
                     Var::from_code(code).unwrap_or(first_j)
                 }
             };

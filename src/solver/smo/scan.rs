@@ -22,6 +22,8 @@
 //! choice is again that of one sequential scan, and the gradient update is the same
 //! element-wise operation wherever it runs.
 
+use std::ops::Range;
+
 use super::team::Crew;
 
 /// Positions handled together.
@@ -46,6 +48,7 @@ pub(super) struct Extremes {
 }
 
 /// The state of the active rows a pass reads.
+#[derive(Clone, Copy)]
 pub(super) struct View<'s> {
     /// `α⁺` of each active row.
     pub ap: &'s [f64],
@@ -55,18 +58,6 @@ pub(super) struct View<'s> {
     pub c: f64,
     /// The tube half-width ε.
     pub eps: f64,
-}
-
-impl View<'_> {
-    /// The state of the positions `r`.
-    fn part(&self, r: std::ops::Range<usize>) -> View<'_> {
-        View {
-            ap: &self.ap[r.clone()],
-            am: &self.am[r],
-            c: self.c,
-            eps: self.eps,
-        }
-    }
 }
 
 /// Lane-wise best values and codes (maximum when `MAX`, else minimum).
@@ -137,19 +128,76 @@ fn candidates(p: u64, g: f64, ap: f64, am: f64, c: f64, eps: f64) -> (f64, u64, 
     (up_v, up_c, down_v, down_c)
 }
 
-/// Gradient update `g_p += di·ki_p + dj·kj_p` over the active rows when `UPDATE`, then
-/// `m(α)`, `M(α)` of the (new) point, in one pass.
+/// The gradient update of a step, `g += di·ki + dj·kj`, over the positions of a pass.
+#[derive(Clone, Copy)]
+pub(super) struct Update<'s> {
+    /// The first variable's kernel row.
+    pub ki: &'s [f64],
+    /// The second variable's kernel row.
+    pub kj: &'s [f64],
+    /// The change of `β_i`.
+    pub di: f64,
+    /// The change of `β_j`.
+    pub dj: f64,
+}
+
+/// What WSS2 reads besides the state of the rows.
+#[derive(Clone, Copy)]
+pub(super) struct Second<'s> {
+    /// `K_tt` of each position.
+    pub diag: &'s [f64],
+    /// The first variable's kernel row.
+    pub ki: &'s [f64],
+    /// `K_ii`.
+    pub kii: f64,
+    /// `m(α)`.
+    pub m: f64,
+    /// The curvature used when `a_t ≤ 0`.
+    pub tau: f64,
+}
+
+impl<'s> View<'s> {
+    /// The state of the positions `r`.
+    fn part(&self, r: Range<usize>) -> View<'s> {
+        View {
+            ap: &self.ap[r.clone()],
+            am: &self.am[r],
+            ..*self
+        }
+    }
+}
+
+impl<'s> Update<'s> {
+    fn part(&self, r: Range<usize>) -> Update<'s> {
+        Update {
+            ki: &self.ki[r.clone()],
+            kj: &self.kj[r],
+            ..*self
+        }
+    }
+}
+
+impl<'s> Second<'s> {
+    fn part(&self, r: Range<usize>) -> Second<'s> {
+        Second {
+            diag: &self.diag[r.clone()],
+            ki: &self.ki[r],
+            ..*self
+        }
+    }
+}
+
+/// Gradient update `g += di·ki + dj·kj` when `UPDATE`, then `m(α)`, `M(α)` of the
+/// (new) point, in one pass over positions `offset..offset + g.len()`.
 #[inline(always)]
 fn extremes_generic<const UPDATE: bool>(
     g: &mut [f64],
-    ki: &[f64],
-    kj: &[f64],
-    di: f64,
-    dj: f64,
+    u: &Update,
     s: &View,
     offset: usize,
 ) -> Extremes {
     let n = g.len();
+    let (ki, kj, di, dj) = (u.ki, u.kj, u.di, u.dj);
     assert!(
         s.ap.len() == n && s.am.len() == n && ki.len() == n && kj.len() == n,
         "scan: lengths"
@@ -192,26 +240,21 @@ fn extremes_generic<const UPDATE: bool>(
     Extremes { m, i, big_m, j }
 }
 
-/// One row's WSS2 objective `−b²/a` and code, `+∞` when it offers no candidate.
+/// One row's WSS2 objective `−b²/a` and code, `+∞` when it offers no candidate, from
+/// its state `(g, α⁺, α⁻)` and kernel values `(K_tt, K_it)`.
 #[inline(always)]
-#[allow(clippy::too_many_arguments)]
 fn wss2_row(
     p: u64,
-    g: f64,
-    ap: f64,
-    am: f64,
-    d: f64,
-    k: f64,
-    kii: f64,
-    m: f64,
-    tau: f64,
-    c: f64,
-    eps: f64,
+    (g, ap, am): (f64, f64, f64),
+    (d, k): (f64, f64),
+    w: &Second,
+    s: &View,
 ) -> (f64, u64) {
-    let a = kii + d - 2.0 * k;
-    let a = if a > 0.0 { a } else { tau };
-    let bp = m - (-g - eps);
-    let bm = m - (-g + eps);
+    let (c, eps) = (s.c, s.eps);
+    let a = w.kii + d - 2.0 * k;
+    let a = if a > 0.0 { a } else { w.tau };
+    let bp = w.m - (-g - eps);
+    let bm = w.m - (-g + eps);
     let take_p = (ap > 0.0) & (bp > 0.0);
     let take_m = (am < c) & (bm > 0.0);
     let b = if take_p { bp } else { bm };
@@ -222,25 +265,15 @@ fn wss2_row(
 
 /// WSS2 (Fan, Chen & Lin 2005): among the down-movable variables `t` with `v_t < m`,
 /// the one minimising `−(m − v_t)² / a_t`, with `a_t = K_ii + K_tt − 2K_it` (or `tau`
-/// when not positive).
+/// when not positive), over positions `offset..offset + g.len()`: its objective and code.
 #[inline(always)]
-#[allow(clippy::too_many_arguments)]
-fn wss2_generic(
-    g: &[f64],
-    diag: &[f64],
-    ki: &[f64],
-    kii: f64,
-    m: f64,
-    tau: f64,
-    s: &View,
-    offset: usize,
-) -> (f64, u64) {
+fn wss2_generic(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
     let n = g.len();
+    let (diag, ki) = (w.diag, w.ki);
     assert!(
         s.ap.len() == n && s.am.len() == n && diag.len() == n && ki.len() == n,
         "wss2: lengths"
     );
-    let (c, eps) = (s.c, s.eps);
     let mut best = Best::<false>::new();
     let full = n - n % LANES;
     let chunks = g[..full]
@@ -256,36 +289,14 @@ fn wss2_generic(
         let kc: &[f64; LANES] = kc.try_into().expect("chunk");
         let base = (offset + b * LANES) as u64;
         for q in 0..LANES {
-            let (o, code) = wss2_row(
-                base + q as u64,
-                gc[q],
-                apc[q],
-                amc[q],
-                dc[q],
-                kc[q],
-                kii,
-                m,
-                tau,
-                c,
-                eps,
-            );
+            let p = base + q as u64;
+            let (o, code) = wss2_row(p, (gc[q], apc[q], amc[q]), (dc[q], kc[q]), w, s);
             best.offer(q, o, code);
         }
     }
     for p in full..n {
-        let (o, code) = wss2_row(
-            (offset + p) as u64,
-            g[p],
-            s.ap[p],
-            s.am[p],
-            diag[p],
-            ki[p],
-            kii,
-            m,
-            tau,
-            c,
-            eps,
-        );
+        let at = (offset + p) as u64;
+        let (o, code) = wss2_row(at, (g[p], s.ap[p], s.am[p]), (diag[p], ki[p]), w, s);
         best.offer(0, o, code);
     }
     best.merge()
@@ -295,39 +306,24 @@ fn wss2_generic(
 #[target_feature(enable = "avx2")]
 unsafe fn extremes_avx2<const UPDATE: bool>(
     g: &mut [f64],
-    ki: &[f64],
-    kj: &[f64],
-    di: f64,
-    dj: f64,
+    u: &Update,
     s: &View,
     offset: usize,
 ) -> Extremes {
-    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s, offset)
+    extremes_generic::<UPDATE>(g, u, s, offset)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-#[allow(clippy::too_many_arguments)]
-unsafe fn wss2_avx2(
-    g: &[f64],
-    diag: &[f64],
-    ki: &[f64],
-    kii: f64,
-    m: f64,
-    tau: f64,
-    s: &View,
-    offset: usize,
-) -> (f64, u64) {
-    wss2_generic(g, diag, ki, kii, m, tau, s, offset)
+unsafe fn wss2_avx2(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
+    wss2_generic(g, w, s, offset)
 }
 
-/// [`extremes`] on one part of the active rows, the first at position `offset`.
+/// [`extremes_generic`], compiled for AVX2 when the CPU has it (four f64 a register
+/// instead of two; without FMA the operations, and so the results, are the same).
 fn extremes_part<const UPDATE: bool>(
     g: &mut [f64],
-    ki: &[f64],
-    kj: &[f64],
-    di: f64,
-    dj: f64,
+    u: &Update,
     s: &View,
     offset: usize,
 ) -> Extremes {
@@ -335,33 +331,22 @@ fn extremes_part<const UPDATE: bool>(
     {
         if is_x86_feature_detected!("avx2") {
             // SAFETY: the CPU reports AVX2.
-            return unsafe { extremes_avx2::<UPDATE>(g, ki, kj, di, dj, s, offset) };
+            return unsafe { extremes_avx2::<UPDATE>(g, u, s, offset) };
         }
     }
-    extremes_generic::<UPDATE>(g, ki, kj, di, dj, s, offset)
+    extremes_generic::<UPDATE>(g, u, s, offset)
 }
 
-/// [`wss2`] on one part of the active rows, the first at position `offset`: the best
-/// objective and its code.
-#[allow(clippy::too_many_arguments)]
-fn wss2_part(
-    g: &[f64],
-    diag: &[f64],
-    ki: &[f64],
-    kii: f64,
-    m: f64,
-    tau: f64,
-    s: &View,
-    offset: usize,
-) -> (f64, u64) {
+/// [`wss2_generic`], dispatched like [`extremes_part`].
+fn wss2_part(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
     #[cfg(target_arch = "x86_64")]
     {
         if is_x86_feature_detected!("avx2") {
             // SAFETY: the CPU reports AVX2.
-            return unsafe { wss2_avx2(g, diag, ki, kii, m, tau, s, offset) };
+            return unsafe { wss2_avx2(g, w, s, offset) };
         }
     }
-    wss2_generic(g, diag, ki, kii, m, tau, s, offset)
+    wss2_generic(g, w, s, offset)
 }
 
 /// Parts a pass over `n` positions is split into on `crew`: one per thread, each of at
@@ -386,49 +371,47 @@ fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
     }
 }
 
-/// `m(α)`, `M(α)` and their variables, after `g += di·ki + dj·kj` when `UPDATE`
-/// (`ki`, `kj` are not read otherwise), split over the crew when long. Compiled for AVX2
-/// when the CPU has it (four f64 a register instead of two); without FMA the
-/// operations, and so the results, are those of the generic build.
-pub(super) fn extremes<const UPDATE: bool>(
-    crew: &Crew,
-    g: &mut [f64],
-    ki: &[f64],
-    kj: &[f64],
-    di: f64,
-    dj: f64,
-    s: &View,
-) -> Extremes {
-    let parts = parts(crew, g.len());
-    extremes_split::<UPDATE>(crew, parts, g, ki, kj, di, dj, s)
+/// `m(α)`, `M(α)` and their variables, after the gradient update when there is one,
+/// split over the crew when long.
+pub(super) fn extremes(crew: &Crew, g: &mut [f64], update: Option<Update>, s: &View) -> Extremes {
+    extremes_split(crew, parts(crew, g.len()), g, update, s)
 }
 
 /// [`extremes`] in `parts` parts of whole lane groups, the parts' results merged in the
 /// order of one sequential scan.
-#[allow(clippy::too_many_arguments)]
-fn extremes_split<const UPDATE: bool>(
+fn extremes_split(
     crew: &Crew,
     parts: usize,
     g: &mut [f64],
-    ki: &[f64],
-    kj: &[f64],
-    di: f64,
-    dj: f64,
+    update: Option<Update>,
     s: &View,
 ) -> Extremes {
-    let n = g.len();
-    assert!(
-        s.ap.len() == n && s.am.len() == n && ki.len() == n && kj.len() == n,
-        "scan: lengths"
-    );
-    if parts <= 1 {
-        return extremes_part::<UPDATE>(g, ki, kj, di, dj, s, 0);
+    fn pass(g: &mut [f64], u: &Option<Update>, s: &View, offset: usize) -> Extremes {
+        match u {
+            Some(u) => extremes_part::<true>(g, u, s, offset),
+            None => {
+                let none = Update {
+                    ki: s.ap,
+                    kj: s.ap,
+                    di: 0.0,
+                    dj: 0.0,
+                };
+                extremes_part::<false>(g, &none, s, offset)
+            }
+        }
     }
-    let span = span(n, parts);
+    if parts <= 1 {
+        return pass(g, &update, s, 0);
+    }
+    let span = span(g.len(), parts);
     let found = crew.chunks_mut(g, span, |k, gp| {
         let r = k * span..k * span + gp.len();
-        let v = s.part(r.clone());
-        extremes_part::<UPDATE>(gp, &ki[r.clone()], &kj[r.clone()], di, dj, &v, r.start)
+        pass(
+            gp,
+            &update.map(|u| u.part(r.clone())),
+            &s.part(r.clone()),
+            r.start,
+        )
     });
     let mut e = found[0];
     for f in &found[1..] {
@@ -440,54 +423,22 @@ fn extremes_split<const UPDATE: bool>(
 
 /// The WSS2 choice of the second variable (its code, or [`NONE`]), split over the crew
 /// like [`extremes`].
-#[allow(clippy::too_many_arguments)]
-pub(super) fn wss2(
-    crew: &Crew,
-    g: &[f64],
-    diag: &[f64],
-    ki: &[f64],
-    kii: f64,
-    m: f64,
-    tau: f64,
-    s: &View,
-) -> u64 {
-    let parts = parts(crew, g.len());
-    wss2_split(crew, parts, g, diag, ki, kii, m, tau, s)
+pub(super) fn wss2(crew: &Crew, g: &[f64], w: &Second, s: &View) -> u64 {
+    wss2_split(crew, parts(crew, g.len()), g, w, s)
 }
 
 /// [`wss2`] in `parts` parts, merged like [`extremes_split`].
-#[allow(clippy::too_many_arguments)]
-fn wss2_split(
-    crew: &Crew,
-    parts: usize,
-    g: &[f64],
-    diag: &[f64],
-    ki: &[f64],
-    kii: f64,
-    m: f64,
-    tau: f64,
-    s: &View,
-) -> u64 {
-    let n = g.len();
-    assert!(
-        s.ap.len() == n && s.am.len() == n && diag.len() == n && ki.len() == n,
-        "wss2: lengths"
-    );
+fn wss2_split(crew: &Crew, parts: usize, g: &[f64], w: &Second, s: &View) -> u64 {
     if parts <= 1 {
-        return wss2_part(g, diag, ki, kii, m, tau, s, 0).1;
+        return wss2_part(g, w, s, 0).1;
     }
-    let span = span(n, parts);
+    let (n, span) = (g.len(), span(g.len(), parts));
     let found = crew.map(n.div_ceil(span), |k| {
         let r = k * span..((k + 1) * span).min(n);
-        let v = s.part(r.clone());
         wss2_part(
             &g[r.clone()],
-            &diag[r.clone()],
-            &ki[r.clone()],
-            kii,
-            m,
-            tau,
-            &v,
+            &w.part(r.clone()),
+            &s.part(r.clone()),
             r.start,
         )
     });
@@ -593,14 +544,20 @@ mod tests {
                 eps,
             };
             let mut g1 = g.clone();
-            let e = extremes_split::<false>(crew, parts, &mut g1, &ap, &ap, 0.0, 0.0, &s);
+            let e = extremes_split(crew, parts, &mut g1, None, &s);
             let r = sequential(&g, &ap, &am, c, eps);
             assert_eq!(
                 (e.m, e.i, e.big_m, e.j),
                 (r.m, r.i, r.big_m, r.j),
                 "trial {trial}"
             );
-            let e = extremes_split::<true>(crew, parts, &mut g1, &ki, &kj, 0.5, -0.25, &s);
+            let u = Update {
+                ki: &ki,
+                kj: &kj,
+                di: 0.5,
+                dj: -0.25,
+            };
+            let e = extremes_split(crew, parts, &mut g1, Some(u), &s);
             let g2: Vec<f64> = (0..n)
                 .map(|p| g[p] + (0.5 * ki[p] + -0.25 * kj[p]))
                 .collect();
@@ -613,7 +570,14 @@ mod tests {
             );
             if r.i != NONE {
                 let kii = 1.0;
-                let got = wss2_split(crew, parts, &g2, &diag, &ki, kii, r.m, 1e-12, &s);
+                let w = Second {
+                    diag: &diag,
+                    ki: &ki,
+                    kii,
+                    m: r.m,
+                    tau: 1e-12,
+                };
+                let got = wss2_split(crew, parts, &g2, &w, &s);
                 assert_eq!(
                     got,
                     sequential_wss2(&g2, &s, &diag, &ki, kii, r.m),
