@@ -403,7 +403,7 @@ fn tiny_cache_gives_the_same_solution() {
 fn one_two_and_three_threads_are_bit_identical() {
     // common practice (project rule): results do not depend on the thread count. The
     // size exceeds the thresholds above which kernel rows and the scans over the active
-    // rows are split over threads (in two or three parts here).
+    // rows are split over threads (in two or three parts, as the machine's cores allow).
     let (x, y) = friedman1(4500, 13);
     let k = Kernel::gaussian(0.5).unwrap();
     let settings = SmoSettings {

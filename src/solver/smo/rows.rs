@@ -87,8 +87,7 @@ impl Tiles {
         }
         assert_eq!(out.len(), self.len, "kernel row: output length");
         assert_eq!(xr.len(), self.d, "kernel row: input length");
-        let want = self.len.div_ceil(TASKS_PER_THREAD * threads);
-        let span = SPANS.into_iter().find(|&s| s >= want).unwrap_or(TILE);
+        let span = task_rows(self.len, threads);
         let step = self.d * TILE;
         crew.chunks_mut(out, span, |k, o| {
             let (t, j0) = ((k * span) / TILE, (k * span) % TILE);
@@ -105,6 +104,13 @@ impl Tiles {
             tile_row(kernel, xr, t, 0, o);
         }
     }
+}
+
+/// Rows per task when a kernel row of `len` entries is split over `threads` threads:
+/// the smallest of [`SPANS`] giving at most [`TASKS_PER_THREAD`] tasks a thread.
+fn task_rows(len: usize, threads: usize) -> usize {
+    let want = len.div_ceil(TASKS_PER_THREAD * threads);
+    SPANS.into_iter().find(|&s| s >= want).unwrap_or(TILE)
 }
 
 /// Distances from `xr` to the rows `j0..j0 + out.len()` of one tile, then the kernel on
@@ -182,13 +188,14 @@ mod tests {
 
     /// Every entry equals `Kernel::eval` exactly, for every family, on subsets of rows
     /// that span several tiles and end in a partial one, whether the row is computed by
-    /// one thread or split over crews of two and three in parts of 64, 128 or 256 rows
-    /// (reference: the definition in `kernel.rs`, common practice for a re-arranged
-    /// computation).
+    /// one thread or split over crews of two and three (as the machine's cores allow)
+    /// in parts of 64, 128 and 256 rows (reference: the definition in `kernel.rs`,
+    /// common practice for a re-arranged computation).
     #[test]
     fn tiled_rows_equal_the_kernel_definition() {
         let d = 7;
-        for n in [2 * TILE + 37, 8 * TILE + 37] {
+        let mut spans = std::collections::BTreeSet::new();
+        for n in [2 * TILE + 37, 1200, 8 * TILE + 37] {
             let mut rng = ChaCha8Rng::seed_from_u64(11);
             let x: Vec<f64> = (0..n * d).map(|_| rng.random_range(-2.0..2.0)).collect();
             let idx: Vec<usize> = (0..n).filter(|r| r % 3 != 1).collect();
@@ -208,6 +215,9 @@ mod tests {
                             let xr = &x[r * d..(r + 1) * d];
                             let mut out = vec![0.0; idx.len()];
                             tiles.row_into(crew, &kernel, xr, &mut out);
+                            if crew.threads() > 1 {
+                                spans.insert(task_rows(idx.len(), crew.threads()));
+                            }
                             for (s, &c) in idx.iter().enumerate() {
                                 let want = kernel.eval(xr, &x[c * d..(c + 1) * d]);
                                 assert_eq!(out[s], want, "{kind:?}, {threads} threads");
@@ -216,6 +226,10 @@ mod tests {
                     })
                 });
             }
+        }
+        // Every part size was exercised, wherever there is a second core to split over.
+        if std::thread::available_parallelism().map_or(1, |c| c.get()) > 1 {
+            assert_eq!(spans.into_iter().collect::<Vec<_>>(), SPANS);
         }
     }
 }

@@ -104,10 +104,13 @@ pub(super) struct Crew<'t> {
     _single: PhantomData<*const ()>,
 }
 
-/// Runs `body` with a crew of `rayon::current_num_threads()` threads: the calling thread
-/// and helpers started for the purpose, which stay awake until `body` returns.
+/// Runs `body` with a crew of `rayon::current_num_threads()` threads, at most one per
+/// processor the system reports (a spinning helper without a core of its own only makes
+/// the others wait): the calling thread and helpers started for the purpose, which stay
+/// awake until `body` returns.
 pub(super) fn with_crew<R>(body: impl FnOnce(&Crew) -> R) -> R {
-    let helpers = rayon::current_num_threads().saturating_sub(1);
+    let cores = std::thread::available_parallelism().map_or(1, |c| c.get());
+    let helpers = rayon::current_num_threads().min(cores).saturating_sub(1);
     let shared = Shared {
         claim: AtomicU64::new(0),
         done: AtomicU64::new(0),
@@ -269,7 +272,7 @@ mod tests {
         for threads in [1, 2, 4] {
             in_pool(threads, || {
                 with_crew(|crew| {
-                    assert_eq!(crew.threads(), threads);
+                    assert!(crew.threads() <= threads);
                     for count in [0, 1, 2, 3, 17, 64, 1000] {
                         let hits: Vec<AtomicUsize> =
                             (0..count).map(|_| AtomicUsize::new(0)).collect();
