@@ -4,7 +4,7 @@ mod common;
 
 use common::{ccpp, write_parts};
 use kernlake::audit::plot::render_svg;
-use kernlake::audit::{audit, map_name, AuditOptions, AuditReport};
+use kernlake::audit::{audit, audit_with_progress, map_name, AuditOptions, AuditReport};
 use kernlake::features::{FeatureMap, Landmarks, MapKind, NystromMap};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
@@ -338,6 +338,48 @@ fn same_seed_same_report_whatever_the_threads() {
         )
     };
     assert_eq!(run(1), run(2));
+}
+
+#[test]
+fn progress_counts_every_machine_once_and_rows_keep_their_order() {
+    // common practice (the contract of a progress report): it starts at zero, rises by
+    // one per machine, and ends at the total; the rows come in map-then-D order however
+    // the machines were scheduled. Data: CCPP (Tüfekci 2014), 400 rows.
+    let (x, y) = ccpp_rows(4_000, 4_400);
+    let opts = AuditOptions {
+        maps: vec![MapKind::Fourier, MapKind::Nystrom],
+        components: vec![64, 16, 32],
+        threads: 2,
+        ..AuditOptions::default()
+    };
+    let seen = std::sync::Mutex::new(Vec::new());
+    let r = audit_with_progress(x.view(), y.view(), &opts, &|done, total| {
+        seen.lock().unwrap().push((done, total));
+    })
+    .unwrap();
+    let seen = seen.into_inner().unwrap();
+    let total = 2 * 3 + 1;
+    assert_eq!(seen.len(), total + 1, "{seen:?}");
+    for (k, &(done, t)) in seen.iter().enumerate() {
+        assert_eq!((done, t), (k, total), "{seen:?}");
+    }
+    let order: Vec<(MapKind, usize)> = r.rows.iter().map(|r| (r.map, r.components)).collect();
+    assert_eq!(
+        order,
+        [
+            (MapKind::Fourier, 16),
+            (MapKind::Fourier, 32),
+            (MapKind::Fourier, 64),
+            (MapKind::Nystrom, 16),
+            (MapKind::Nystrom, 32),
+            (MapKind::Nystrom, 64)
+        ]
+    );
+    assert!(
+        r.notes.iter().any(|n| n.contains("at a time")),
+        "{:?}",
+        r.notes
+    );
 }
 
 #[test]

@@ -46,7 +46,7 @@ mod run;
 mod table;
 
 pub use model::{audit_model, ModelAuditOptions, ModelAuditReport};
-pub use run::audit;
+pub use run::{audit, audit_with_progress};
 pub use table::{render_audit, render_model_audit};
 
 use serde::{Deserialize, Serialize};

@@ -1,15 +1,17 @@
 //! The audit procedure on an in-memory sample, and the pieces the model audit shares.
 
+use std::sync::atomic::{AtomicUsize, Ordering};
 use std::time::Instant;
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
 
 use super::{Accuracy, AuditOptions, AuditReport, AuditRow, Chosen, ExactResult, Recommendation};
 use crate::error::{Error, Result};
-use crate::features::{build_map, FeatureMap, MapSpec};
+use crate::features::{build_map, FeatureMap, MapKind, MapSpec};
 use crate::kernel::Kernel;
 use crate::metrics::{mae, r2, rmse};
 use crate::scale::Standardizer;
@@ -32,6 +34,25 @@ use crate::tune::Defaults;
 /// If `x` and `y` differ in rows.
 #[track_caller]
 pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Result<AuditReport> {
+    audit_with_progress(x, y, opts, &|_, _| {})
+}
+
+/// [`audit`], calling `progress(finished, total)` as machines are fitted: before the
+/// exact machine (`finished` = 0), once it is done (1), then after each approximate one,
+/// in the order they finish (`total` counts the exact machine too).
+///
+/// # Errors
+/// As [`audit`].
+///
+/// # Panics
+/// If `x` and `y` differ in rows.
+#[track_caller]
+pub fn audit_with_progress(
+    x: ArrayView2<f64>,
+    y: ArrayView1<f64>,
+    opts: &AuditOptions,
+    progress: &(dyn Fn(usize, usize) + Sync),
+) -> Result<AuditReport> {
     assert_eq!(
         x.nrows(),
         y.len(),
@@ -41,6 +62,10 @@ pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Res
     );
     opts.validate()?;
     let maps = opts.resolved_maps()?;
+    let mut sizes = opts.components.clone();
+    sizes.sort_unstable();
+    sizes.dedup();
+    let total = maps.len() * sizes.len() + 1;
     check_finite(x, y)?;
     let parts = Parts::split(x, y, opts.split, opts.seed, None)?;
     let mut notes = parts.notes();
@@ -87,6 +112,7 @@ pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Res
         .build()
         .map_err(|e| Error::invalid("threads", format!("no thread pool could start: {e}")))?;
     let unit = if y_sd > 0.0 { y_sd } else { 1.0 };
+    progress(0, total);
     let (exact, exact_pred) = pool.install(|| {
         fit_exact(
             &parts,
@@ -100,50 +126,50 @@ pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Res
     let kblock = parts.kernel_block(opts.kernel_rows);
     let k_exact = pool.install(|| kernel.block(kblock.view(), kblock.view()));
 
-    let mut sizes = opts.components.clone();
-    sizes.sort_unstable();
-    sizes.dedup();
-    let mut rows = Vec::new();
-    for &kind in &maps {
-        for &d in &sizes {
-            let spec = MapSpec {
-                kind,
-                components: d,
-                variant: opts.variant,
-                seed: opts.seed,
-                ..MapSpec::default()
-            };
-            let dcd = DcdSettings {
-                c: c.value,
-                epsilon: epsilon.value,
-                loss: Loss::L1,
-                shrinking: true,
-                sweeps_per_block: 20,
-                tol: opts.dcd_tol,
-                max_epochs: opts.dcd_epochs,
-                seed: opts.seed,
-            };
-            let row = pool.install(|| -> Result<AuditRow> {
-                let t0 = Instant::now();
-                let map = build_map(&spec, kernel, parts.x_fit.ncols(), Some(parts.x_fit.view()))?;
-                let z = map.transform(parts.x_fit.view());
-                let fit = dcd::fit(z.view(), parts.y_fit.view(), &dcd, z.nrows())?;
-                let fit_seconds = t0.elapsed().as_secs_f64();
-                let pred = fit.predict(map.transform(parts.x_check.view()).view());
-                Ok(AuditRow {
-                    map: kind,
-                    components: d,
-                    features: map.output_dim(),
-                    check: accuracy(parts.y_check.view(), pred.view()),
-                    agreement: rmse(pred.view(), exact_pred.view()) / unit,
-                    kernel_error: kernel_error(map.as_ref(), kblock.view(), k_exact.view()),
-                    fit_seconds,
-                    converged: fit.report.converged,
-                    gap: fit.report.objective.gap,
-                })
-            })?;
-            rows.push(row);
-        }
+    // Every (map, D) pair is an independent, seeded fit (map construction and DCD run on
+    // their own), so they run side by side, one per thread of the pool, the largest D
+    // first so that the long fits do not end up last; the rows keep the map-then-D order.
+    let mut jobs: Vec<(usize, MapKind, usize)> = maps
+        .iter()
+        .flat_map(|&kind| sizes.iter().map(move |&d| (kind, d)))
+        .enumerate()
+        .map(|(at, (kind, d))| (at, kind, d))
+        .collect();
+    jobs.sort_by_key(|&(at, _, d)| (std::cmp::Reverse(d), at));
+    progress(1, total);
+    let finished = AtomicUsize::new(1);
+    let machine = Machine {
+        parts: &parts,
+        kernel,
+        c: c.value,
+        epsilon: epsilon.value,
+        opts,
+        exact_pred: exact_pred.view(),
+        unit,
+        kblock: kblock.view(),
+        k_exact: k_exact.view(),
+    };
+    let mut fitted: Vec<(usize, Result<AuditRow>)> = pool.install(|| {
+        jobs.par_iter()
+            .with_max_len(1)
+            .map(|&(at, kind, d)| {
+                let row = machine.fit(kind, d);
+                progress(finished.fetch_add(1, Ordering::Relaxed) + 1, total);
+                (at, row)
+            })
+            .collect()
+    });
+    fitted.sort_by_key(|f| f.0);
+    let rows = fitted
+        .into_iter()
+        .map(|f| f.1)
+        .collect::<Result<Vec<AuditRow>>>()?;
+    if pool.current_num_threads() > 1 && jobs.len() > 1 {
+        notes.push(format!(
+            "the approximate machines were fitted up to {} at a time: their fit times \
+             include sharing the processors",
+            pool.current_num_threads().min(jobs.len())
+        ));
     }
     let (recommended, overall) = recommend(&rows, &maps, opts.agree);
     Ok(AuditReport {
@@ -161,6 +187,67 @@ pub fn audit(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &AuditOptions) -> Res
         overall,
         notes,
     })
+}
+
+/// What every approximate machine of an audit shares: the sample's parts, the kernel
+/// and penalties, and the exact machine's results it is compared with.
+struct Machine<'a> {
+    parts: &'a Parts,
+    kernel: Kernel,
+    c: f64,
+    epsilon: f64,
+    opts: &'a AuditOptions,
+    exact_pred: ArrayView1<'a, f64>,
+    unit: f64,
+    kblock: ArrayView2<'a, f64>,
+    k_exact: ArrayView2<'a, f64>,
+}
+
+impl Machine<'_> {
+    /// Builds the map of `kind` with `d` components, fits the linear machine with the
+    /// L1 loss on the mapped fit part, and compares it on the check part.
+    fn fit(&self, kind: MapKind, d: usize) -> Result<AuditRow> {
+        let (parts, opts) = (self.parts, self.opts);
+        let spec = MapSpec {
+            kind,
+            components: d,
+            variant: opts.variant,
+            seed: opts.seed,
+            ..MapSpec::default()
+        };
+        let dcd = DcdSettings {
+            c: self.c,
+            epsilon: self.epsilon,
+            loss: Loss::L1,
+            shrinking: true,
+            sweeps_per_block: 20,
+            tol: opts.dcd_tol,
+            max_epochs: opts.dcd_epochs,
+            seed: opts.seed,
+        };
+        let t0 = Instant::now();
+        let map = build_map(
+            &spec,
+            self.kernel,
+            parts.x_fit.ncols(),
+            Some(parts.x_fit.view()),
+        )?;
+        let z = map.transform(parts.x_fit.view());
+        let fit = dcd::fit(z.view(), parts.y_fit.view(), &dcd, z.nrows())?;
+        let fit_seconds = t0.elapsed().as_secs_f64();
+        let pred = fit.predict(map.transform(parts.x_check.view()).view());
+        Ok(AuditRow {
+            map: kind,
+            components: d,
+            features: map.output_dim(),
+            check: accuracy(parts.y_check.view(), pred.view()),
+            agreement: rmse(pred.view(), self.exact_pred) / self.unit,
+            kernel_error: kernel_error(map.as_ref(), self.kblock, self.k_exact),
+            fit_seconds,
+            converged: fit.report.converged,
+            gap: fit.report.objective.gap,
+        })
+    }
 }
 
 /// Smallest D within `agree` per map, and over all maps (ties: better agreement).

@@ -8,8 +8,8 @@ use clap::Args;
 
 use crate::atomic::write_atomic;
 use crate::audit::{
-    audit, audit_model, plot::render_svg, render_audit, render_model_audit, AuditOptions,
-    ModelAuditOptions,
+    audit_model, audit_with_progress, plot::render_svg, render_audit, render_model_audit,
+    AuditOptions, ModelAuditOptions,
 };
 use crate::data::{
     discover, resolve_columns, survey, ColumnSelection, Survey, SurveySettings, TableReader,
@@ -20,7 +20,7 @@ use crate::kernel::KernelKind;
 use crate::model::Model;
 
 use super::args::{parse_bytes, KernelArg, MapArg, SourceArgs};
-use super::progress::rows_bar;
+use super::progress::{count_bar, rows_bar};
 
 /// `kernlake audit`.
 #[derive(Debug, Args)]
@@ -173,7 +173,12 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
                 threads: a.threads,
                 ..AuditOptions::default()
             };
-            let mut r = audit(x.view(), y.view(), &opts)?;
+            let bar = count_bar(quiet, "fit", "machines");
+            let mut r = audit_with_progress(x.view(), y.view(), &opts, &|done, total| {
+                bar.set_length(total as u64);
+                bar.set_position(done as u64);
+            })?;
+            bar.finish_and_clear();
             r.notes.extend(short);
             if let Some(path) = &a.plot {
                 write_file(path, render_svg(&r).as_bytes())?;

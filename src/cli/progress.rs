@@ -21,6 +21,24 @@ pub fn rows_bar(quiet: bool, total: u64, label: &str) -> ProgressBar {
     bar
 }
 
+/// A bar counting whole pieces of work (`unit`, e.g. "machines") whose number is set
+/// by the first update, hidden when quiet.
+pub fn count_bar(quiet: bool, label: &str, unit: &str) -> ProgressBar {
+    if quiet {
+        return ProgressBar::hidden();
+    }
+    let bar = ProgressBar::new(0);
+    bar.set_style(
+        ProgressStyle::with_template(&format!(
+            "{{prefix:>10}} [{{bar:32}}] {{pos}}/{{len}} {unit}  {{elapsed}}"
+        ))
+        .expect("valid template")
+        .progress_chars("=> "),
+    );
+    bar.set_prefix(label.to_string());
+    bar
+}
+
 /// Draws one bar per epoch and a line of figures when it ends.
 pub struct EpochBars {
     quiet: bool,
