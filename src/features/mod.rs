@@ -6,6 +6,7 @@
 //! they share. [`build_map`] makes a map from a [`MapSpec`]; [`map_from_parts`] rebuilds a
 //! saved one.
 
+mod eigen;
 pub mod fastcos;
 pub mod nystrom;
 pub mod orthogonal;

@@ -19,11 +19,11 @@
 //! become landmarks (no randomness involved). A sample with zero rows is an error.
 
 use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut2, Axis, Zip};
-use ndarray_linalg::{Eigh, UPLO};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
+use super::eigen::symmetric_eigen;
 use super::{
     bad_parts, check_kernel, chunk_rows, par_row_chunks, saved_array, FeatureMap, Landmarks,
     MapParts, SavedKernel,
@@ -124,8 +124,9 @@ impl NystromMap {
             ));
         }
         let kll = kernel.block(landmarks.view(), landmarks.view());
-        let (vals, vecs) = kll.eigh(UPLO::Lower).map_err(|e| {
-            Error::Numerical(format!("landmark kernel eigendecomposition failed: {e}"))
+        let (vals, vecs) = symmetric_eigen(&kll).map_err(|e| match e {
+            Error::Numerical(m) => Error::Numerical(format!("landmark kernel matrix: {m}")),
+            other => other,
         })?;
         let lmax = vals.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
         if !(lmax.is_finite() && lmax > 0.0) {
