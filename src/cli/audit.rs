@@ -75,7 +75,8 @@ pub struct AuditArgs {
     /// Seed for the sample, the split and the maps.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
-    /// Threads (0 = all cores).
+    /// Threads (0 = all cores); the approximate machines are fitted this many at a time
+    /// (each holds its mapped sample in memory).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
     /// Write the report as JSON to this file ('-' for standard output).
