@@ -42,53 +42,40 @@ pub(crate) fn symmetric_eigen(a: &Array2<f64>) -> Result<(Vec<f64>, Array2<f64>)
     let mut buf: Vec<f64> = a.as_standard_layout().iter().copied().collect();
     let mut w = vec![0.0f64; n];
     let (jobz, uplo) = (b'V' as c_char, b'U' as c_char);
-    let mut info: c_int = 0;
-    // Workspace query.
-    let (mut work_len, mut iwork_len) = (0.0f64, 0 as c_int);
-    let query: c_int = -1;
-    // SAFETY: every pointer refers to a live buffer of the size LAPACK expects for a
-    // workspace query (n × n matrix, n eigenvalues, one-element workspaces).
-    unsafe {
-        lapack_sys::dsyevd_(
-            &jobz,
-            &uplo,
-            &ni,
-            buf.as_mut_ptr(),
-            &ni,
-            w.as_mut_ptr(),
-            &mut work_len,
-            &query,
-            &mut iwork_len,
-            &query,
-            &mut info,
-        );
-    }
+    // One call of the driver with the given workspaces (lengths −1: a size query).
+    let mut call = |work: &mut [f64], lwork: c_int, iwork: &mut [c_int], liwork: c_int| {
+        let mut info: c_int = 0;
+        // SAFETY: `buf` holds n × n values, `w` n; the workspaces hold at least the
+        // lengths passed (one element each for a query).
+        unsafe {
+            lapack_sys::dsyevd_(
+                &jobz,
+                &uplo,
+                &ni,
+                buf.as_mut_ptr(),
+                &ni,
+                w.as_mut_ptr(),
+                work.as_mut_ptr(),
+                &lwork,
+                iwork.as_mut_ptr(),
+                &liwork,
+                &mut info,
+            );
+        }
+        info
+    };
+    let (mut work, mut iwork) = ([0.0f64], [0 as c_int]);
+    let info = call(&mut work, -1, &mut iwork, -1);
     if info != 0 {
         return Err(Error::Numerical(format!(
             "the eigenvalue workspace query failed (LAPACK dsyevd info {info})"
         )));
     }
-    let lwork = work_len.ceil() as usize;
-    let liwork = usize::try_from(iwork_len).map_err(|_| too_large())?;
-    let lwork_i = c_int::try_from(lwork).map_err(|_| too_large())?;
-    let mut work = vec![0.0f64; lwork.max(1)];
-    let mut iwork: Vec<c_int> = vec![0; liwork.max(1)];
-    // SAFETY: the buffers have the sizes the workspace query asked for.
-    unsafe {
-        lapack_sys::dsyevd_(
-            &jobz,
-            &uplo,
-            &ni,
-            buf.as_mut_ptr(),
-            &ni,
-            w.as_mut_ptr(),
-            work.as_mut_ptr(),
-            &lwork_i,
-            iwork.as_mut_ptr(),
-            &iwork_len,
-            &mut info,
-        );
-    }
+    let lwork = c_int::try_from(work[0].ceil() as usize).map_err(|_| too_large())?;
+    let liwork = iwork[0];
+    let mut work = vec![0.0f64; lwork.max(1) as usize];
+    let mut iwork: Vec<c_int> = vec![0; liwork.max(1) as usize];
+    let info = call(&mut work, lwork, &mut iwork, liwork);
     if info != 0 {
         return Err(Error::Numerical(format!(
             "the symmetric eigensolver did not converge (LAPACK dsyevd info {info})"
