@@ -141,8 +141,16 @@ pub fn audit_with_progress(
     let machine = Machine {
         parts: &parts,
         kernel,
-        c: c.value,
-        epsilon: epsilon.value,
+        dcd: DcdSettings {
+            c: c.value,
+            epsilon: epsilon.value,
+            loss: Loss::L1,
+            shrinking: true,
+            sweeps_per_block: 20,
+            tol: opts.dcd_tol,
+            max_epochs: opts.dcd_epochs,
+            seed: opts.seed,
+        },
         opts,
         exact_pred: exact_pred.view(),
         unit,
@@ -194,8 +202,8 @@ pub fn audit_with_progress(
 struct Machine<'a> {
     parts: &'a Parts,
     kernel: Kernel,
-    c: f64,
-    epsilon: f64,
+    /// The linear solver's settings: the exact machine's C and epsilon, the L1 loss.
+    dcd: DcdSettings,
     opts: &'a AuditOptions,
     exact_pred: ArrayView1<'a, f64>,
     unit: f64,
@@ -215,16 +223,6 @@ impl Machine<'_> {
             seed: opts.seed,
             ..MapSpec::default()
         };
-        let dcd = DcdSettings {
-            c: self.c,
-            epsilon: self.epsilon,
-            loss: Loss::L1,
-            shrinking: true,
-            sweeps_per_block: 20,
-            tol: opts.dcd_tol,
-            max_epochs: opts.dcd_epochs,
-            seed: opts.seed,
-        };
         let t0 = Instant::now();
         let map = build_map(
             &spec,
@@ -233,7 +231,7 @@ impl Machine<'_> {
             Some(parts.x_fit.view()),
         )?;
         let z = map.transform(parts.x_fit.view());
-        let fit = dcd::fit(z.view(), parts.y_fit.view(), &dcd, z.nrows())?;
+        let fit = dcd::fit(z.view(), parts.y_fit.view(), &self.dcd, z.nrows())?;
         let fit_seconds = t0.elapsed().as_secs_f64();
         let pred = fit.predict(map.transform(parts.x_check.view()).view());
         Ok(AuditRow {

@@ -54,6 +54,20 @@ struct Compact {
     diag: Vec<f64>,
 }
 
+impl Compact {
+    /// The gradient, for a pass to update, and the state of the bounds it reads,
+    /// borrowed together.
+    fn gradient_and_view(&mut self, c: f64, eps: f64) -> (&mut [f64], View<'_>) {
+        let view = View {
+            ap: &self.ap,
+            am: &self.am,
+            c,
+            eps,
+        };
+        (&mut self.g, view)
+    }
+}
+
 /// Solver state; see the module documentation. The per-row vectors `ap`, `am`, `g` are
 /// indexed by training row and are current for the inactive rows; those of the active
 /// rows live in `act` and are written back by [`Engine::sync`].
@@ -143,13 +157,8 @@ impl<'a> Engine<'a> {
 
     /// `m(α)`, `M(α)` and the variables reaching them, over the active rows.
     fn extremes(&mut self, crew: &Crew) -> Extremes {
-        let view = View {
-            ap: &self.act.ap,
-            am: &self.act.am,
-            c: self.c,
-            eps: self.eps,
-        };
-        scan::extremes(crew, &mut self.act.g, None, &view)
+        let (g, view) = self.act.gradient_and_view(self.c, self.eps);
+        scan::extremes(crew, g, None, &view)
     }
 
     /// Writes the active rows' state back to the per-row vectors.
@@ -214,19 +223,14 @@ impl<'a> Engine<'a> {
         self.beta[rj] += db_j;
         let sj = self.cache.fetch(rj, &self.src, &self.active, crew);
         let (ki, kj) = (self.cache.row(si), self.cache.row(sj));
-        let view = View {
-            ap: &self.act.ap,
-            am: &self.act.am,
-            c: self.c,
-            eps: self.eps,
-        };
         let update = Update {
             ki,
             kj,
             di: db_i,
             dj: db_j,
         };
-        scan::extremes(crew, &mut self.act.g, Some(update), &view)
+        let (g, view) = self.act.gradient_and_view(c, self.eps);
+        scan::extremes(crew, g, Some(update), &view)
     }
 
     /// Recomputes `g` on the inactive rows from the support vectors and makes every row

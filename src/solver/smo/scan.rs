@@ -88,15 +88,9 @@ impl<const MAX: bool> Best<MAX> {
 
     /// The best over lanes, the smallest code among equal values.
     fn merge(&self) -> (f64, u64) {
-        let mut best = (self.v[0], self.code[0]);
-        for q in 1..LANES {
-            let (v, c) = (self.v[q], self.code[q]);
-            let better = if MAX { v > best.0 } else { v < best.0 };
-            if c != NONE && (better || (v == best.0 && c < best.1)) {
-                best = (v, c);
-            }
-        }
-        best
+        (1..LANES).fold((self.v[0], self.code[0]), |best, q| {
+            better::<MAX>(best, (self.v[q], self.code[q]))
+        })
     }
 }
 
@@ -360,8 +354,9 @@ fn span(n: usize, parts: usize) -> usize {
     n.div_ceil(parts).next_multiple_of(LANES).max(LANES)
 }
 
-/// The better of two part results: the best value, the smallest code among equal values
-/// (the order of one sequential scan).
+/// The better of two candidates (lanes or parts): the best value, the smallest code
+/// among equal values (the order of one sequential scan); a candidate coded [`NONE`]
+/// never wins.
 fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
     let wins = if MAX { b.0 > a.0 } else { b.0 < a.0 };
     if b.1 != NONE && (a.1 == NONE || wins || (b.0 == a.0 && b.1 < a.1)) {
