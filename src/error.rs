@@ -104,6 +104,40 @@ pub enum Error {
         row: usize,
     },
 
+    /// No target column was chosen for a fit.
+    #[error("no target column was given: name the column to predict")]
+    NoTarget,
+
+    /// A column's values overflow double precision (its sum of squares is infinite), so
+    /// standardizing it would silently erase it.
+    #[error("column '{column}': its values overflow double precision (their squares reach infinity); rescale the column, for example to other units")]
+    Overflow {
+        /// The column's name.
+        column: String,
+    },
+
+    /// A report or record could not be encoded (JSON).
+    #[error("could not encode {what}: {source}")]
+    Encode {
+        /// What was being encoded.
+        what: &'static str,
+        /// The encoder's error.
+        source: serde_json::Error,
+    },
+
+    /// The worker threads could not start.
+    #[error("could not start {threads} worker thread(s): {source}")]
+    Threads {
+        /// Threads asked for.
+        threads: usize,
+        /// The thread pool's error.
+        source: rayon::ThreadPoolBuildError,
+    },
+
+    /// The person asked to stop (for example Ctrl-C); nothing was written.
+    #[error("the run was interrupted; nothing was written")]
+    Interrupted,
+
     // --- score: batch scoring ---
     /// Scoring of a file stopped part-way because another file failed (its temporary
     /// output was removed; the other file's error is the one reported).

@@ -55,6 +55,7 @@ pub mod demo;
 pub mod error;
 pub mod features;
 pub mod fit;
+pub mod heuristics;
 pub mod kernel;
 pub mod metrics;
 pub mod model;
@@ -62,7 +63,10 @@ pub mod modelfile;
 pub mod report;
 pub mod scale;
 pub mod score;
+pub mod settings;
 pub mod solver;
+#[doc(hidden)]
+pub mod testing;
 pub mod tune;
 
 pub use error::{Error, Result};

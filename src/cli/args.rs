@@ -2,52 +2,21 @@
 
 use std::path::PathBuf;
 
-use clap::{Args, Parser, Subcommand, ValueEnum};
+use clap::{Args, ValueEnum};
 
 use crate::data::{ColumnSelection, CsvOptions, MissingPolicy};
 use crate::error::{Error, Result};
 use crate::features::{FourierVariant, Landmarks, MapKind, MapSpec};
 use crate::fit::FitOptions;
 use crate::kernel::KernelKind;
+use crate::settings::defaults;
 use crate::solver::blocks::Method;
 use crate::solver::dcd::Loss;
 
-const ABOUT: &str =
-    "Fit non-linear epsilon-insensitive support vector regression on tables larger \
-than memory (Parquet or CSV), through random Fourier, orthogonal or Nyström features.";
-
-/// kernlake: non-linear epsilon-SVR for data lakes.
-#[derive(Debug, Parser)]
-#[command(name = "kernlake", version, about = ABOUT, after_help = super::SAFETY, args_override_self = true)]
-pub struct Cli {
-    /// No progress bars or notes; errors are still printed.
-    #[arg(long, short, global = true)]
-    pub quiet: bool,
-    /// What to do.
-    #[command(subcommand)]
-    pub command: Command,
-}
-
-/// The commands.
-#[derive(Debug, Subcommand)]
-pub enum Command {
-    /// Train a model on Parquet/CSV sources, streaming them block by block.
-    #[command(after_help = super::SAFETY)]
-    Fit(Box<FitArgs>),
-    /// Show a model's input columns, parameters and training report.
-    Inspect(InspectArgs),
-    /// Generate the cold-store demo data, fit on all months but the last, and report.
-    #[command(after_help = super::SAFETY)]
-    Demo(DemoArgs),
-    /// Score Parquet files with a model: one output file per input, restartable.
-    #[command(after_help = super::SAFETY)]
-    Score(super::score::ScoreArgs),
-    /// Compare the exact kernel machine with approximate ones (or a fitted model) on a
-    /// sample: accuracy, agreement and kernel error against D.
-    Audit(super::audit::AuditArgs),
-    /// Choose gamma, C, epsilon and D by validation on a random sample.
-    Tune(super::tune::TuneArgs),
-}
+/// The caution printed in `--help` and the README.
+pub const SAFETY: &str = "Predictions from a fitted model are an aid for monitoring and planning. \
+They are no substitute for protective systems, alarms or interlocks; follow your site's \
+procedures and defer to qualified engineers for any decision about equipment.";
 
 /// Kernel families on the command line.
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -197,9 +166,12 @@ pub struct ModelArgs {
     /// Feature map.
     #[arg(long, value_enum, default_value = "fourier")]
     pub map: MapArg,
-    /// Number of features D (landmarks for Nyström).
-    #[arg(long, short = 'D', default_value_t = 1024)]
+    /// The map's dimension D: mapped features (landmarks for Nyström).
+    #[arg(long = "dim", short = 'D', default_value_t = defaults::DIM)]
     pub components: usize,
+    /// Old spelling of --dim, refused with a pointer.
+    #[arg(long = "components", hide = true, value_parser = renamed("--components", "--dim"))]
+    pub old_components: Option<usize>,
     /// Fourier features as cos + random phase instead of sin/cos pairs.
     #[arg(long)]
     pub phase: bool,
@@ -223,35 +195,47 @@ pub struct ModelArgs {
     #[arg(long)]
     pub hessian_rows: Option<usize>,
     /// Largest number of passes over the data.
-    #[arg(long, default_value_t = 100)]
+    #[arg(long, default_value_t = defaults::EPOCHS)]
     pub epochs: usize,
     /// Stop when the relative duality gap is at most this.
-    #[arg(long, default_value_t = 1e-3)]
+    #[arg(long, default_value_t = defaults::TOL, allow_negative_numbers = true)]
     pub tol: f64,
     /// Dual solver: coordinate-descent sweeps over each block before the next.
-    #[arg(long, default_value_t = 3)]
+    #[arg(long, default_value_t = defaults::SWEEPS)]
     pub sweeps: usize,
     /// Seed for every random choice.
-    #[arg(long, default_value_t = 0)]
+    #[arg(long, default_value_t = defaults::SEED)]
     pub seed: u64,
-    /// Threads for reading and mapping (0 = all cores).
-    #[arg(long, default_value_t = 0)]
+    /// Threads for reading, mapping and solving (0 = one per processor; at most the
+    /// processors unless --oversubscribe).
+    #[arg(long, default_value_t = defaults::THREADS)]
     pub threads: usize,
+    /// Allow --threads above the number of processors.
+    #[arg(long)]
+    pub oversubscribe: bool,
     /// Memory for mapped blocks kept between epochs, e.g. 512MiB, 2GiB.
     #[arg(long, default_value = "1GiB", value_parser = parse_bytes)]
     pub memory: usize,
     /// Share of rows held out for validation.
-    #[arg(long, default_value_t = 0.05)]
+    #[arg(long, default_value_t = defaults::HOLDOUT, allow_negative_numbers = true)]
     pub holdout: f64,
     /// Epochs without a holdout improvement before stopping (0 = never).
-    #[arg(long, default_value_t = 3)]
+    #[arg(long, default_value_t = defaults::PATIENCE)]
     pub patience: usize,
     /// Rows per block.
-    #[arg(long, default_value_t = 16_384)]
+    #[arg(long, default_value_t = defaults::BLOCK_ROWS)]
     pub block_rows: usize,
     /// Rows in the random sample (bandwidth, landmarks, noise estimate).
-    #[arg(long, default_value_t = 10_000)]
+    #[arg(long, default_value_t = defaults::SAMPLE)]
     pub sample: usize,
+}
+
+/// A value parser for a flag that was renamed: always refuses, naming the new flag.
+pub fn renamed(
+    old: &'static str,
+    new: &'static str,
+) -> impl Fn(&str) -> std::result::Result<usize, String> + Clone + Send + Sync + 'static {
+    move |_| Err(format!("{old} was renamed; use {new}"))
 }
 
 /// `kernlake inspect`.
@@ -279,8 +263,8 @@ pub struct DemoArgs {
     /// Seed for the data and the fit.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
-    /// Number of features D.
-    #[arg(long, short = 'D', default_value_t = 512)]
+    /// The map's dimension D.
+    #[arg(long = "dim", short = 'D', default_value_t = 512)]
     pub components: usize,
     /// Largest number of passes over the data.
     #[arg(long, default_value_t = 30)]
@@ -346,15 +330,9 @@ impl SourceArgs {
 }
 
 impl ModelArgs {
-    /// Resolves the flags into validated fit options.
+    /// Resolves the flags into validated fit options (before any data is read).
     pub fn options(&self) -> Result<FitOptions> {
         let kernel: KernelKind = self.kernel.into();
-        if !(0.0..=0.5).contains(&self.holdout) {
-            return Err(Error::invalid(
-                "--holdout",
-                format!("must be between 0 and 0.5, got {}", self.holdout),
-            ));
-        }
         let map = map_spec(
             self.map,
             self.components,
@@ -362,7 +340,7 @@ impl ModelArgs {
             self.kmeans,
             self.seed,
         );
-        Ok(FitOptions {
+        FitOptions {
             kernel,
             gamma: self.gamma,
             map,
@@ -381,11 +359,13 @@ impl ModelArgs {
             shrinking: true,
             seed: self.seed,
             threads: self.threads,
+            oversubscribe: self.oversubscribe,
             block_rows: self.block_rows,
             memory_bytes: self.memory,
             holdout: self.holdout,
             patience: self.patience,
             sample_rows: self.sample,
-        })
+        }
+        .validated()
     }
 }

@@ -129,6 +129,6 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     );
     println!("  {:<22} {}", "scores written to", scores_dir.display());
     println!();
-    println!("{}", super::SAFETY);
+    println!("{}", super::args::SAFETY);
     Ok(0)
 }

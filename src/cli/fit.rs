@@ -11,6 +11,7 @@ use super::progress::{rows_bar, EpochBars};
 
 /// Runs `kernlake fit`.
 pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
+    // Every setting is checked before any file is opened.
     let opts = a.model.options()?;
     let csv = a.src.csv()?;
     let files = discover(&a.src.sources)?;
@@ -35,8 +36,10 @@ pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
     survey_bar.finish_and_clear();
     model.save(&a.out)?;
     if let Some(path) = &a.report {
-        let mut doc = serde_json::to_value(&model.report)
-            .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))?;
+        let mut doc = serde_json::to_value(&model.report).map_err(|source| Error::Encode {
+            what: "the training report",
+            source,
+        })?;
         doc["seconds"] = serde_json::json!(model.report.seconds);
         doc["threads"] = serde_json::json!(model.report.threads);
         doc["epoch_seconds"] = serde_json::json!(model
@@ -45,8 +48,10 @@ pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
             .iter()
             .map(|r| r.seconds)
             .collect::<Vec<_>>());
-        let json = serde_json::to_vec_pretty(&doc)
-            .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))?;
+        let json = serde_json::to_vec_pretty(&doc).map_err(|source| Error::Encode {
+            what: "the training report",
+            source,
+        })?;
         write_atomic(path, |f| {
             std::io::Write::write_all(f, &json).map_err(|e| Error::io(path, e))
         })?;

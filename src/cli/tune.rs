@@ -15,7 +15,8 @@ use crate::kernel::KernelKind;
 use crate::solver::dcd::Loss;
 use crate::tune::{heatmap_svg, render_tune, tune, TuneOptions, TuneReport, Validation};
 
-use super::args::{Cli, Command, KernelArg, MapArg, SourceArgs};
+use super::args::{KernelArg, MapArg, SourceArgs};
+use super::{Cli, Command};
 use super::progress::rows_bar;
 
 /// `kernlake tune`.

@@ -81,11 +81,14 @@ impl BottomK {
         }
     }
 
-    /// Row ids in increasing order and their values, row-major.
-    pub(crate) fn into_sorted(self) -> (Vec<u64>, Vec<f64>) {
+    /// Row ids in the order of their keys, and their values, row-major. Keys are a
+    /// random hash of the row id, so every prefix of this order is itself a uniform
+    /// sample of all the rows offered (a bottom-k' sketch for each k' ≤ k), whatever
+    /// the order of the rows in the files.
+    pub(crate) fn into_key_order(self) -> (Vec<u64>, Vec<f64>) {
         let w = self.width;
         let mut entries = self.heap.into_vec();
-        entries.sort_unstable_by_key(|&(_, id, _)| id);
+        entries.sort_unstable_by_key(|&(key, id, _)| (key, id));
         let ids = entries.iter().map(|e| e.1).collect();
         let mut values = Vec::with_capacity(entries.len() * w);
         for &(_, _, slot) in &entries {
@@ -113,8 +116,7 @@ mod tests {
         ) {
             let mut keyed: Vec<(u64, u64)> = (0..n).map(|i| (sample_key(seed, i), i)).collect();
             keyed.sort_unstable();
-            let mut want: Vec<u64> = keyed.iter().take(k).map(|&(_, i)| i).collect();
-            want.sort_unstable();
+            let want: Vec<u64> = keyed.iter().take(k).map(|&(_, i)| i).collect();
 
             let mut bounds: Vec<u64> = cuts.into_iter().map(|c| c.min(n)).collect();
             bounds.push(0);
@@ -135,7 +137,7 @@ mod tests {
             for p in parts {
                 total.absorb(p);
             }
-            let (ids, values) = total.into_sorted();
+            let (ids, values) = total.into_key_order();
             prop_assert_eq!(&ids, &want);
             for (r, &id) in ids.iter().enumerate() {
                 prop_assert_eq!(values[2 * r], id as f64);

@@ -13,7 +13,8 @@
 //! The sample is bottom-k sampling: each kept row gets the key splitmix64(seed, global
 //! row index) and the `sample_rows` rows with the smallest keys are kept (ties broken by
 //! row index). With a random hash this is a uniform sample without replacement, and it
-//! depends neither on the batch size, the file split, nor the parallelism.
+//! depends neither on the batch size, the file split, nor the parallelism. It is returned
+//! in key order, so that any prefix is a uniform sample too.
 
 use std::sync::mpsc;
 
@@ -40,9 +41,9 @@ pub struct SurveySettings {
 impl Default for SurveySettings {
     fn default() -> Self {
         SurveySettings {
-            sample_rows: 10_000,
+            sample_rows: crate::settings::defaults::SAMPLE,
             seed: 0,
-            threads: 0,
+            threads: crate::settings::defaults::THREADS,
         }
     }
 }
@@ -83,11 +84,13 @@ pub struct Survey {
     pub rows_skipped: u64,
     /// Features whose kept values are all equal.
     pub constant_features: Vec<String>,
-    /// The sample's features (rows ordered by global row index), in raw units.
+    /// The sample's features, in raw units, in the order of the rows' sample keys: every
+    /// prefix is a uniform sample of all the kept rows (estimates may use the first
+    /// rows only without favouring the start of the data).
     pub sample_x: Array2<f64>,
     /// The sample's targets.
     pub sample_y: Option<Array1<f64>>,
-    /// Global row index of each sample row, increasing.
+    /// Global row index of each sample row, in the same order.
     pub sample_row_ids: Vec<u64>,
 }
 
@@ -218,7 +221,8 @@ fn survey_file(
 /// `progress` is called on the calling thread with the rows read so far.
 ///
 /// Errors: any read error of the files (the first in file order); [`Error::NoRows`]
-/// when no row is kept; [`Error::InvalidParameter`] when the thread pool cannot start.
+/// when no row is kept; [`Error::Overflow`] when a column's values overflow;
+/// [`Error::Threads`] when the thread pool cannot start.
 pub fn survey(
     reader: &TableReader,
     settings: &SurveySettings,
@@ -227,10 +231,7 @@ pub fn survey(
     let files = reader.selected_files();
     // learn CSV row counts first so that every file knows its global row offset
     reader.row_offsets()?;
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(settings.threads)
-        .build()
-        .map_err(|e| Error::invalid("threads", format!("no thread pool could start: {e}")))?;
+    let pool = crate::settings::thread_pool(settings.threads)?;
     let cols = reader.columns().all().count();
     let (tx, rx) = mpsc::channel::<u64>();
     let total: Result<Part> = std::thread::scope(|scope| {
@@ -280,8 +281,16 @@ pub fn survey(
             missing,
         })
         .collect();
+    if let Some(s) = stats
+        .iter()
+        .find(|s| !(s.mean.is_finite() && s.variance.is_finite()))
+    {
+        return Err(Error::Overflow {
+            column: s.name.clone(),
+        });
+    }
     let d = columns.features.len();
-    let (sample_row_ids, values) = total.sample.into_sorted();
+    let (sample_row_ids, values) = total.sample.into_key_order();
     let sample_all = Array2::from_shape_vec((sample_row_ids.len(), cols), values)
         .expect("the sample holds one value per column per row");
     let sample_x = sample_all.slice(ndarray::s![.., ..d]).to_owned();

@@ -88,6 +88,40 @@ impl Default for MapSpec {
     }
 }
 
+impl MapSpec {
+    /// Checks what the specification alone decides, before any data is read: D at least
+    /// 1, an even D for sin/cos pairs, orthogonal features only for the Gaussian kernel,
+    /// and the Nyström eigenvalue threshold in [0, 1).
+    pub fn validate(&self, kernel: KernelKind) -> Result<()> {
+        if self.components == 0 {
+            return Err(Error::invalid("dim", "the feature dimension D must be at least 1"));
+        }
+        let fourier = matches!(self.kind, MapKind::Fourier | MapKind::Orthogonal);
+        if fourier && self.variant == FourierVariant::SinCos && self.components % 2 == 1 {
+            return Err(Error::invalid(
+                "dim",
+                format!(
+                    "sin/cos pairs need an even feature dimension D, got {}",
+                    self.components
+                ),
+            ));
+        }
+        if self.kind == MapKind::Orthogonal && kernel != KernelKind::Gaussian {
+            return Err(Error::invalid(
+                "map",
+                "orthogonal random features exist for the Gaussian kernel only; use the fourier or nystrom map",
+            ));
+        }
+        if !(0.0..1.0).contains(&self.eig_threshold) {
+            return Err(Error::invalid(
+                "eigenvalue threshold",
+                format!("must be in [0, 1), got {}", self.eig_threshold),
+            ));
+        }
+        Ok(())
+    }
+}
+
 /// The saved form of a feature map: a kind tag, scalar settings as JSON, and named
 /// arrays. A model file stores exactly this, and [`map_from_parts`] rebuilds the map
 /// from it bit for bit.
@@ -147,6 +181,7 @@ pub fn build_map(
     input_dim: usize,
     sample: Option<ArrayView2<f64>>,
 ) -> Result<Box<dyn FeatureMap>> {
+    spec.validate(kernel.kind)?;
     Ok(match spec.kind {
         MapKind::Fourier => Box::new(FourierMap::new(
             kernel,
@@ -222,12 +257,10 @@ pub(crate) const BLOCK_BYTES: usize = 128 * 1024;
 /// of one parallel chunk (16 to 256; 64 from D = 256 up) times a panel of at most
 /// [`PANEL_COLS`] columns, about [`BLOCK_BYTES`] in all. The product writes one block and
 /// the cosine pass runs over it at once, while the block, the panel of frequencies it was
-/// made from and the product's packing buffers are all still in the level-2 cache (1 MiB
-/// a core on the machine the targets were measured on). Whole rows of D = 4,096 values
-/// did not stay there beside the 640 KiB frequency matrix (chunks of 16 rows × 512 KiB),
-/// and 64-row chunks let the product pack each panel of W once per 64 rows instead of
-/// once per 16. Blocks of 64 × 256 to 128 × 256 and 64 × 512 measured alike; wider
-/// blocks of whole rows at D = 4,096 and 16-row chunks were slower.
+/// made from and the product's packing buffers are all still in a level-2 cache of about
+/// 1 MiB a core: whole rows of D = 4,096 values would not stay there beside a 640 KiB
+/// frequency matrix, and 64-row chunks let the product pack each panel of W once per 64
+/// rows instead of once per 16.
 pub(crate) fn panel_layout(output_dim: usize) -> (usize, usize) {
     let cols = output_dim.clamp(1, PANEL_COLS);
     ((BLOCK_BYTES / (8 * cols)).clamp(16, 256), cols)

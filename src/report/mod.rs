@@ -38,6 +38,10 @@ pub struct TrainingReport {
     pub rows_trained: u64,
     /// Rows held out for validation.
     pub rows_holdout: u64,
+    /// Holdout rows kept in memory for the metrics and the coverage threshold (a seeded
+    /// sample of at most about 100,000 by row hash).
+    #[serde(default)]
+    pub holdout_kept: u64,
     /// Rows skipped for missing values.
     pub rows_skipped: u64,
     /// Skips per column (a row can count in several columns).

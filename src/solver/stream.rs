@@ -11,11 +11,11 @@
 //! memory. The solver visits the blocks on the calling thread in the order it asks for,
 //! so whatever it accumulates is the same whatever the number of threads.
 
-use std::borrow::Cow;
+use std::ops::ControlFlow;
 use std::sync::mpsc::sync_channel;
 use std::sync::Arc;
 
-use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2};
+use ndarray::{s, Array1, Array2, ArrayView1};
 
 use crate::data::Block;
 use crate::error::{Error, Result};
@@ -23,264 +23,20 @@ use crate::features::FeatureMap;
 use crate::metrics::{Metrics, MetricsAccumulator};
 use crate::scale::Standardizer;
 
-/// Where the trainer's rows come from: a list of units read in any order, each yielding
-/// raw blocks (unstandardized inputs and target, stable global row ids).
-pub trait BlockSource: Sync {
-    /// Number of units (files, or slices of an array).
-    fn units(&self) -> usize;
+use super::cache::{HoldoutRows, PassCache};
+use super::rows::{piece_rows, MappedBlock, TrainRows};
+pub(crate) use super::rows::BlockRows;
+pub(crate) use super::source::row_unit;
+use super::source::{is_holdout, BlockSource, Flow};
 
-    /// Reads one unit, handing each of its blocks to `sink` in order.
-    fn read_unit(&self, unit: usize, sink: &mut dyn FnMut(Block) -> Result<()>) -> Result<()>;
-}
-
-/// An in-memory table as a [`BlockSource`]: unit `u` holds rows
-/// `u·block_rows .. (u+1)·block_rows`, one block per unit, with row ids equal to row
-/// positions.
-#[derive(Debug, Clone, Copy)]
-pub struct ArraySource<'a> {
-    x: ArrayView2<'a, f64>,
-    y: ArrayView1<'a, f64>,
-    block_rows: usize,
-}
-
-impl<'a> ArraySource<'a> {
-    /// Wraps `x` (rows × inputs) and `y`.
-    ///
-    /// # Panics
-    /// If `x` and `y` differ in rows or `block_rows` is zero.
-    pub fn new(x: ArrayView2<'a, f64>, y: ArrayView1<'a, f64>, block_rows: usize) -> Self {
-        assert_eq!(x.nrows(), y.len(), "x and y differ in rows");
-        assert!(block_rows > 0, "block_rows must be positive");
-        ArraySource { x, y, block_rows }
-    }
-}
-
-impl BlockSource for ArraySource<'_> {
-    fn units(&self) -> usize {
-        self.x.nrows().div_ceil(self.block_rows)
-    }
-
-    fn read_unit(&self, unit: usize, sink: &mut dyn FnMut(Block) -> Result<()>) -> Result<()> {
-        let lo = unit * self.block_rows;
-        let hi = (lo + self.block_rows).min(self.x.nrows());
-        sink(Block {
-            seq: unit as u64,
-            file_index: 0,
-            first_row: lo as u64,
-            rows: hi - lo,
-            row_ids: (lo as u64..hi as u64).collect(),
-            x: self.x.slice(s![lo..hi, ..]).to_owned(),
-            y: Some(self.y.slice(s![lo..hi]).to_owned()),
-            skipped: Vec::new(),
-        })
-    }
-}
-
-/// Target centring and scaling used inside the solver.
-#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
-pub struct TargetScale {
-    /// Mean of the training target.
-    pub mean: f64,
-    /// Population standard deviation (1 when the target is constant).
-    pub sd: f64,
-}
-
-/// Upper bound on the bytes of one mapped piece of a block.
-const PIECE_BYTES: usize = 32 << 20;
-
-/// Rows of a mapped piece for `dim` features: as many as fit in `PIECE_BYTES`, rounded
-/// down to a multiple of 1,024 (the Newton solver's chunk, so that splitting a block into
-/// pieces keeps its chunk boundaries), at least 1,024. Training maps its blocks in pieces
-/// of this size, so that the mapped rows in flight stay small whatever the files' batches.
-pub fn piece_rows(dim: usize) -> usize {
-    (PIECE_BYTES / (8 * dim.max(1)) / 1024).max(1) * 1024
-}
-
-/// Is global row `row` in the holdout? A hash of the row id, fixed for the whole run.
-pub fn is_holdout(row: u64, seed: u64, share: f64) -> bool {
-    share > 0.0 && row_unit(row, seed) < share
-}
-
-/// A number in [0, 1) fixed by the row id and the seed, uniform over rows (splitmix64
-/// finalizer, Steele, Lea & Flood, OOPSLA 2014): row subsets drawn from it are the same
-/// whatever the block layout or the number of threads.
-pub(crate) fn row_unit(row: u64, seed: u64) -> f64 {
-    let mut z = row ^ seed.rotate_left(17) ^ 0x9E37_79B9_7F4A_7C15;
-    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-    z ^= z >> 31;
-    (z >> 11) as f64 / (1u64 << 53) as f64
-}
-
-/// The training rows of a streamed block: mapped, or standardized inputs that the visitor
-/// maps itself, a few rows at a time while they are in cache (see [`Streamer::lazy`]).
-pub(crate) enum TrainRows {
-    /// Mapped rows (rows × D).
-    Mapped(Array2<f64>),
-    /// Standardized inputs (rows × inputs), not yet mapped.
-    Inputs(Array2<f64>),
-}
-
-/// A block's training rows as a visitor reads them: mapped, or inputs with the map that
-/// maps them.
-#[derive(Clone, Copy)]
-pub(crate) enum BlockRows<'a> {
-    /// Mapped rows (rows × D).
-    Mapped(ArrayView2<'a, f64>),
-    /// Standardized inputs and the feature map.
-    Inputs {
-        /// Standardized inputs (rows × inputs).
-        x: ArrayView2<'a, f64>,
-        /// The map into the feature space.
-        map: &'a dyn FeatureMap,
-    },
-}
-
-impl<'a> BlockRows<'a> {
-    /// Rows held.
-    pub fn nrows(&self) -> usize {
-        match self {
-            BlockRows::Mapped(z) => z.nrows(),
-            BlockRows::Inputs { x, .. } => x.nrows(),
-        }
-    }
-
-    /// Features D of the mapped rows.
-    pub fn dim(&self) -> usize {
-        match self {
-            BlockRows::Mapped(z) => z.ncols(),
-            BlockRows::Inputs { map, .. } => map.output_dim(),
-        }
-    }
-
-    /// Rows `lo..hi`.
-    pub fn slice(&self, lo: usize, hi: usize) -> BlockRows<'a> {
-        match *self {
-            BlockRows::Mapped(z) => BlockRows::Mapped(z.slice_move(s![lo..hi, ..])),
-            BlockRows::Inputs { x, map } => BlockRows::Inputs {
-                x: x.slice_move(s![lo..hi, ..]),
-                map,
-            },
-        }
-    }
-}
-
-/// A block after standardization (and mapping, unless left to the visitor), split into
-/// training and holdout rows.
-pub(crate) struct MappedBlock {
-    /// Training rows.
-    pub z: TrainRows,
-    /// Standardized targets of the training rows.
-    pub y: Array1<f64>,
-    /// Global row ids of the training rows.
-    pub rows: Vec<usize>,
-    hold_x: Array2<f64>,
-    hold_y: Array1<f64>,
-    /// Rows read (training and holdout).
-    pub read_rows: u64,
-}
-
-impl MappedBlock {
-    fn bytes(&self) -> usize {
-        let z = match &self.z {
-            TrainRows::Mapped(z) | TrainRows::Inputs(z) => z.len(),
-        };
-        (z + self.y.len() + self.rows.len() + self.hold_x.len() + self.hold_y.len()) * 8
-    }
-
-    /// Whether the training rows are mapped (only mapped blocks stay resident).
-    fn is_mapped(&self) -> bool {
-        matches!(self.z, TrainRows::Mapped(_))
-    }
-
-    /// The mapped training rows, mapped now on `streamer`'s pool if the stream left that
-    /// to the visitor.
-    pub fn mapped(&self, streamer: &Streamer) -> Cow<'_, Array2<f64>> {
-        match &self.z {
-            TrainRows::Mapped(z) => Cow::Borrowed(z),
-            TrainRows::Inputs(x) => {
-                Cow::Owned(streamer.pool.install(|| streamer.map.transform(x.view())))
-            }
-        }
-    }
-
-    /// The training rows as a visitor reads them.
-    pub fn rows_view<'a>(&'a self, map: &'a dyn FeatureMap) -> BlockRows<'a> {
-        match &self.z {
-            TrainRows::Mapped(z) => BlockRows::Mapped(z.view()),
-            TrainRows::Inputs(x) => BlockRows::Inputs { x: x.view(), map },
-        }
-    }
-}
-
-/// What the passes keep between epochs: the resident mapped blocks, the holdout rows and
-/// the row counts seen on the first pass.
-pub(crate) struct PassCache {
-    resident: Vec<Option<Vec<Arc<MappedBlock>>>>,
-    resident_bytes: usize,
-    budget: usize,
-    holdout_x: Vec<Array2<f64>>,
-    holdout_y: Vec<f64>,
-    /// Training rows (first pass).
-    pub rows_trained: u64,
-    /// Rows read, training and holdout (first pass).
-    pub rows_read: u64,
-    passes: usize,
-}
-
-impl PassCache {
-    /// An empty cache for `units` units and a budget of `budget` bytes.
-    pub fn new(units: usize, budget: usize) -> Self {
-        PassCache {
-            resident: (0..units).map(|_| None).collect(),
-            resident_bytes: 0,
-            budget,
-            holdout_x: Vec::new(),
-            holdout_y: Vec::new(),
-            rows_trained: 0,
-            rows_read: 0,
-            passes: 0,
-        }
-    }
-
-    /// Up to `max` standardized holdout input rows, spread evenly over the holdout (for
-    /// choosing thresholds on rows the solver never saw); `None` without a holdout.
-    pub fn holdout_inputs(&self, max: usize) -> Option<Array2<f64>> {
-        let total: usize = self.holdout_x.iter().map(|x| x.nrows()).sum();
-        if total == 0 || max == 0 {
-            return None;
-        }
-        let d = self.holdout_x.iter().map(|x| x.ncols()).max().unwrap_or(0);
-        let step = total.div_ceil(max);
-        let mut out = Array2::zeros((total.div_ceil(step), d));
-        let mut k = 0;
-        let mut i = 0;
-        for x in &self.holdout_x {
-            for row in x.rows() {
-                if i % step == 0 {
-                    out.row_mut(k).assign(&row);
-                    k += 1;
-                }
-                i += 1;
-            }
-        }
-        Some(out.slice(ndarray::s![..k, ..]).to_owned())
-    }
-
-    /// Passes run so far.
-    pub fn passes(&self) -> usize {
-        self.passes
-    }
-
-    /// Rows held out (known after the first pass).
-    pub fn holdout_rows(&self) -> u64 {
-        self.holdout_y.len() as u64
-    }
-}
+/// Salt of the hash that chooses which holdout rows are kept (independent of the hash
+/// that chooses the holdout itself).
+const KEEP_SALT: u64 = 0x6b65_6570_686f_6c64;
 
 /// A message from the reading thread to the solver.
 enum Msg {
     Block(Box<MappedBlock>),
+    Holdout(HoldoutRows),
     UnitEnd,
     Failed(Error),
 }
@@ -292,6 +48,8 @@ pub(crate) struct Streamer<'a> {
     pub mean: f64,
     pub sd: f64,
     pub holdout: f64,
+    /// Share of the holdout rows kept for metrics (a seeded sample by row hash).
+    pub holdout_keep: f64,
     pub seed: u64,
     pub epsilon: f64,
     pub pool: &'a rayon::ThreadPool,
@@ -303,28 +61,31 @@ pub(crate) struct Streamer<'a> {
 }
 
 impl Streamer<'_> {
-    /// Standardizes and splits one raw block, then maps its training rows piece by piece,
-    /// handing each mapped piece to `emit` as soon as it is ready.
-    /// `map_now(bytes)` says whether a piece whose mapped rows take `bytes` is mapped here
-    /// (always, unless the stream is lazy).
+    /// Standardizes and splits one raw block, sends its kept holdout rows, then maps its
+    /// training rows piece by piece, sending each mapped piece as soon as it is ready;
+    /// stops when `send` says so. `map_now(bytes)` says whether a piece whose mapped rows
+    /// take `bytes` is mapped here (always, unless the stream is lazy).
     fn prepare(
         &self,
         mut b: Block,
         map_now: &mut dyn FnMut(usize) -> bool,
-        emit: &mut dyn FnMut(MappedBlock) -> Result<()>,
-    ) -> Result<()> {
-        let y_raw = b
-            .y
-            .take()
-            .ok_or_else(|| Error::NoRows("the training data has no target column".to_string()))?;
+        send: &mut dyn FnMut(Msg) -> Flow,
+    ) -> Result<Flow> {
+        let y_raw = b.y.take().ok_or(Error::NoTarget)?;
         self.scaler.apply(b.x.view_mut());
-        let hold: Vec<bool> = b
+        // 0: training row, 1: holdout row not kept, 2: holdout row kept.
+        let hold: Vec<u8> = b
             .row_ids
             .iter()
-            .map(|&r| is_holdout(r, self.seed, self.holdout))
+            .map(|&r| match is_holdout(r, self.seed, self.holdout) {
+                false => 0,
+                true if row_unit(r, self.seed ^ KEEP_SALT) < self.holdout_keep => 2,
+                true => 1,
+            })
             .collect();
-        let n_hold = hold.iter().filter(|&&h| h).count();
-        let n_train = hold.len() - n_hold;
+        let n_seen = hold.iter().filter(|&&h| h > 0).count();
+        let n_hold = hold.iter().filter(|&&h| h == 2).count();
+        let n_train = hold.len() - n_seen;
         let d = b.x.ncols();
         let mut xt = Array2::zeros((n_train, d));
         let mut hold_x = Array2::zeros((n_hold, d));
@@ -333,11 +94,11 @@ impl Streamer<'_> {
         let mut rows = Vec::with_capacity(n_train);
         let (mut it, mut ih) = (0, 0);
         for (i, &h) in hold.iter().enumerate() {
-            if h {
+            if h == 2 {
                 hold_x.row_mut(ih).assign(&b.x.row(i));
                 hold_y[ih] = y_raw[i];
                 ih += 1;
-            } else {
+            } else if h == 0 {
                 xt.row_mut(it).assign(&b.x.row(i));
                 y[it] = (y_raw[i] - self.mean) / self.sd;
                 rows.push(b.row_ids[i] as usize);
@@ -350,7 +111,14 @@ impl Streamer<'_> {
         let dim = self.map.output_dim();
         let piece = piece_rows(dim);
         let pieces = n_train.div_ceil(piece).max(1);
-        let (mut hold_x, mut hold_y) = (Some(hold_x), Some(hold_y));
+        let held = HoldoutRows {
+            x: hold_x,
+            y: hold_y,
+            seen: n_seen as u64,
+        };
+        if send(Msg::Holdout(held)).is_break() {
+            return Ok(ControlFlow::Break(()));
+        }
         for k in 0..pieces {
             let lo = k * piece;
             let hi = (lo + piece).min(n_train);
@@ -365,12 +133,10 @@ impl Streamer<'_> {
                 TrainRows::Inputs(xt.slice(s![lo..hi, ..]).to_owned())
             };
             let last = k + 1 == pieces;
-            emit(MappedBlock {
+            let block = MappedBlock {
                 z,
                 y: y.slice(s![lo..hi]).to_owned(),
                 rows: rows[lo..hi].to_vec(),
-                hold_x: hold_x.take().unwrap_or_else(|| Array2::zeros((0, d))),
-                hold_y: hold_y.take().unwrap_or_else(|| Array1::zeros(0)),
                 // Rows read: each piece its training rows; the last also the holdout and
                 // skipped rows, so the pieces add up to the batch.
                 read_rows: if last {
@@ -378,9 +144,12 @@ impl Streamer<'_> {
                 } else {
                     (hi - lo) as u64
                 },
-            })?;
+            };
+            if send(Msg::Block(Box::new(block))).is_break() {
+                return Ok(ControlFlow::Break(()));
+            }
         }
-        Ok(())
+        Ok(ControlFlow::Continue(()))
     }
 
     /// One pass: visits every block of the units in `order`, resident ones from memory
@@ -423,16 +192,22 @@ impl Streamer<'_> {
                         }
                         keep
                     };
+                    // A failed send means the solver has stopped listening (it finished
+                    // early or failed): the signal to stop reading, not an error here.
+                    let mut send = |m: Msg| match tx.send(m) {
+                        Ok(()) => ControlFlow::Continue(()),
+                        Err(_) => ControlFlow::Break(()),
+                    };
                     for &u in to_read {
-                        let mut sink = |b: Block| -> Result<()> {
-                            self.prepare(b, &mut map_now, &mut |mb| {
-                                tx.send(Msg::Block(Box::new(mb)))
-                                    .map_err(|_| Error::Numerical("training stopped".into()))
-                            })
+                        let mut stopped = false;
+                        let mut sink = |b: Block| -> Result<Flow> {
+                            let flow = self.prepare(b, &mut map_now, &mut send)?;
+                            stopped |= flow.is_break();
+                            Ok(flow)
                         };
                         match source.read_unit(u, &mut sink) {
                             Ok(()) => {
-                                if tx.send(Msg::UnitEnd).is_err() {
+                                if stopped || send(Msg::UnitEnd).is_break() {
                                     return;
                                 }
                             }
@@ -459,24 +234,26 @@ impl Streamer<'_> {
                     loop {
                         let next = match rx.recv() {
                             Ok(Msg::Block(mb)) => Arc::new(*mb),
+                            Ok(Msg::Holdout(h)) => {
+                                if first {
+                                    cache.keep_holdout(h);
+                                }
+                                continue;
+                            }
                             Ok(Msg::UnitEnd) => break,
                             Ok(Msg::Failed(e)) => return Err(e),
-                            Err(_) => {
-                                return Err(Error::Numerical(
-                                    "the reading thread stopped unexpectedly".into(),
-                                ))
-                            }
+                            // The reader ends every unit it starts unless it panicked;
+                            // its panic is resumed below.
+                            Err(_) => return Ok(()),
                         };
                         visit(&next)?;
                         rows_done(next.read_rows);
                         if first {
                             cache.rows_trained += next.rows.len() as u64;
                             cache.rows_read += next.read_rows;
-                            cache.holdout_x.push(next.hold_x.clone());
-                            cache.holdout_y.extend(next.hold_y.iter());
                         }
                         let b = next.bytes();
-                        if fits && next.is_mapped() && cache.resident_bytes + b <= cache.budget {
+                        if fits && next.is_mapped() && cache.room_for(b) {
                             cache.resident_bytes += b;
                             kept.push(next);
                         } else if fits {
@@ -493,7 +270,9 @@ impl Streamer<'_> {
                 Ok(())
             })();
             drop(rx);
-            producer.join().expect("the reading thread panicked");
+            if let Err(panic) = producer.join() {
+                std::panic::resume_unwind(panic);
+            }
             result
         })?;
         if first && cache.rows_trained == 0 {

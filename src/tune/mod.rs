@@ -38,14 +38,13 @@
 //!   worse on validation, for a quarter of the time; with the dual solver (2,000 rows)
 //!   the winner was 4% worse.
 
-mod defaults;
 mod halving;
 mod heatmap;
 mod options;
 mod report;
 mod search;
 
-pub use defaults::{cherkassky_ma, knn_noise_sd, median_gamma, Defaults};
+pub use crate::heuristics::{cherkassky_ma, knn_noise_sd, median_gamma, Defaults};
 pub use halving::rung_budgets;
 pub use heatmap::heatmap_svg;
 pub use options::{TuneOptions, Validation};

@@ -5,7 +5,7 @@ use std::fmt::Write;
 
 use serde::{Deserialize, Serialize};
 
-use super::defaults::Defaults;
+use crate::heuristics::Defaults;
 use super::options::Validation;
 
 /// One candidate's outcome.

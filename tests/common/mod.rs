@@ -7,8 +7,6 @@ use std::sync::Arc;
 use arrow_array::{ArrayRef, Float64Array, RecordBatch};
 use arrow_schema::{DataType, Field, Schema};
 use ndarray::{Array1, Array2};
-use rand::{Rng, SeedableRng};
-use rand_chacha::ChaCha8Rng;
 
 /// The folder of the committed open datasets.
 pub fn data_dir() -> PathBuf {
@@ -52,23 +50,10 @@ pub fn ccpp_rows() -> Vec<[f64; 5]> {
         .collect()
 }
 
-/// Friedman #1 (published: Friedman, Annals of Statistics 19 (1991), eq. for "#1"):
-/// x ~ U[0,1]^10, f = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5, y = f + N(0,1).
-/// Returns (x, noisy y, noise-free f).
+/// Friedman #1 (published: Friedman, Annals of Statistics 19 (1991)): the project's one
+/// generator. Returns (x, noisy y, noise-free f).
 pub fn friedman1(n: usize, seed: u64) -> (Array2<f64>, Array1<f64>, Array1<f64>) {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let x = Array2::from_shape_fn((n, 10), |_| rng.random::<f64>());
-    let f = Array1::from_shape_fn(n, |i| {
-        let r = x.row(i);
-        10.0 * (std::f64::consts::PI * r[0] * r[1]).sin()
-            + 20.0 * (r[2] - 0.5).powi(2)
-            + 10.0 * r[3]
-            + 5.0 * r[4]
-    });
-    let noise: Array1<f64> =
-        Array1::from_shape_fn(n, |_| rng.sample::<f64, _>(rand_distr::StandardNormal));
-    let y = &f + &noise;
-    (x, y, f)
+    kernlake::testing::friedman1(n, seed)
 }
 
 /// Writes named Float64 columns to one Parquet file (snappy, as the demo does).

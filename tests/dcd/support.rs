@@ -59,20 +59,10 @@ pub fn rff(x: ArrayView2<f64>, dim: usize, seed: u64) -> Array2<f64> {
     z
 }
 
-/// Friedman #1 (Friedman, Annals of Statistics 1991): x ~ U[0,1]^10,
-/// y = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5 + N(0,1).
+/// Friedman #1 (published: Friedman, Annals of Statistics 1991), the project's one
+/// generator: (x, noisy y).
 pub fn friedman1(n: usize, seed: u64) -> (Array2<f64>, Array1<f64>) {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let x = Array2::from_shape_fn((n, 10), |_| rng.random::<f64>());
-    let noise = Normal::new(0.0, 1.0).unwrap();
-    let y = Array1::from_shape_fn(n, |i| {
-        let r = x.row(i);
-        10.0 * (std::f64::consts::PI * r[0] * r[1]).sin()
-            + 20.0 * (r[2] - 0.5).powi(2)
-            + 10.0 * r[3]
-            + 5.0 * r[4]
-            + noise.sample(&mut rng)
-    });
+    let (x, y, _) = kernlake::testing::friedman1(n, seed);
     (x, y)
 }
 

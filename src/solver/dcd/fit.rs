@@ -181,7 +181,7 @@ pub(crate) fn target_scale(z: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<Tar
 
     let mean = y.sum() / n as f64;
     let sd = (y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
-    if sd <= 4.0 * f64::EPSILON * mean.abs() || sd == 0.0 {
+    if crate::solver::source::is_constant(mean, sd) {
         let zero = Objective {
             primal: 0.0,
             dual: 0.0,

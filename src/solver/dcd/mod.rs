@@ -33,6 +33,7 @@ pub use fit::{fit, DcdFit, DcdReport};
 pub(crate) use fit::{target_scale, TargetScaling};
 pub use objective::{Objective, PrimalAccumulator};
 
+use crate::settings::defaults;
 use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
 
@@ -76,10 +77,10 @@ impl Default for DcdSettings {
             epsilon: 0.1,
             loss: Loss::L2,
             shrinking: true,
-            sweeps_per_block: 20,
-            tol: 1e-3,
-            max_epochs: 100,
-            seed: 0,
+            sweeps_per_block: defaults::SWEEPS,
+            tol: defaults::TOL,
+            max_epochs: defaults::EPOCHS,
+            seed: defaults::SEED,
         }
     }
 }
@@ -107,10 +108,10 @@ impl DcdSettings {
             ));
         }
         if self.sweeps_per_block == 0 {
-            return Err(Error::invalid("sweeps_per_block", "must be at least 1"));
+            return Err(Error::invalid("sweeps", "must be at least 1"));
         }
         if self.max_epochs == 0 {
-            return Err(Error::invalid("max_epochs", "must be at least 1"));
+            return Err(Error::invalid("epochs", "must be at least 1"));
         }
         Ok(())
     }

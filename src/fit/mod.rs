@@ -1,0 +1,313 @@
+//! The fitting front door: a builder that fits a [`Model`] on ndarray data or streams it
+//! from Parquet/CSV sources.
+
+use std::time::Instant;
+
+use ndarray::{ArrayView1, ArrayView2};
+
+use crate::coverage::Coverage;
+use crate::data::{survey, SurveySettings, TableReader};
+use crate::error::Result;
+use crate::features::{build_map, MapSpec};
+use crate::heuristics::Defaults;
+use crate::kernel::{Kernel, KernelKind};
+use crate::model::Model;
+use crate::report::{Choice, TrainingReport};
+use crate::settings::thread_pool;
+use crate::solver::blocks::{
+    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings,
+    Trainer,
+};
+use crate::solver::dcd::{DcdSettings, Loss};
+
+mod facts;
+mod options;
+
+use facts::{facts_from_arrays, facts_from_survey, Facts, FileSource};
+pub use options::{hessian_rows_for, FitOptions};
+
+/// Builder for fitting a model (arrow-rs style `with_*` methods).
+///
+/// ```no_run
+/// # use kernlake::fit::Fitter;
+/// # let (x, y) = (ndarray::Array2::<f64>::zeros((10, 2)), ndarray::Array1::<f64>::zeros(10));
+/// let model = Fitter::new().with_components(512).with_seed(7).fit(x.view(), y.view())?;
+/// # Ok::<(), kernlake::Error>(())
+/// ```
+#[derive(Clone, Debug, Default)]
+pub struct Fitter {
+    opts: FitOptions,
+}
+
+macro_rules! setter {
+    ($(#[$doc:meta] $name:ident, $field:ident : $ty:ty;)*) => {
+        $( #[$doc] pub fn $name(mut self, v: $ty) -> Self { self.opts.$field = v; self } )*
+    };
+}
+
+impl Fitter {
+    /// A builder with the defaults of [`FitOptions`].
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// A builder from complete options.
+    pub fn from_options(opts: FitOptions) -> Self {
+        Fitter { opts }
+    }
+
+    /// The options as they stand.
+    pub fn options(&self) -> &FitOptions {
+        &self.opts
+    }
+
+    setter! {
+        /// Kernel family.
+        with_kernel, kernel: KernelKind;
+        /// Feature map specification (its seed is replaced by the fit's seed).
+        with_map, map: MapSpec;
+        /// Loss beyond the tube.
+        with_loss, loss: Loss;
+        /// Solver (Newton for the squared loss by default).
+        with_method, method: Method;
+        /// Newton solver: expected rows in the Hessian's sample each pass.
+        with_hessian_rows, hessian_rows: Option<usize>;
+        /// Relative duality gap tolerance.
+        with_tol, tol: f64;
+        /// Epoch limit.
+        with_max_epochs, max_epochs: usize;
+        /// Thread count (0 = all cores).
+        with_threads, threads: usize;
+        /// Rows per block.
+        with_block_rows, block_rows: usize;
+        /// Resident-memory budget in bytes.
+        with_memory_bytes, memory_bytes: usize;
+        /// Holdout share.
+        with_holdout, holdout: f64;
+        /// DCD sweeps per block.
+        with_sweeps_per_block, sweeps_per_block: usize;
+    }
+
+    /// Kernel width gamma (see [`crate::kernel`] for the convention).
+    pub fn with_gamma(mut self, gamma: f64) -> Self {
+        self.opts.gamma = Some(gamma);
+        self
+    }
+
+    /// Penalty C in target units.
+    pub fn with_c(mut self, c: f64) -> Self {
+        self.opts.c = Some(c);
+        self
+    }
+
+    /// Tube half-width epsilon in target units.
+    pub fn with_epsilon(mut self, epsilon: f64) -> Self {
+        self.opts.epsilon = Some(epsilon);
+        self
+    }
+
+    /// Number of mapped features D.
+    pub fn with_components(mut self, d: usize) -> Self {
+        self.opts.map.components = d;
+        self
+    }
+
+    /// Seed for every random choice (the map's too).
+    pub fn with_seed(mut self, seed: u64) -> Self {
+        self.opts.seed = seed;
+        self
+    }
+
+    /// Checks every setting (see [`FitOptions::validate`]); the fits call it first.
+    pub fn validate(&self) -> Result<()> {
+        self.opts.validate()
+    }
+
+    /// Fits on in-memory rows `x` (rows × inputs, raw units) and targets `y`.
+    ///
+    /// # Panics
+    /// If `x` and `y` differ in rows.
+    pub fn fit(&self, x: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<Model> {
+        assert_eq!(x.nrows(), y.len(), "fit: x and y differ in rows");
+        self.validate()?;
+        let t0 = Instant::now();
+        let facts = facts_from_arrays(x, y, self.opts.sample_rows, self.opts.seed)?;
+        let source = ArraySource::new(x, y, self.opts.block_rows);
+        self.train(facts, &source, &Silent, t0)
+    }
+
+    /// Streams a fit over files: one survey pass (statistics, sample), then block
+    /// minimization epochs. `observer` sees progress.
+    pub fn fit_files(
+        &self,
+        reader: &TableReader,
+        observer: &dyn TrainObserver,
+        survey_progress: &dyn Fn(u64),
+    ) -> Result<Model> {
+        self.validate()?;
+        let t0 = Instant::now();
+        if observer.should_stop() {
+            return Err(crate::Error::Interrupted);
+        }
+        let settings = SurveySettings {
+            sample_rows: self.opts.sample_rows,
+            seed: self.opts.seed,
+            threads: self.opts.threads,
+        };
+        let s = survey(reader, &settings, survey_progress)?;
+        let (facts, reader) = facts_from_survey(s, reader)?;
+        let source = FileSource { reader: &reader };
+        self.train(facts, &source, observer, t0)
+    }
+
+    fn train(
+        &self,
+        facts: Facts,
+        source: &dyn BlockSource,
+        observer: &dyn TrainObserver,
+        t0: Instant,
+    ) -> Result<Model> {
+        let o = &self.opts;
+        let pool = thread_pool(o.threads)?;
+        let train_rows =
+            ((facts.rows_total - facts.rows_skipped) as f64 * (1.0 - o.holdout)) as u64;
+        let need_defaults = o.gamma.is_none() || o.c.is_none() || o.epsilon.is_none();
+        let defaults = if need_defaults {
+            Some(Defaults::from_sample(
+                facts.sample_x.view(),
+                facts.sample_y.view(),
+                facts.target.mean,
+                facts.target.sd,
+                train_rows.max(2),
+            )?)
+        } else {
+            None
+        };
+        let rule = |given: Option<f64>, default: Option<f64>, why: &str| match given {
+            Some(v) => Choice {
+                value: v,
+                source: "given".into(),
+            },
+            None => Choice {
+                value: default.unwrap_or(f64::NAN),
+                source: why.into(),
+            },
+        };
+        let gamma = rule(
+            o.gamma,
+            defaults.map(|d| d.gamma),
+            "median heuristic: 1 / median squared distance of standardized sample rows",
+        );
+        // Cherkassky & Ma's C is in target units, as C is for the linear loss. For the
+        // squared loss C multiplies squared residuals and is unit-free, so kernlake divides
+        // the rule's value by the target's standard deviation.
+        let (c_default, c_why) = match o.loss {
+            Loss::L1 => (
+                defaults.map(|d| d.c),
+                "Cherkassky & Ma (2004): max |mean ± 3 sd| of the target",
+            ),
+            Loss::L2 => (
+                defaults.map(|d| d.c / facts.target.sd),
+                "Cherkassky & Ma (2004) max |mean ± 3 sd| of the target, divided by sd for the squared loss",
+            ),
+        };
+        let c = rule(o.c, c_default, c_why);
+        let epsilon = rule(
+            o.epsilon,
+            defaults.map(|d| d.epsilon),
+            &format!(
+                "Cherkassky & Ma (2004): 3 σ √(ln n / n), noise σ ≈ {:.4} from 3-nearest-neighbour residuals",
+                defaults.map(|d| d.noise_sd).unwrap_or(f64::NAN)
+            ),
+        );
+        let kernel = Kernel::new(o.kernel, gamma.value)?;
+        let spec = MapSpec {
+            seed: o.seed,
+            ..o.map.clone()
+        };
+        let map = pool.install(|| {
+            build_map(
+                &spec,
+                kernel,
+                facts.scaler.dim(),
+                Some(facts.sample_x.view()),
+            )
+        })?;
+        let dcd = DcdSettings {
+            c: c.value,
+            epsilon: epsilon.value,
+            loss: o.loss,
+            shrinking: o.shrinking,
+            sweeps_per_block: o.sweeps_per_block,
+            tol: o.tol,
+            max_epochs: o.max_epochs,
+            seed: o.seed,
+        };
+        let settings = TrainSettings {
+            dcd: dcd.clone(),
+            method: o.method,
+            hessian_rows: o
+                .hessian_rows
+                .unwrap_or_else(|| hessian_rows_for(map.output_dim())),
+            memory_bytes: o.memory_bytes,
+            holdout: o.holdout,
+            patience: o.patience,
+            block_rows: o.block_rows,
+        };
+        let trainer = Trainer {
+            scaler: &facts.scaler,
+            map: map.as_ref(),
+            target: facts.target,
+            settings: &settings,
+            rows_total: facts.rows_total,
+            pool: &pool,
+        };
+        let out: TrainOutcome = trainer.run(source, observer)?;
+        let report = TrainingReport {
+            rows_total: facts.rows_total,
+            rows_trained: out.rows_trained,
+            rows_holdout: out.rows_holdout,
+            holdout_kept: out.holdout_kept,
+            rows_skipped: facts.rows_skipped,
+            skipped_by_column: facts.skipped_by_column,
+            constant_columns: facts.constant_columns,
+            gamma,
+            c,
+            epsilon,
+            features: map.output_dim(),
+            epochs: out.history.len(),
+            method: out.method,
+            stop: out.stop,
+            objective: out.objective,
+            holdout: out.holdout,
+            support_share: out.support_share,
+            updates: out.updates,
+            history: out.history,
+            seconds: t0.elapsed().as_secs_f64(),
+            threads: pool.current_num_threads(),
+        };
+        // The flag threshold comes from the training holdout when there is one (rows
+        // the solver never saw), else from the sample rows not used as landmarks.
+        let coverage = pool.install(|| {
+            Coverage::fit(
+                facts.sample_x.view(),
+                kernel,
+                out.holdout_inputs.as_ref().map(|h| h.view()),
+            )
+        })?;
+        let mut model = Model::new(
+            facts.columns,
+            facts.scaler,
+            kernel,
+            spec,
+            map,
+            out.weights,
+            out.intercept,
+            dcd,
+            report,
+        );
+        model.coverage = Some(coverage);
+        Ok(model)
+    }
+}
+
