@@ -13,13 +13,20 @@
 //! lets a user check on a sample that the approximation agrees with the exact machine.
 //!
 //! # Overview
-//! * [`fit::Fitter`] — the front door: fit on ndarray data or stream from files.
+//! The crate root re-exports what a program needs: [`Fitter`] and [`FitOptions`] (fit on
+//! ndarray data or stream from files found by [`discover`] and read by a
+//! [`TableReader`]), [`Model`] (predict, save, load), [`score_files`] and
+//! [`score_batch`], [`audit()`], [`tune()`], and [`defaults`] (every default, written
+//! once). The modules hold the rest:
 //! * [`data`] — Parquet/CSV sources, partitions, column choice, the survey pass.
 //! * [`kernel`] — exact kernels and the one place their parametrisation is defined.
 //! * [`features`] — the feature maps.
 //! * [`solver`] — dual coordinate descent, primal Newton, the streaming trainer, exact SMO.
-//! * [`model::Model`] — a fitted model: predict, save, load.
-//! * [`metrics`], [`report`], [`tune`] — figures, reports and data-driven defaults.
+//! * [`heuristics`] — data-driven defaults (median heuristic, Cherkassky & Ma).
+//! * [`metrics`], [`report`], [`inspect`] — figures, the training report, a model as text.
+//!
+//! Modules marked hidden in the documentation are internals that the project's own
+//! tests and benchmarks reach; they may change without notice.
 //!
 //! # Example
 //! ```
@@ -46,21 +53,27 @@
 //! procedures and qualified engineers.
 #![deny(missing_docs)]
 
+#[doc(hidden)]
 pub mod atomic;
 pub mod audit;
 pub mod cli;
+#[doc(hidden)]
 pub mod coverage;
 pub mod data;
+#[doc(hidden)]
 pub mod demo;
 pub mod error;
 pub mod features;
 pub mod fit;
 pub mod heuristics;
+pub mod inspect;
 pub mod kernel;
 pub mod metrics;
 pub mod model;
+#[doc(hidden)]
 pub mod modelfile;
 pub mod report;
+#[doc(hidden)]
 pub mod scale;
 pub mod score;
 pub mod settings;
@@ -70,3 +83,20 @@ pub mod testing;
 pub mod tune;
 
 pub use error::{Error, Result};
+
+// The entry points: what a program that fits, scores, audits or tunes needs.
+pub use audit::{audit, audit_model, AuditOptions, AuditReport};
+pub use data::{
+    discover, resolve_columns, ColumnSelection, CsvOptions, MissingPolicy, SourceFile,
+    TableReader,
+};
+pub use features::{FourierVariant, Landmarks, MapKind, MapSpec};
+pub use fit::{FitOptions, Fitter};
+pub use kernel::KernelKind;
+pub use model::Model;
+pub use report::TrainingReport;
+pub use score::{score_batch, score_files, ScoreOptions, ScoreSummary};
+pub use settings::defaults;
+pub use solver::blocks::{Method, Silent, TrainObserver};
+pub use solver::dcd::Loss;
+pub use tune::{tune, TuneOptions, TuneReport};

@@ -134,7 +134,7 @@ fn bad_parameters_and_data_are_typed_errors() {
     yn[4] = f64::INFINITY;
     assert!(matches!(
         f().fit(x.view(), yn.view()),
-        Err(Error::NonFinite { row: 4, .. })
+        Err(Error::NonFiniteTarget { row: 4 })
     ));
     let empty = Array2::<f64>::zeros((0, 10));
     let ey = Array1::<f64>::zeros(0);

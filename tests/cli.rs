@@ -136,7 +136,7 @@ fn bad_sources_fail_with_one_clear_sentence() {
     fails_with(&a, &["epsilon"]);
     let mut a = fit_args(lake_s, out_s);
     a[7] = "0";
-    fails_with(&a, &["components"]);
+    fails_with(&a, &["dim"]);
     assert!(!out.exists(), "a failed fit left a model behind");
     no_temp_files(dir.path());
 }

@@ -2,7 +2,7 @@
 
 use crate::error::{Error, Result};
 use crate::model::Model;
-use crate::report::render_model;
+use crate::inspect::render_model;
 
 use super::args::InspectArgs;
 

@@ -128,12 +128,26 @@ impl Fitter {
     /// # Panics
     /// If `x` and `y` differ in rows.
     pub fn fit(&self, x: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<Model> {
+        self.fit_observed(x, y, &Silent)
+    }
+
+    /// [`Fitter::fit`] with an observer that sees progress and may stop the run
+    /// ([`TrainObserver::should_stop`]).
+    ///
+    /// # Panics
+    /// If `x` and `y` differ in rows.
+    pub fn fit_observed(
+        &self,
+        x: ArrayView2<f64>,
+        y: ArrayView1<f64>,
+        observer: &dyn TrainObserver,
+    ) -> Result<Model> {
         assert_eq!(x.nrows(), y.len(), "fit: x and y differ in rows");
         self.validate()?;
         let t0 = Instant::now();
         let facts = facts_from_arrays(x, y, self.opts.sample_rows, self.opts.seed)?;
         let source = ArraySource::new(x, y, self.opts.block_rows);
-        self.train(facts, &source, &Silent, t0)
+        self.train(facts, &source, observer, t0)
     }
 
     /// Streams a fit over files: one survey pass (statistics, sample), then block

@@ -1,7 +1,7 @@
 //! What a run reports: the training report stored in every model, and its rendering as
 //! text for a person or JSON for a program.
 
-mod text;
+pub(crate) mod text;
 
 use serde::{Deserialize, Serialize};
 
@@ -9,7 +9,7 @@ use crate::metrics::Metrics;
 use crate::solver::blocks::{EpochRecord, Method, StopReason};
 use crate::solver::dcd::Objective;
 
-pub use text::{render_model, render_training};
+pub use text::render_training;
 
 /// Where a hyper-parameter's value came from.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]

@@ -15,7 +15,7 @@ use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
-use super::epochs::{EpochOut, PassContext, Strategy};
+use super::strategy::{EpochOut, PassContext, Strategy};
 use super::{loss_sum, objective};
 use crate::error::Result;
 use crate::solver::cache::PassCache;

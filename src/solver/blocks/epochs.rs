@@ -6,66 +6,13 @@ use ndarray::{s, Array1, ArrayView1};
 
 use super::dual::DualStrategy;
 use super::newton::NewtonStrategy;
-use super::{
-    objective, EpochRecord, Method, StopReason, TrainObserver, TrainOutcome, Trainer,
-};
-use crate::error::{Error, Result};
+use super::strategy::{PassContext, Strategy};
+use super::{objective, EpochRecord, Method, StopReason, TrainObserver, TrainOutcome, Trainer};
+use crate::error::Result;
 use crate::solver::cache::{PassCache, HOLDOUT_KEPT};
 use crate::solver::dcd::{DcdSettings, Objective};
 use crate::solver::source::BlockSource;
 use crate::solver::stream::Streamer;
-
-/// What one epoch of a solver produced.
-pub(super) struct EpochOut {
-    pub objective: Objective,
-    /// The weights `objective` certifies.
-    pub certified: Array1<f64>,
-    /// Whether `objective` may stop the run.
-    pub final_ok: bool,
-    pub updates: u64,
-    pub step: Option<f64>,
-    pub stalled: bool,
-}
-
-/// What a solver's epoch may use.
-pub(super) struct PassContext<'a> {
-    pub streamer: &'a Streamer<'a>,
-    pub source: &'a dyn BlockSource,
-    pub observer: &'a dyn TrainObserver,
-    /// Solver settings in standardized target units.
-    pub dcd: &'a DcdSettings,
-    pub pool: &'a rayon::ThreadPool,
-}
-
-impl PassContext<'_> {
-    /// Every unit, in order.
-    pub fn all_units(&self) -> Vec<usize> {
-        (0..self.source.units()).collect()
-    }
-
-    /// Fails with [`Error::Interrupted`] when the person asked to stop.
-    pub fn check_stop(&self) -> Result<()> {
-        if self.observer.should_stop() {
-            Err(Error::Interrupted)
-        } else {
-            Ok(())
-        }
-    }
-}
-
-/// One solver behind the epoch loop: a third solver is one more implementation.
-pub(super) trait Strategy {
-    /// One pass over the data; returns the epoch's figures and the blocks served from
-    /// memory.
-    fn epoch(&mut self, ctx: &PassContext, cache: &mut PassCache) -> Result<(EpochOut, usize)>;
-    /// The current weights in solver units (D + 1 entries, the last the bias).
-    fn weights(&self) -> &Array1<f64>;
-    /// A dual value that bounds the optimum, for certifying weights the solver did not
-    /// end on (a holdout stop).
-    fn dual_bound(&self, dcd: &DcdSettings) -> f64;
-    /// Share of the training rows that are support vectors.
-    fn support_share(&self, rows_trained: u64) -> f64;
-}
 
 impl Trainer<'_> {
     /// Runs the chosen solver over `source` until a stopping rule fires.

@@ -36,6 +36,7 @@ use crate::solver::dcd::{DcdSettings, Loss, Objective};
 mod dual;
 mod epochs;
 mod newton;
+mod strategy;
 
 pub use crate::solver::source::{is_holdout, ArraySource, BlockSource, Flow, TargetScale};
 pub use crate::solver::rows::piece_rows;

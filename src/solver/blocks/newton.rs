@@ -4,7 +4,7 @@
 
 use ndarray::Array1;
 
-use super::epochs::{EpochOut, PassContext, Strategy};
+use super::strategy::{EpochOut, PassContext, Strategy};
 use crate::error::Result;
 use crate::solver::cache::PassCache;
 use crate::solver::dcd::DcdSettings;
