@@ -45,11 +45,14 @@
 //! substitute for protective systems, and decisions about equipment follow site
 //! procedures and qualified engineers.
 #![deny(missing_docs)]
+#![deny(unsafe_op_in_unsafe_fn)]
+#![deny(clippy::undocumented_unsafe_blocks)]
 
 pub mod atomic;
 pub mod audit;
 pub mod cli;
 pub mod coverage;
+pub mod cpu;
 pub mod data;
 pub mod demo;
 pub mod error;
