@@ -189,10 +189,26 @@ fn run(path: CosPath, xs: &mut [f64], shift: Option<&[f64]>, scale: f64, sine: b
     let cpu = Cpu::detect().capped(path.level());
     let b = shift.unwrap_or(&[]);
     match (sine, shift.is_some()) {
-        (false, false) => cpu.run(Apply::<false, false> { xs, shift: b, scale }),
-        (false, true) => cpu.run(Apply::<false, true> { xs, shift: b, scale }),
-        (true, false) => cpu.run(Apply::<true, false> { xs, shift: b, scale }),
-        (true, true) => cpu.run(Apply::<true, true> { xs, shift: b, scale }),
+        (false, false) => cpu.run(Apply::<false, false> {
+            xs,
+            shift: b,
+            scale,
+        }),
+        (false, true) => cpu.run(Apply::<false, true> {
+            xs,
+            shift: b,
+            scale,
+        }),
+        (true, false) => cpu.run(Apply::<true, false> {
+            xs,
+            shift: b,
+            scale,
+        }),
+        (true, true) => cpu.run(Apply::<true, true> {
+            xs,
+            shift: b,
+            scale,
+        }),
     }
 }
 

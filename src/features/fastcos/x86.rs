@@ -72,7 +72,7 @@ pub(super) fn apply_avx2<const SIN: bool, const SHIFT: bool>(
         };
     }
     let mut i = 0;
-    // SAFETY (all loads and stores in the loop): every offset + 4 <= quads <= len, and
+    // SAFETY: for all loads and stores in the loop, every offset + 4 <= quads <= len, and
     // shift.len() == len when SHIFT (asserted above).
     unsafe {
         while i < quads {
@@ -181,7 +181,7 @@ pub(super) fn apply_avx512<const SIN: bool, const SHIFT: bool>(
         };
     }
     let mut i = 0;
-    // SAFETY (all loads and stores in the loop): every offset + 8 <= octs <= len, and
+    // SAFETY: for all loads and stores in the loop, every offset + 8 <= octs <= len, and
     // shift.len() == len when SHIFT (asserted above).
     unsafe {
         while i < octs {
