@@ -52,6 +52,8 @@
 //! substitute for protective systems, and decisions about equipment follow site
 //! procedures and qualified engineers.
 #![deny(missing_docs)]
+#![deny(unsafe_op_in_unsafe_fn)]
+#![deny(clippy::undocumented_unsafe_blocks)]
 
 #[doc(hidden)]
 pub mod atomic;
@@ -59,6 +61,7 @@ pub mod audit;
 pub mod cli;
 #[doc(hidden)]
 pub mod coverage;
+pub mod cpu;
 pub mod data;
 #[doc(hidden)]
 pub mod demo;

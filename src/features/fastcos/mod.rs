@@ -38,15 +38,14 @@
 //!
 //! # Code paths
 //!
-//! On x86-64 the CPU is probed once at run time (`is_x86_feature_detected!`, cached) and
+//! On x86-64 the CPU is probed once at run time ([`crate::cpu::Cpu`], cached) and
 //! the widest supported build of the same algorithm runs: AVX-512F (eight values a
-//! vector; about 1.5× faster than AVX2 per value where measured, an AMD EPYC of the
-//! Zen 4 family), else AVX2 with FMA, else a generic build. The two SIMD paths perform the
+//! vector), else AVX2 with FMA, else a generic build. The two SIMD paths perform the
 //! same correctly rounded operations (fused multiply–adds included) lane by lane, so they
 //! agree bit for bit (tested); the generic path, without fused multiply–adds, may differ
 //! in the last bit. On one machine the choice is fixed, so results are reproducible.
 
-use std::sync::atomic::{AtomicU8, Ordering};
+use crate::cpu::{Cpu, Kernel, Level};
 
 #[cfg(target_arch = "x86_64")]
 mod x86;
@@ -83,45 +82,29 @@ const SIN_P: [f64; 8] = [
     f64::from_bits(0x3CE8_9A48_2F31_D76C),
 ];
 
-static DETECTED: AtomicU8 = AtomicU8::new(0);
+impl CosPath {
+    /// The CPU level this path needs.
+    fn level(self) -> Level {
+        match self {
+            CosPath::Generic => Level::Generic,
+            CosPath::Avx2Fma => Level::Avx2Fma,
+            CosPath::Avx512 => Level::Avx512,
+        }
+    }
+}
 
 /// The code path this CPU uses (detected on first call, then cached).
 pub fn detected_path() -> CosPath {
-    match DETECTED.load(Ordering::Relaxed) {
-        1 => CosPath::Generic,
-        2 => CosPath::Avx2Fma,
-        3 => CosPath::Avx512,
-        _ => {
-            let path = [CosPath::Avx512, CosPath::Avx2Fma]
-                .into_iter()
-                .find(|p| path_supported(*p))
-                .unwrap_or(CosPath::Generic);
-            let code = match path {
-                CosPath::Generic => 1,
-                CosPath::Avx2Fma => 2,
-                CosPath::Avx512 => 3,
-            };
-            DETECTED.store(code, Ordering::Relaxed);
-            path
-        }
+    match Cpu::detect().level() {
+        Level::Avx512 => CosPath::Avx512,
+        Level::Avx2Fma => CosPath::Avx2Fma,
+        Level::Avx2 | Level::Generic => CosPath::Generic,
     }
 }
 
 /// Whether this CPU can run `path` (the generic path runs everywhere).
 pub fn path_supported(path: CosPath) -> bool {
-    #[cfg(target_arch = "x86_64")]
-    {
-        let avx2 = is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma");
-        match path {
-            CosPath::Generic => true,
-            CosPath::Avx2Fma => avx2,
-            CosPath::Avx512 => avx2 && is_x86_feature_detected!("avx512f"),
-        }
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    {
-        path == CosPath::Generic
-    }
+    Cpu::detect().level() >= path.level()
 }
 
 /// Replaces every `x` in `xs` by `scale·cos(x)`.
@@ -200,35 +183,60 @@ fn check_path(path: CosPath) {
 }
 
 /// Dispatches on the code path, the function and the presence of shifts (`shift`, when
-/// given, has as many values as `xs`: checked by the callers).
+/// given, has as many values as `xs`: checked by the callers; `path` is supported:
+/// checked by the callers or detected).
 fn run(path: CosPath, xs: &mut [f64], shift: Option<&[f64]>, scale: f64, sine: bool) {
+    let cpu = Cpu::detect().capped(path.level());
     let b = shift.unwrap_or(&[]);
-    match (path, sine, shift.is_some()) {
-        #[cfg(target_arch = "x86_64")]
-        // SAFETY (eight arms): a SIMD path is only chosen when `path_supported` holds.
-        (CosPath::Avx512, false, false) => unsafe {
-            x86::apply_avx512::<false, false>(xs, b, scale)
-        },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx512, false, true) => unsafe { x86::apply_avx512::<false, true>(xs, b, scale) },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx512, true, false) => unsafe { x86::apply_avx512::<true, false>(xs, b, scale) },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx512, true, true) => unsafe { x86::apply_avx512::<true, true>(xs, b, scale) },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, false, false) => unsafe {
-            x86::apply_avx2::<false, false>(xs, b, scale)
-        },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, false, true) => unsafe { x86::apply_avx2::<false, true>(xs, b, scale) },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, true, false) => unsafe { x86::apply_avx2::<true, false>(xs, b, scale) },
-        #[cfg(target_arch = "x86_64")]
-        (CosPath::Avx2Fma, true, true) => unsafe { x86::apply_avx2::<true, true>(xs, b, scale) },
-        (_, false, false) => apply::<false, false>(xs, b, scale),
-        (_, false, true) => apply::<false, true>(xs, b, scale),
-        (_, true, false) => apply::<true, false>(xs, b, scale),
-        (_, true, true) => apply::<true, true>(xs, b, scale),
+    match (sine, shift.is_some()) {
+        (false, false) => cpu.run(Apply::<false, false> {
+            xs,
+            shift: b,
+            scale,
+        }),
+        (false, true) => cpu.run(Apply::<false, true> {
+            xs,
+            shift: b,
+            scale,
+        }),
+        (true, false) => cpu.run(Apply::<true, false> {
+            xs,
+            shift: b,
+            scale,
+        }),
+        (true, true) => cpu.run(Apply::<true, true> {
+            xs,
+            shift: b,
+            scale,
+        }),
+    }
+}
+
+/// One call of the kernel: `scale·cos` (or `scale·sin` when `SIN`) of `xs` (plus `shift`
+/// when `SHIFT`), in place.
+struct Apply<'a, const SIN: bool, const SHIFT: bool> {
+    xs: &'a mut [f64],
+    shift: &'a [f64],
+    scale: f64,
+}
+
+impl<const SIN: bool, const SHIFT: bool> Kernel for Apply<'_, SIN, SHIFT> {
+    type Output = ();
+
+    fn generic(self) {
+        apply::<SIN, SHIFT>(self.xs, self.shift, self.scale);
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn avx2_fma(self) {
+        x86::apply_avx2::<SIN, SHIFT>(self.xs, self.shift, self.scale);
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx512f,avx2,fma")]
+    unsafe fn avx512(self) {
+        x86::apply_avx512::<SIN, SHIFT>(self.xs, self.shift, self.scale);
     }
 }
 

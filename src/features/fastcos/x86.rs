@@ -11,14 +11,15 @@ use super::{accurate, FRAC_1_PI, LIMIT, MAGIC, PI_A, PI_B, SIN_P};
 
 /// The AVX2+FMA path: four values per vector, sixteen per step.
 ///
-/// # Safety
-/// The CPU must support AVX2 and FMA; `shift.len() == xs.len()` when `SHIFT`.
+/// # Panics
+/// If `SHIFT` and `shift.len() != xs.len()`.
 #[target_feature(enable = "avx2,fma")]
-pub(super) unsafe fn apply_avx2<const SIN: bool, const SHIFT: bool>(
+pub(super) fn apply_avx2<const SIN: bool, const SHIFT: bool>(
     xs: &mut [f64],
     shift: &[f64],
     scale: f64,
 ) {
+    assert!(!SHIFT || shift.len() == xs.len(), "shifted cosine: lengths");
     let limit = _mm256_set1_pd(LIMIT);
     let abs_mask = _mm256_castsi256_pd(_mm256_set1_epi64x(i64::MAX));
     let inv_pi = _mm256_set1_pd(FRAC_1_PI);
@@ -71,38 +72,39 @@ pub(super) unsafe fn apply_avx2<const SIN: bool, const SHIFT: bool>(
         };
     }
     let mut i = 0;
-    // SAFETY (all loads and stores below): every offset + 4 <= quads <= len, and
-    // shift.len() == len when SHIFT.
-    while i < quads {
-        // Sixteen values per step: four independent chains keep both FMA pipes busy.
-        if i + 16 <= quads {
-            let (y0, y1, y2, y3) = (load!(i), load!(i + 4), load!(i + 8), load!(i + 12));
-            let any = _mm256_or_pd(
-                _mm256_or_pd(big!(y0), big!(y1)),
-                _mm256_or_pd(big!(y2), big!(y3)),
-            );
-            if _mm256_movemask_pd(any) == 0 {
-                let (o0, o1, o2, o3) = (quad!(y0), quad!(y1), quad!(y2), quad!(y3));
-                _mm256_storeu_pd(xp.add(i), o0);
-                _mm256_storeu_pd(xp.add(i + 4), o1);
-                _mm256_storeu_pd(xp.add(i + 8), o2);
-                _mm256_storeu_pd(xp.add(i + 12), o3);
-                i += 16;
-                continue;
+    // SAFETY: for all loads and stores in the loop, every offset + 4 <= quads <= len, and
+    // shift.len() == len when SHIFT (asserted above).
+    unsafe {
+        while i < quads {
+            // Sixteen values per step: four independent chains keep both FMA pipes busy.
+            if i + 16 <= quads {
+                let (y0, y1, y2, y3) = (load!(i), load!(i + 4), load!(i + 8), load!(i + 12));
+                let any = _mm256_or_pd(
+                    _mm256_or_pd(big!(y0), big!(y1)),
+                    _mm256_or_pd(big!(y2), big!(y3)),
+                );
+                if _mm256_movemask_pd(any) == 0 {
+                    let (o0, o1, o2, o3) = (quad!(y0), quad!(y1), quad!(y2), quad!(y3));
+                    _mm256_storeu_pd(xp.add(i), o0);
+                    _mm256_storeu_pd(xp.add(i + 4), o1);
+                    _mm256_storeu_pd(xp.add(i + 8), o2);
+                    _mm256_storeu_pd(xp.add(i + 12), o3);
+                    i += 16;
+                    continue;
+                }
             }
+            let y = load!(i);
+            if _mm256_movemask_pd(big!(y)) != 0 {
+                let mut ys = [0.0; 8];
+                _mm256_storeu_pd(ys.as_mut_ptr(), y);
+                slow::<SIN>(&ys, std::slice::from_raw_parts_mut(xp.add(i), 4), scale);
+            } else {
+                _mm256_storeu_pd(xp.add(i), quad!(y));
+            }
+            i += 4;
         }
-        let y = load!(i);
-        if _mm256_movemask_pd(big!(y)) != 0 {
-            let mut ys = [0.0; 8];
-            _mm256_storeu_pd(ys.as_mut_ptr(), y);
-            slow::<SIN>(&ys, std::slice::from_raw_parts_mut(xp.add(i), 4), scale);
-        } else {
-            _mm256_storeu_pd(xp.add(i), quad!(y));
-        }
-        i += 4;
     }
-    let tail = std::slice::from_raw_parts_mut(xp.add(quads), len - quads);
-    for (j, v) in tail.iter_mut().enumerate() {
+    for (j, v) in xs[quads..].iter_mut().enumerate() {
         let y = if SHIFT { *v + shift[quads + j] } else { *v };
         *v = accurate::<true, SIN>(y, scale);
     }
@@ -120,14 +122,15 @@ fn slow<const SIN: bool>(ys: &[f64; 8], out: &mut [f64], scale: f64) {
 /// The AVX-512 path: eight values per vector, thirty-two per step; the last `len % 8`
 /// values go through [`apply_avx2`].
 ///
-/// # Safety
-/// The CPU must support AVX-512F, AVX2 and FMA; `shift.len() == xs.len()` when `SHIFT`.
+/// # Panics
+/// If `SHIFT` and `shift.len() != xs.len()`.
 #[target_feature(enable = "avx512f,avx2,fma")]
-pub(super) unsafe fn apply_avx512<const SIN: bool, const SHIFT: bool>(
+pub(super) fn apply_avx512<const SIN: bool, const SHIFT: bool>(
     xs: &mut [f64],
     shift: &[f64],
     scale: f64,
 ) {
+    assert!(!SHIFT || shift.len() == xs.len(), "shifted cosine: lengths");
     let limit = _mm512_set1_pd(LIMIT);
     let inv_pi = _mm512_set1_pd(FRAC_1_PI);
     let magic = _mm512_set1_pd(MAGIC);
@@ -178,32 +181,33 @@ pub(super) unsafe fn apply_avx512<const SIN: bool, const SHIFT: bool>(
         };
     }
     let mut i = 0;
-    // SAFETY (all loads and stores below): every offset + 8 <= octs <= len, and
-    // shift.len() == len when SHIFT.
-    while i < octs {
-        if i + 32 <= octs {
-            let (y0, y1, y2, y3) = (load!(i), load!(i + 8), load!(i + 16), load!(i + 24));
-            if big!(y0) | big!(y1) | big!(y2) | big!(y3) == 0 {
-                let (o0, o1, o2, o3) = (oct!(y0), oct!(y1), oct!(y2), oct!(y3));
-                _mm512_storeu_pd(xp.add(i), o0);
-                _mm512_storeu_pd(xp.add(i + 8), o1);
-                _mm512_storeu_pd(xp.add(i + 16), o2);
-                _mm512_storeu_pd(xp.add(i + 24), o3);
-                i += 32;
-                continue;
+    // SAFETY: for all loads and stores in the loop, every offset + 8 <= octs <= len, and
+    // shift.len() == len when SHIFT (asserted above).
+    unsafe {
+        while i < octs {
+            if i + 32 <= octs {
+                let (y0, y1, y2, y3) = (load!(i), load!(i + 8), load!(i + 16), load!(i + 24));
+                if big!(y0) | big!(y1) | big!(y2) | big!(y3) == 0 {
+                    let (o0, o1, o2, o3) = (oct!(y0), oct!(y1), oct!(y2), oct!(y3));
+                    _mm512_storeu_pd(xp.add(i), o0);
+                    _mm512_storeu_pd(xp.add(i + 8), o1);
+                    _mm512_storeu_pd(xp.add(i + 16), o2);
+                    _mm512_storeu_pd(xp.add(i + 24), o3);
+                    i += 32;
+                    continue;
+                }
             }
+            let y = load!(i);
+            if big!(y) != 0 {
+                let mut ys = [0.0; 8];
+                _mm512_storeu_pd(ys.as_mut_ptr(), y);
+                slow::<SIN>(&ys, std::slice::from_raw_parts_mut(xp.add(i), 8), scale);
+            } else {
+                _mm512_storeu_pd(xp.add(i), oct!(y));
+            }
+            i += 8;
         }
-        let y = load!(i);
-        if big!(y) != 0 {
-            let mut ys = [0.0; 8];
-            _mm512_storeu_pd(ys.as_mut_ptr(), y);
-            slow::<SIN>(&ys, std::slice::from_raw_parts_mut(xp.add(i), 8), scale);
-        } else {
-            _mm512_storeu_pd(xp.add(i), oct!(y));
-        }
-        i += 8;
     }
-    let rest = std::slice::from_raw_parts_mut(xp.add(octs), len - octs);
     let rest_shift = if SHIFT { &shift[octs..] } else { shift };
-    apply_avx2::<SIN, SHIFT>(rest, rest_shift, scale);
+    apply_avx2::<SIN, SHIFT>(&mut xs[octs..], rest_shift, scale);
 }

@@ -18,6 +18,7 @@
 //! crew (`team.rs`) does not change any result.
 
 use super::team::Crew;
+use crate::cpu::{Cpu, Kernel as Build};
 use crate::kernel::{Kernel, KernelKind};
 
 /// Rows per tile (a multiple of [`LANES`]).
@@ -118,25 +119,38 @@ fn task_rows(len: usize, threads: usize) -> usize {
 #[inline]
 fn tile_row(kernel: &Kernel, xr: &[f64], tile: &[f64], j0: usize, out: &mut [f64]) {
     let l1 = kernel.kind == KernelKind::Laplacian;
-    #[cfg(target_arch = "x86_64")]
-    {
-        if is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU reports AVX2.
-            unsafe { distances_avx2(l1, xr, tile, j0, out) };
-            apply(kernel, out);
-            return;
-        }
-    }
-    distances(l1, xr, tile, j0, out);
+    Cpu::detect().run(Distances {
+        l1,
+        xr,
+        tile,
+        j0,
+        out: &mut *out,
+    });
     apply(kernel, out);
 }
 
-/// [`distances`] compiled for AVX2 (four f64 a register instead of two). Without FMA the
-/// operations, and so the results, are exactly those of the generic build.
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn distances_avx2(l1: bool, xr: &[f64], tile: &[f64], j0: usize, out: &mut [f64]) {
-    distances(l1, xr, tile, j0, out);
+/// [`distances`] as a kernel with a build for AVX2 (four f64 a register instead of two).
+/// Without FMA the operations, and so the results, are exactly those of the generic build.
+struct Distances<'a> {
+    l1: bool,
+    xr: &'a [f64],
+    tile: &'a [f64],
+    j0: usize,
+    out: &'a mut [f64],
+}
+
+impl Build for Distances<'_> {
+    type Output = ();
+
+    fn generic(self) {
+        distances(self.l1, self.xr, self.tile, self.j0, self.out);
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx2")]
+    unsafe fn avx2(self) {
+        distances(self.l1, self.xr, self.tile, self.j0, self.out);
+    }
 }
 
 /// `out[j] = Σ_k (xr_k − tile[k·TILE + j0 + j])²` (or `|·|` when `l1`), summed in the

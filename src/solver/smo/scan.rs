@@ -25,6 +25,7 @@
 use std::ops::Range;
 
 use super::team::Crew;
+use crate::cpu::{Cpu, Kernel};
 
 /// Positions handled together.
 const LANES: usize = 8;
@@ -296,51 +297,64 @@ fn wss2_generic(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
     best.merge()
 }
 
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn extremes_avx2<const UPDATE: bool>(
-    g: &mut [f64],
-    u: &Update,
-    s: &View,
+/// [`extremes_generic`] as a kernel with a build for AVX2 (four f64 a register instead
+/// of two; without FMA the operations, and so the results, are the same).
+struct ExtremesPart<'a, 's, const UPDATE: bool> {
+    g: &'a mut [f64],
+    u: &'a Update<'s>,
+    s: &'a View<'s>,
     offset: usize,
-) -> Extremes {
-    extremes_generic::<UPDATE>(g, u, s, offset)
 }
 
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn wss2_avx2(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
-    wss2_generic(g, w, s, offset)
+impl<const UPDATE: bool> Kernel for ExtremesPart<'_, '_, UPDATE> {
+    type Output = Extremes;
+
+    fn generic(self) -> Extremes {
+        extremes_generic::<UPDATE>(self.g, self.u, self.s, self.offset)
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx2")]
+    unsafe fn avx2(self) -> Extremes {
+        extremes_generic::<UPDATE>(self.g, self.u, self.s, self.offset)
+    }
 }
 
-/// [`extremes_generic`], compiled for AVX2 when the CPU has it (four f64 a register
-/// instead of two; without FMA the operations, and so the results, are the same).
+/// [`wss2_generic`] as a kernel, built like [`ExtremesPart`].
+struct Wss2Part<'a, 's> {
+    g: &'a [f64],
+    w: &'a Second<'s>,
+    s: &'a View<'s>,
+    offset: usize,
+}
+
+impl Kernel for Wss2Part<'_, '_> {
+    type Output = (f64, u64);
+
+    fn generic(self) -> (f64, u64) {
+        wss2_generic(self.g, self.w, self.s, self.offset)
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx2")]
+    unsafe fn avx2(self) -> (f64, u64) {
+        wss2_generic(self.g, self.w, self.s, self.offset)
+    }
+}
+
+/// [`extremes_generic`], compiled for AVX2 when the CPU has it.
 fn extremes_part<const UPDATE: bool>(
     g: &mut [f64],
     u: &Update,
     s: &View,
     offset: usize,
 ) -> Extremes {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU reports AVX2.
-            return unsafe { extremes_avx2::<UPDATE>(g, u, s, offset) };
-        }
-    }
-    extremes_generic::<UPDATE>(g, u, s, offset)
+    Cpu::detect().run(ExtremesPart::<UPDATE> { g, u, s, offset })
 }
 
 /// [`wss2_generic`], dispatched like [`extremes_part`].
 fn wss2_part(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU reports AVX2.
-            return unsafe { wss2_avx2(g, w, s, offset) };
-        }
-    }
-    wss2_generic(g, w, s, offset)
+    Cpu::detect().run(Wss2Part { g, w, s, offset })
 }
 
 /// Parts a pass over `n` positions is split into on `crew`: one per thread, each of at
