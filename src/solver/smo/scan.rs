@@ -25,8 +25,6 @@
 
 use std::ops::Range;
 
-use super::team::Crew;
-
 /// Positions handled together.
 const LANES: usize = 8;
 /// Fewest positions a thread takes of a pass split over the crew: a hand-off costs
@@ -344,21 +342,10 @@ fn wss2_part(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
     wss2_generic(g, w, s, offset)
 }
 
-/// Parts a pass over `n` positions is split into on `crew`: one per thread, each of at
-/// least [`MIN_PART`] positions.
-fn parts(crew: &Crew, n: usize) -> usize {
-    crew.threads().min(n / MIN_PART).max(1)
-}
-
-/// Positions per part when `n` positions go into `parts` parts (whole lane groups).
-fn span(n: usize, parts: usize) -> usize {
-    n.div_ceil(parts).next_multiple_of(LANES).max(LANES)
-}
-
 /// The better of two candidates (lanes or parts): the best value, the smallest code
 /// among equal values (the order of one sequential scan); a candidate coded [`NONE`]
 /// never wins.
-fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
+pub(super) fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
     let wins = if MAX { b.0 > a.0 } else { b.0 < a.0 };
     if b.1 != NONE && (a.1 == NONE || wins || (b.0 == a.0 && b.1 < a.1)) {
         b
@@ -367,90 +354,8 @@ fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
     }
 }
 
-/// `m(α)`, `M(α)` and their variables, after the gradient update when there is one,
-/// split over the crew when long.
-pub(super) fn extremes(crew: &Crew, g: &mut [f64], update: Option<Update>, s: &View) -> Extremes {
-    #[cfg(test)]
-    let before = g.to_vec();
-    let e = extremes_split(crew, parts(crew, g.len()), g, update, s);
-    #[cfg(test)]
-    reference::check_extremes(&before, g, update.as_ref(), s, &e);
-    e
-}
-
-/// [`extremes`] in `parts` parts of whole lane groups, the parts' results merged in the
-/// order of one sequential scan.
-fn extremes_split(
-    crew: &Crew,
-    parts: usize,
-    g: &mut [f64],
-    update: Option<Update>,
-    s: &View,
-) -> Extremes {
-    fn pass(g: &mut [f64], u: &Option<Update>, s: &View, offset: usize) -> Extremes {
-        match u {
-            Some(u) => extremes_part::<true>(g, u, s, offset),
-            None => {
-                let none = Update {
-                    ki: s.ap,
-                    kj: s.ap,
-                    di: 0.0,
-                    dj: 0.0,
-                };
-                extremes_part::<false>(g, &none, s, offset)
-            }
-        }
-    }
-    if parts <= 1 {
-        return pass(g, &update, s, 0);
-    }
-    let span = span(g.len(), parts);
-    let found = crew.chunks_mut(g, span, |k, gp| {
-        let r = k * span..k * span + gp.len();
-        pass(
-            gp,
-            &update.map(|u| u.part(r.clone())),
-            &s.part(r.clone()),
-            r.start,
-        )
-    });
-    let mut e = found[0];
-    for f in &found[1..] {
-        (e.m, e.i) = better::<true>((e.m, e.i), (f.m, f.i));
-        (e.big_m, e.j) = better::<false>((e.big_m, e.j), (f.big_m, f.j));
-    }
-    e
-}
-
-/// The WSS2 choice of the second variable (its code, or [`NONE`]), split over the crew
-/// like [`extremes`].
-pub(super) fn wss2(crew: &Crew, g: &[f64], w: &Second, s: &View) -> u64 {
-    let code = wss2_split(crew, parts(crew, g.len()), g, w, s);
-    #[cfg(test)]
-    reference::check_wss2(g, w, s, code);
-    code
-}
-
-/// [`wss2`] in `parts` parts, merged like [`extremes_split`].
-fn wss2_split(crew: &Crew, parts: usize, g: &[f64], w: &Second, s: &View) -> u64 {
-    if parts <= 1 {
-        return wss2_part(g, w, s, 0).1;
-    }
-    let (n, span) = (g.len(), span(g.len(), parts));
-    let found = crew.map(n.div_ceil(span), |k| {
-        let r = k * span..((k + 1) * span).min(n);
-        wss2_part(
-            &g[r.clone()],
-            &w.part(r.clone()),
-            &s.part(r.clone()),
-            r.start,
-        )
-    });
-    found
-        .into_iter()
-        .reduce(better::<false>)
-        .map_or(NONE, |b| b.1)
-}
+mod split;
+pub(super) use split::{extremes, wss2};
 
 #[cfg(test)]
 mod reference;

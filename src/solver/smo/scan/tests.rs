@@ -1,7 +1,8 @@
 //! Unit tests of the lane-wise passes against the scalar scans of `reference.rs`.
 
-use super::super::team::with_crew;
+use super::super::team::{with_crew, Crew};
 use super::reference::{sequential, sequential_wss2};
+use super::split::{extremes_split, wss2_split};
 use super::*;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
