@@ -6,7 +6,7 @@ use clarabel::solver::{
     DefaultSettingsBuilder, DefaultSolver, IPSolver, NonnegativeConeT, SolverStatus, ZeroConeT,
 };
 use kernlake::kernel::Kernel;
-use kernlake::solver::smo::{fit, Selection, SmoFit, SmoSettings};
+use kernlake::solver::smo::{fit, Loss, Selection, SmoFit, SmoSettings};
 use kernlake::Error;
 use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
 use rand::{Rng, SeedableRng};
@@ -90,14 +90,18 @@ struct QpSolution {
 }
 
 /// The same epsilon-SVR dual, solved by clarabel: variables z = [α⁺; α⁻],
-/// min ½ zᵀ[[K, −K], [−K, K]]z + [ε − y; ε + y]ᵀz, s.t. [1ᵀ, −1ᵀ]z = 0, 0 ≤ z ≤ C.
+/// min ½ zᵀ[[K, −K], [−K, K]]z + [ε − y; ε + y]ᵀz, s.t. [1ᵀ, −1ᵀ]z = 0, 0 ≤ z ≤ C
+/// (linear loss). For the squared loss the dual of Ho & Lin (JMLR 2012, §2) written
+/// for a kernel with a free bias: 1/(2C) on the diagonal of both blocks (each α
+/// separately, not of β), no upper bound.
 fn clarabel_dual(
     x: ArrayView2<f64>,
     y: ArrayView1<f64>,
     k: &Kernel,
-    c: f64,
-    eps: f64,
+    settings: &SmoSettings,
 ) -> QpSolution {
+    let (c, eps) = (settings.c, settings.epsilon);
+    let squared = settings.loss == Loss::L2;
     let n = x.nrows();
     let km = k.block(x, x);
     let sign = |t: usize| if t < n { 1.0 } else { -1.0 };
@@ -106,23 +110,29 @@ fn clarabel_dual(
     for j in 0..2 * n {
         for i in 0..=j {
             rowval.push(i);
-            nzval.push(sign(i) * sign(j) * km[[i % n, j % n]]);
+            let diag = if squared && i == j { 0.5 / c } else { 0.0 };
+            nzval.push(sign(i) * sign(j) * km[[i % n, j % n]] + diag);
         }
         colptr.push(rowval.len());
     }
     let p = CscMatrix::new(2 * n, 2 * n, colptr, rowval, nzval);
     let q: Vec<f64> = (0..2 * n).map(|t| eps - sign(t) * y[t % n]).collect();
-    // Rows: 0 equality; 1..=2n: −z ≤ 0; 2n+1..=4n: z ≤ C.
+    // Rows: 0 equality; 1..=2n: −z ≤ 0; 2n+1..=4n: z ≤ C (linear loss only).
+    let bounds = if squared { 2 * n } else { 4 * n };
     let (mut colptr, mut rowval, mut nzval) = (vec![0usize], Vec::new(), Vec::new());
     for j in 0..2 * n {
-        rowval.extend([0, 1 + j, 1 + 2 * n + j]);
-        nzval.extend([sign(j), -1.0, 1.0]);
+        rowval.extend([0, 1 + j]);
+        nzval.extend([sign(j), -1.0]);
+        if !squared {
+            rowval.push(1 + 2 * n + j);
+            nzval.push(1.0);
+        }
         colptr.push(rowval.len());
     }
-    let a = CscMatrix::new(1 + 4 * n, 2 * n, colptr, rowval, nzval);
-    let mut b = vec![0.0; 1 + 4 * n];
+    let a = CscMatrix::new(1 + bounds, 2 * n, colptr, rowval, nzval);
+    let mut b = vec![0.0; 1 + bounds];
     b[1 + 2 * n..].iter_mut().for_each(|v| *v = c);
-    let cones = [ZeroConeT(1), NonnegativeConeT(4 * n)];
+    let cones = [ZeroConeT(1), NonnegativeConeT(bounds)];
     let settings = DefaultSettingsBuilder::default()
         .verbose(false)
         .max_iter(500)
@@ -174,17 +184,19 @@ fn tight(c: f64, eps: f64) -> SmoSettings {
     }
 }
 
-/// SMO against clarabel on one problem; held-out rows `xt` are predicted by both.
-fn compare_with_clarabel(
+/// SMO against clarabel on one problem; held-out rows `xt` are predicted by both, and
+/// must agree within `max_diff`.
+fn compare_with_clarabel_within(
     x: &Array2<f64>,
     y: &Array1<f64>,
     xt: &Array2<f64>,
     k: Kernel,
     settings: &SmoSettings,
+    max_diff: f64,
 ) -> SmoFit {
     let fitted = fit(x.view(), y.view(), k, settings).unwrap();
     assert!(fitted.report.converged, "{:?}", fitted.report);
-    let qp = clarabel_dual(x.view(), y.view(), &k, settings.c, settings.epsilon);
+    let qp = clarabel_dual(x.view(), y.view(), &k, settings);
     // reference library: clarabel — same optimum of the dual, 1e-6 relative.
     eprintln!(
         "n = {}: objective smo {:.10e}, clarabel {:.10e}",
@@ -205,9 +217,39 @@ fn compare_with_clarabel(
         let theirs = predict_beta(x.view(), rows.view(), &k, &qp.beta, qp.bias);
         let diff = max_abs_diff(&ours, &theirs);
         eprintln!("  max prediction difference {diff:.3e}");
-        assert!(diff < 1e-4, "prediction difference {diff:e}");
+        assert!(diff < max_diff, "prediction difference {diff:e}");
     }
     fitted
+}
+
+/// [`compare_with_clarabel_within`] with predictions within 1e-4 in target units.
+fn compare_with_clarabel(
+    x: &Array2<f64>,
+    y: &Array1<f64>,
+    xt: &Array2<f64>,
+    k: Kernel,
+    settings: &SmoSettings,
+) -> SmoFit {
+    compare_with_clarabel_within(x, y, xt, k, settings, 1e-4)
+}
+
+/// The squared loss against clarabel: optimum within 1e-6 relative and predictions
+/// within 1e-5 of the target's standard deviation (issue 15's check).
+fn compare_squared_with_clarabel(
+    x: &Array2<f64>,
+    y: &Array1<f64>,
+    xt: &Array2<f64>,
+    k: Kernel,
+    c: f64,
+    eps: f64,
+) -> SmoFit {
+    let settings = SmoSettings {
+        loss: Loss::L2,
+        ..tight(c, eps)
+    };
+    let m = y.mean().unwrap();
+    let sd = (y.mapv(|v| (v - m).powi(2)).mean().unwrap()).sqrt();
+    compare_with_clarabel_within(x, y, xt, k, &settings, 1e-5 * sd)
 }
 
 // ---------------------------------------------------------------- tests
@@ -247,6 +289,87 @@ fn matches_clarabel_on_friedman1_both_selections() {
         ..tight(10.0, 0.5)
     };
     compare_with_clarabel(&x, &y, &xt, k, &first);
+}
+
+#[test]
+fn squared_loss_matches_clarabel_on_yacht() {
+    // dataset: Gerritsma, Onnink & Versluis (1981), yacht hydrodynamics; reference
+    // library: clarabel on the squared-loss dual (Ho & Lin, JMLR 2012, §2).
+    let (mut x, y) = read_table("yacht_hydrodynamics.txt", ' ', false);
+    standardize(&mut x);
+    let (xa, ya) = every(&x, &y, 2);
+    let xt = x.slice(s![1..;14, ..]).to_owned();
+    compare_squared_with_clarabel(&xa, &ya, &xt, Kernel::gaussian(0.2).unwrap(), 1.0, 0.5);
+}
+
+#[test]
+fn squared_loss_matches_clarabel_on_concrete() {
+    // dataset: Yeh (1998), concrete strength; reference library: clarabel.
+    let (mut x, y) = read_table("concrete_yeh1998.csv", ',', true);
+    standardize(&mut x);
+    let (xa, ya) = every(&x, &y, 6);
+    let xt = x.slice(s![3..;30, ..]).to_owned();
+    compare_squared_with_clarabel(&xa, &ya, &xt, Kernel::gaussian(0.125).unwrap(), 1.0, 1.0);
+}
+
+#[test]
+fn squared_loss_matches_clarabel_on_friedman1() {
+    // published: Friedman (1991) benchmark function; reference library: clarabel. Two
+    // weights of the loss: a large C leaves few rows in the tube, a small one many.
+    let (x, y) = friedman1(150, 11);
+    let (xt, _) = friedman1(40, 12);
+    let k = Kernel::gaussian(0.5).unwrap();
+    compare_squared_with_clarabel(&x, &y, &xt, k, 10.0, 0.5);
+    compare_squared_with_clarabel(&x, &y, &xt, k, 0.1, 1.5);
+}
+
+#[test]
+fn squared_loss_kkt_conditions_and_epsilon_tube() {
+    // common practice (the KKT conditions of the squared-loss dual, Ho & Lin, JMLR 2012,
+    // §2): a row inside the tube has β = 0; a row with β ≠ 0 has the residual
+    // y − f = sign(β)·ε + β/(2C) (the slack is β/(2C)); Σβ = 0; no bound on β.
+    let (x, y) = friedman1(300, 5);
+    let (c, eps, tol) = (2.0, 0.8, 1e-6);
+    let settings = SmoSettings {
+        tol,
+        loss: Loss::L2,
+        ..tight(c, eps)
+    };
+    let fitted = fit(
+        x.view(),
+        y.view(),
+        Kernel::gaussian(0.5).unwrap(),
+        &settings,
+    )
+    .unwrap();
+    assert!(fitted.report.converged && fitted.report.final_gap <= tol);
+    let beta = &fitted.dual_coef;
+    let residual = &y - &fitted.model.predict(x.view());
+    let slack = 1e-5;
+    let (mut inside, mut outside, mut above_c) = (0, 0, 0);
+    for i in 0..y.len() {
+        let (r, b) = (residual[i], beta[i]);
+        if b == 0.0 {
+            inside += 1;
+            assert!(r.abs() <= eps + slack, "row {i}: β = 0 but residual {r}");
+        } else {
+            outside += 1;
+            let want = eps * b.signum() + b / (2.0 * c);
+            assert!(
+                (r - want).abs() < slack,
+                "row {i}: residual {r}, want {want}"
+            );
+            above_c += usize::from(b.abs() > c);
+        }
+    }
+    // Not vacuous: rows in and out of the tube, and coefficients beyond the linear
+    // loss's bound C.
+    assert!(
+        inside > 0 && outside > 0 && above_c > 0,
+        "{inside} {outside} {above_c}"
+    );
+    let sum: f64 = beta.sum();
+    assert!(sum.abs() < 1e-9 * c * y.len() as f64, "Σ coef = {sum}");
 }
 
 #[test]

@@ -2,19 +2,24 @@
 //! map + linear epsilon-SVR) with the exact kernel machine fitted on the same rows.
 //!
 //! The sample is split (seeded) into a fit part and a check part. Inputs are
-//! standardized with a [`Standardizer`] fitted on the fit part. The exact machine is
-//! epsilon-SVR solved by SMO (Fan, Chen & Lin, JMLR 2005; see [`crate::solver::smo`]);
-//! every approximate machine maps the inputs with random Fourier features (Rahimi &
-//! Recht, NIPS 2007), orthogonal random features (Yu et al., NIPS 2016) or Nyström
-//! features (Williams & Seeger, NIPS 2001) for each D of a list, and fits a linear
-//! epsilon-SVR by dual coordinate descent (Ho & Lin, JMLR 2012).
+//! standardized with a [`Standardizer`](crate::scale::Standardizer) fitted on the fit
+//! part. The exact machine is epsilon-SVR solved by SMO (Fan, Chen & Lin, JMLR 2005; see
+//! [`crate::solver::smo`]); every approximate machine maps the inputs with random
+//! Fourier features (Rahimi & Recht, NIPS 2007), orthogonal random features (Yu et al.,
+//! NIPS 2016) or Nyström features (Williams & Seeger, NIPS 2001) for each D of a list,
+//! and fits a linear epsilon-SVR on them.
 //!
-//! **Like for like.** The exact machine is the classic epsilon-SVR, whose loss beyond the
-//! tube is linear (L1). The approximate machines of an audit therefore use the L1 loss
-//! too, with the same kernel, gamma, C and epsilon, even though `kernlake fit` defaults to
-//! the squared (L2) loss. One difference remains by construction: the linear solver's
-//! bias is an appended constant feature and is regularised (towards the target's mean,
-//! since the target is centred), whereas SMO's bias is free.
+//! **Like for like.** Every machine of an audit uses the same loss beyond the tube, kernel,
+//! gamma, C and epsilon. The loss defaults to `kernlake fit`'s, the squared (L2) loss:
+//! the exact machine then solves the squared-loss kernel dual (the linear-loss dual with
+//! 1/(2C) on the kernel's diagonal and no upper bound; Ho & Lin, JMLR 2012, §2) and the
+//! approximate ones are fitted by primal Newton passes with every row in the Hessian. With
+//! the linear (L1) loss the exact machine is the classic epsilon-SVR and the approximate
+//! ones are fitted by dual coordinate descent (Ho & Lin, JMLR 2012). One difference
+//! remains by construction: the linear solvers' bias is an appended constant feature and
+//! is regularised (towards the target's mean, since the target is centred), whereas
+//! SMO's bias is free. Each row of the report says whether its machine reached its
+//! tolerance and, if not, why.
 //!
 //! For each approximate machine the report gives its accuracy on the check part, its
 //! **agreement** with the exact machine — the root-mean-square difference of their
@@ -32,7 +37,7 @@
 //! let y: Array1<f64> = x.rows().into_iter().map(|r| (3.0 * r[0]).sin() + r[1]).collect();
 //! let opts = AuditOptions {
 //!     maps: vec![MapKind::Fourier],
-//!     components: vec![32, 64],
+//!     dims: vec![32, 64],
 //!     ..AuditOptions::default()
 //! };
 //! let report = audit(x.view(), y.view(), &opts)?;
@@ -40,7 +45,10 @@
 //! # Ok::<(), kernlake::Error>(())
 //! ```
 
+mod exact;
+mod machine;
 mod model;
+mod parts;
 pub mod plot;
 mod run;
 mod table;
@@ -54,15 +62,24 @@ use serde::{Deserialize, Serialize};
 use crate::error::{Error, Result};
 use crate::features::{FourierVariant, MapKind};
 use crate::kernel::KernelKind;
+pub use crate::solver::dcd::Loss;
+
+/// Fewest sample rows an audit runs on: with the default split, 40 to fit and 10 to
+/// check, below which the agreement and accuracy figures are mostly noise.
+pub const MIN_ROWS: usize = 50;
 
 /// What to compare, and how.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct AuditOptions {
     /// Kernel family, shared by the exact and the approximate machines.
     pub kernel: KernelKind,
+    /// Loss beyond the tube, shared by every machine.
+    pub loss: Loss,
     /// Kernel width; `None` = median heuristic on the standardized fit part.
     pub gamma: Option<f64>,
-    /// Penalty C in target units; `None` = Cherkassky & Ma (Neural Networks 2004).
+    /// Penalty C (target units for the linear loss, unit-free for the squared loss, as
+    /// in `kernlake fit`); `None` = Cherkassky & Ma (Neural Networks 2004), divided by
+    /// the target's standard deviation for the squared loss.
     pub c: Option<f64>,
     /// Tube half-width in target units; `None` = Cherkassky & Ma (Neural Networks 2004).
     pub epsilon: Option<f64>,
@@ -70,7 +87,7 @@ pub struct AuditOptions {
     /// features exist for the Gaussian kernel only).
     pub maps: Vec<MapKind>,
     /// Feature dimensions D to try (Nyström: landmarks).
-    pub components: Vec<usize>,
+    pub dims: Vec<usize>,
     /// Fourier and orthogonal maps: sin/cos pairs or cos + random phase.
     pub variant: FourierVariant,
     /// Tolerance on the agreement (share of the target's standard deviation) that a D
@@ -83,12 +100,12 @@ pub struct AuditOptions {
     /// Stopping tolerance of SMO on the maximal violation, in standardized target units.
     pub smo_tol: f64,
     /// Stopping tolerance of the linear solver on the relative duality gap. With the L1
-    /// loss and a large C, dual coordinate descent converges slowly (the report shows
-    /// whether the gap was reached); the agreement then includes the remaining
-    /// optimisation error, as it would for a model fitted with the same settings.
-    pub dcd_tol: f64,
+    /// loss and a large C, dual coordinate descent converges slowly (each row of the
+    /// report says whether the gap was reached, and why not); the agreement then
+    /// includes the remaining optimisation error.
+    pub linear_tol: f64,
     /// Most passes of the linear solver over the fit part.
-    pub dcd_epochs: usize,
+    pub linear_passes: usize,
     /// Check rows (at most) in the block on which the kernel error is measured.
     pub kernel_rows: usize,
     /// Seed of the split, the maps and the solver orders.
@@ -98,25 +115,26 @@ pub struct AuditOptions {
 }
 
 impl Default for AuditOptions {
-    /// Gaussian kernel, data-driven gamma/C/epsilon, all maps, D = 256…4096, agree 0.02,
-    /// 80/20 split, 1 GiB cache, SMO tol 1e-3, the linear solver's own defaults (relative
-    /// gap 1e-3 within 100 epochs, as `kernlake fit`), 500 rows for the kernel error,
-    /// seed 0.
+    /// Gaussian kernel, the squared loss, data-driven gamma/C/epsilon, all maps,
+    /// D = 256…4096, agree 0.02, 80/20 split, 1 GiB cache, SMO tol 1e-3, the linear
+    /// solvers' own defaults (relative gap 1e-3 within 100 passes, as `kernlake fit`),
+    /// 500 rows for the kernel error, seed 0.
     fn default() -> Self {
         AuditOptions {
             kernel: KernelKind::Gaussian,
+            loss: Loss::L2,
             gamma: None,
             c: None,
             epsilon: None,
             maps: Vec::new(),
-            components: vec![256, 512, 1024, 2048, 4096],
+            dims: vec![256, 512, 1024, 2048, 4096],
             variant: FourierVariant::SinCos,
             agree: 0.02,
             split: 0.8,
             cache_bytes: 1 << 30,
             smo_tol: 1e-3,
-            dcd_tol: 1e-3,
-            dcd_epochs: 100,
+            linear_tol: 1e-3,
+            linear_passes: 100,
             kernel_rows: 500,
             seed: 0,
             threads: 0,
@@ -172,14 +190,14 @@ impl AuditOptions {
                 format!("must be a finite number > 0, got {}", self.agree),
             ));
         }
-        if self.components.is_empty() || self.components.contains(&0) {
+        if self.dims.is_empty() || self.dims.contains(&0) {
             return Err(Error::invalid(
-                "components",
+                "dims",
                 "give at least one feature dimension, each at least 1",
             ));
         }
-        if self.dcd_epochs == 0 {
-            return Err(Error::invalid("dcd_epochs", "must be at least 1"));
+        if self.linear_passes == 0 {
+            return Err(Error::invalid("linear_passes", "must be at least 1"));
         }
         self.resolved_maps().map(|_| ())
     }
@@ -218,6 +236,12 @@ pub struct ExactResult {
     pub iterations: u64,
     /// Whether SMO reached its tolerance.
     pub converged: bool,
+    /// The maximal violation `m(α) − M(α)` at the end (standardized target units).
+    pub violation: f64,
+    /// SMO's tolerance on it.
+    pub tol: f64,
+    /// Why SMO did not reach its tolerance, in one sentence; `None` when it did.
+    pub stopped: Option<String>,
 }
 
 /// One approximate machine: a map kind and a D.
@@ -226,7 +250,7 @@ pub struct AuditRow {
     /// The feature map.
     pub map: MapKind,
     /// D asked for.
-    pub components: usize,
+    pub dim: usize,
     /// Features actually produced (Nyström may give fewer: distinct landmarks, dropped
     /// eigenvalues).
     pub features: usize,
@@ -243,6 +267,11 @@ pub struct AuditRow {
     pub converged: bool,
     /// Its final relative duality gap.
     pub gap: f64,
+    /// Passes over the fit part the linear solver made.
+    pub passes: usize,
+    /// Why the linear solver did not reach its tolerance, in one sentence; `None` when
+    /// it did.
+    pub stopped: Option<String>,
 }
 
 /// A recommended D for one map.
@@ -251,7 +280,7 @@ pub struct Recommendation {
     /// The map.
     pub map: MapKind,
     /// The smallest D within the tolerance; `None` when no D of the list meets it.
-    pub components: Option<usize>,
+    pub dim: Option<usize>,
 }
 
 /// Everything an audit found.
@@ -259,9 +288,13 @@ pub struct Recommendation {
 pub struct AuditReport {
     /// Kernel family.
     pub kernel: KernelKind,
+    /// Loss beyond the tube, shared by every machine.
+    pub loss: Loss,
+    /// The solver of the approximate machines' linear epsilon-SVR.
+    pub linear_solver: String,
     /// Kernel width.
     pub gamma: Chosen,
-    /// Penalty C (target units).
+    /// Penalty C (target units for the linear loss, unit-free for the squared loss).
     pub c: Chosen,
     /// Tube half-width (target units).
     pub epsilon: Chosen,

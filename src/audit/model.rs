@@ -1,18 +1,18 @@
 //! Auditing an already fitted [`Model`]: the exact machine with the model's own kernel,
-//! gamma, C, epsilon and scaler, fitted by SMO on a sample, against the model's
+//! gamma, loss, C, epsilon and scaler, fitted by SMO on a sample, against the model's
 //! predictions.
 
 use ndarray::{ArrayView1, ArrayView2};
 use serde::{Deserialize, Serialize};
 
-use super::run::{accuracy, check_finite, fit_exact, kernel_error, mean_sd, Parts};
+use super::exact::{fit_exact, kernel_error, ExactSettings};
+use super::parts::{accuracy, check_finite, mean_sd, Parts};
 use super::{Accuracy, ExactResult};
 use crate::error::{Error, Result};
 use crate::features::MapSpec;
 use crate::kernel::Kernel;
 use crate::metrics::rmse;
 use crate::model::Model;
-use crate::solver::dcd::Loss;
 
 /// Options of a model audit.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -58,8 +58,8 @@ pub struct ModelAuditReport {
     pub c: f64,
     /// The model's epsilon (target units).
     pub epsilon: f64,
-    /// The loss the model was trained with (the exact machine always uses L1).
-    pub loss: Loss,
+    /// The loss the model was trained with, which the exact machine uses too.
+    pub loss: crate::solver::dcd::Loss,
     /// Rows the exact machine was fitted on.
     pub rows_fit: usize,
     /// Rows of the check part.
@@ -82,12 +82,11 @@ pub struct ModelAuditReport {
 /// Audits `model` on raw-unit rows `x` (columns in the model's input order) and targets
 /// `y`: fits the exact machine by SMO with the model's kernel, C and epsilon on the fit
 /// part (inputs standardized by the model's own scaler) and compares predictions on the
-/// check part. The exact machine uses the L1 loss whatever loss the model was trained
-/// with; the report says which.
+/// check part. The exact machine uses the loss the model was trained with.
 ///
 /// # Errors
-/// As [`super::audit`]: bad split, too few rows, non-finite values, a cache budget below
-/// two kernel rows.
+/// As [`super::audit`]: bad split, fewer than [`super::MIN_ROWS`] rows, non-finite
+/// values, a cache budget below two kernel rows.
 ///
 /// # Panics
 /// If `x` and `y` differ in rows or `x` does not have the model's input columns.
@@ -117,14 +116,7 @@ pub fn audit_model(
     }
     check_finite(x, y)?;
     let parts = Parts::split(x, y, opts.split, opts.seed, Some(&model.scaler))?;
-    let mut notes = parts.notes();
-    if model.solver.loss != Loss::L1 {
-        notes.push(
-            "the model was trained with the squared (L2) loss; the exact machine uses the \
-             linear (L1) loss, so part of the disagreement is the loss, not the map"
-                .into(),
-        );
-    }
+    let notes = parts.notes();
     let (_, y_sd) = mean_sd(parts.y_fit.view());
     let unit = if y_sd > 0.0 { y_sd } else { 1.0 };
     let pool = rayon::ThreadPoolBuilder::new()
@@ -132,16 +124,14 @@ pub fn audit_model(
         .build()
         .map_err(|e| Error::invalid("threads", format!("no thread pool could start: {e}")))?;
     let kernel = model.kernel;
-    let (exact, exact_pred) = pool.install(|| {
-        fit_exact(
-            &parts,
-            kernel,
-            model.solver.c,
-            model.solver.epsilon,
-            opts.smo_tol,
-            opts.cache_bytes,
-        )
-    })?;
+    let exact_settings = ExactSettings {
+        loss: model.solver.loss,
+        c: model.solver.c,
+        epsilon: model.solver.epsilon,
+        tol: opts.smo_tol,
+        cache_bytes: opts.cache_bytes,
+    };
+    let (exact, exact_pred) = pool.install(|| fit_exact(&parts, kernel, &exact_settings))?;
     let pred = pool.install(|| model.predict(parts.x_check_raw.view()));
     let kblock = parts.kernel_block(opts.kernel_rows);
     let kerr = pool.install(|| {

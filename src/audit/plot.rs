@@ -66,11 +66,7 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
         let pad = ((hi - lo) * 0.08).max(hi.abs() * 1e-3).max(1e-12);
         (lo - pad, hi + pad)
     };
-    let lx: Vec<f64> = r
-        .rows
-        .iter()
-        .map(|row| (row.components as f64).log2())
-        .collect();
+    let lx: Vec<f64> = r.rows.iter().map(|row| (row.dim as f64).log2()).collect();
     let xmin = lx.iter().copied().fold(f64::INFINITY, f64::min);
     let xmax = lx.iter().copied().fold(f64::NEG_INFINITY, f64::max);
     let (xmin, xmax) = if xmin < xmax {
@@ -94,7 +90,7 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
         p.title
     );
     // x ticks: every D of the list
-    let mut ds: Vec<usize> = r.rows.iter().map(|row| row.components).collect();
+    let mut ds: Vec<usize> = r.rows.iter().map(|row| row.dim).collect();
     ds.sort_unstable();
     ds.dedup();
     for d in &ds {
@@ -151,7 +147,7 @@ fn draw_panel(s: &mut String, r: &AuditReport, maps: &[MapKind], p: &Panel) {
             .map(|row| {
                 format!(
                     "{:.1},{:.1}",
-                    px((row.components as f64).log2()),
+                    px((row.dim as f64).log2()),
                     py((p.value)(row))
                 )
             })

@@ -2,7 +2,15 @@
 
 use std::fmt::Write;
 
-use super::{map_name, AuditReport, ModelAuditReport};
+use super::{map_name, AuditReport, Loss, ModelAuditReport};
+
+/// The loss as the report names it.
+fn loss_name(loss: Loss) -> &'static str {
+    match loss {
+        Loss::L1 => "linear (l1)",
+        Loss::L2 => "squared (l2)",
+    }
+}
 
 fn num(v: f64) -> String {
     if v.is_nan() {
@@ -28,6 +36,12 @@ pub fn render_audit(r: &AuditReport) -> String {
         r.c.source,
         num(r.epsilon.value),
         r.epsilon.source
+    );
+    let _ = writeln!(
+        s,
+        "loss: {} beyond the tube for every machine; exact by SMO, approximate by {}",
+        loss_name(r.loss),
+        r.linear_solver
     );
     let _ = writeln!(
         s,
@@ -57,7 +71,7 @@ pub fn render_audit(r: &AuditReport) -> String {
         if e.converged {
             ""
         } else {
-            "  (SMO stopped early)"
+            "  (not converged *)"
         }
     );
     for row in &r.rows {
@@ -65,7 +79,7 @@ pub fn render_audit(r: &AuditReport) -> String {
             s,
             "{:<11} {:>6} {:>6} {:>10} {:>10} {:>8} {:>10} {:>10} {:>9.2}{}",
             map_name(row.map),
-            row.components,
+            row.dim,
             row.features,
             num(row.check.rmse),
             num(row.check.mae),
@@ -76,11 +90,33 @@ pub fn render_audit(r: &AuditReport) -> String {
             if row.converged {
                 ""
             } else {
-                "  (gap not reached)"
+                "  (not converged *)"
             }
         );
     }
     let _ = writeln!(s, "\n(exact: feat = support vectors)");
+    let unfinished: Vec<String> = std::iter::once(("exact".to_string(), &e.stopped))
+        .chain(r.rows.iter().map(|row| {
+            (
+                format!("{} D = {}", map_name(row.map), row.dim),
+                &row.stopped,
+            )
+        }))
+        .filter_map(|(name, why)| why.as_ref().map(|w| format!("  {name}: {w}")))
+        .collect();
+    if unfinished.is_empty() {
+        let _ = writeln!(s, "every machine reached its tolerance");
+    } else {
+        let _ = writeln!(
+            s,
+            "* {} machine(s) did not reach their tolerance; their agreement includes \
+             the remaining optimisation error:",
+            unfinished.len()
+        );
+        for line in unfinished {
+            let _ = writeln!(s, "{line}");
+        }
+    }
     let _ = writeln!(
         s,
         "smallest D agreeing within {} of the target sd:",
@@ -88,7 +124,7 @@ pub fn render_audit(r: &AuditReport) -> String {
     );
     for rec in &r.recommended {
         let v = rec
-            .components
+            .dim
             .map_or_else(|| "none of the list".to_string(), |d| d.to_string());
         let _ = writeln!(s, "  {:<11} {v}", map_name(rec.map));
     }
@@ -111,11 +147,12 @@ pub fn render_model_audit(r: &ModelAuditReport) -> String {
     let mut s = String::new();
     let _ = writeln!(
         s,
-        "model audit: {} kernel, gamma {}, C {}, epsilon {}, {} map, {} features",
+        "model audit: {} kernel, gamma {}, C {}, epsilon {}, {} loss, {} map, {} features",
         r.kernel.kind.name(),
         num(r.kernel.gamma),
         num(r.c),
         num(r.epsilon),
+        loss_name(r.loss),
         map_name(r.map.kind),
         r.features
     );
@@ -147,8 +184,11 @@ pub fn render_model_audit(r: &ModelAuditReport) -> String {
         num(r.kernel_error),
         r.exact.fit_seconds,
         r.exact.support_vectors,
-        if r.exact.converged { "" } else { " (SMO stopped early)" }
+        if r.exact.converged { "" } else { " (not converged)" }
     );
+    if let Some(why) = &r.exact.stopped {
+        let _ = writeln!(s, "exact machine: {why}");
+    }
     for n in &r.notes {
         let _ = writeln!(s, "note: {n}");
     }

@@ -9,7 +9,7 @@ use clap::Args;
 use crate::atomic::write_atomic;
 use crate::audit::{
     audit_model, audit_with_progress, plot::render_svg, render_audit, render_model_audit,
-    AuditOptions, ModelAuditOptions,
+    AuditOptions, Loss, ModelAuditOptions, MIN_ROWS,
 };
 use crate::data::{
     discover, resolve_columns, survey, ColumnSelection, Survey, SurveySettings, TableReader,
@@ -36,10 +36,15 @@ pub struct AuditArgs {
     /// Kernel family.
     #[arg(long, value_enum, default_value = "gaussian")]
     pub kernel: KernelArg,
+    /// Loss beyond the tube for every machine: squared (l2, as `kernlake fit` by default)
+    /// or linear (l1, the classic epsilon-SVR). With --model: the model's own loss.
+    #[arg(long, value_parser = ["l1", "l2"])]
+    pub loss: Option<String>,
     /// Kernel width (default: 1 / median squared distance of standardized sample rows).
     #[arg(long, allow_negative_numbers = true)]
     pub gamma: Option<f64>,
-    /// Penalty C in target units (default: Cherkassky & Ma 2004).
+    /// Penalty C: in target units for the linear loss, unit-free for the squared loss
+    /// (default: Cherkassky & Ma 2004, divided by the target's sd for the squared loss).
     #[arg(long, allow_negative_numbers = true)]
     pub c: Option<f64>,
     /// Tube half-width in target units (default: Cherkassky & Ma 2004).
@@ -50,12 +55,15 @@ pub struct AuditArgs {
     pub maps: Vec<MapArg>,
     /// Feature dimensions D to try, comma separated.
     #[arg(
-        long,
+        long = "dims",
         short = 'D',
         value_delimiter = ',',
         default_value = "256,512,1024,2048,4096"
     )]
-    pub components: Vec<usize>,
+    pub dims: Vec<usize>,
+    /// Former spelling of --dims, refused with a pointer to it.
+    #[arg(long = "components", hide = true, value_name = "LIST")]
+    pub old_components: Option<String>,
     /// Fourier features as cos + random phase instead of sin/cos pairs.
     #[arg(long)]
     pub phase: bool,
@@ -69,7 +77,7 @@ pub struct AuditArgs {
     /// Memory for the exact solver's kernel rows, e.g. 512MiB, 2GiB.
     #[arg(long, default_value = "1GiB", value_parser = parse_bytes)]
     pub cache: usize,
-    /// Rows in the random sample.
+    /// Rows in the random sample (at least 50).
     #[arg(long, default_value_t = 10_000)]
     pub sample: usize,
     /// Seed for the sample, the split and the maps.
@@ -89,8 +97,27 @@ pub struct AuditArgs {
 
 /// Runs `kernlake audit`.
 pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
-    if a.sample < 2 {
-        return Err(Error::invalid("--sample", "must be at least 2 rows"));
+    if a.old_components.is_some() {
+        return Err(Error::invalid(
+            "--components",
+            "the flag is now -D/--dims (the list of feature dimensions to try)",
+        ));
+    }
+    if a.sample < MIN_ROWS {
+        return Err(Error::invalid(
+            "--sample",
+            format!(
+                "an audit needs at least {MIN_ROWS} sample rows (most to fit, the rest to \
+                 check), got {}",
+                a.sample
+            ),
+        ));
+    }
+    if a.model.is_some() && a.loss.is_some() {
+        return Err(Error::invalid(
+            "--loss",
+            "does not apply with --model: the exact machine uses the model's own loss",
+        ));
     }
     let model = a.model.as_deref().map(Model::load).transpose()?;
     let target = match (&a.target, &model) {
@@ -157,11 +184,16 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
         None => {
             let opts = AuditOptions {
                 kernel: KernelKind::from(a.kernel),
+                loss: if a.loss.as_deref() == Some("l1") {
+                    Loss::L1
+                } else {
+                    Loss::L2
+                },
                 gamma: a.gamma,
                 c: a.c,
                 epsilon: a.epsilon,
                 maps: a.maps.iter().copied().map(MapKind::from).collect(),
-                components: a.components.clone(),
+                dims: a.dims.clone(),
                 variant: if a.phase {
                     FourierVariant::CosPhase
                 } else {

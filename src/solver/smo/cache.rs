@@ -3,7 +3,7 @@
 //! least-recently-used eviction.
 //!
 //! A cached row holds `k(x_r, x_s)` for the active rows `s`, in their order (f64, at
-//! most `8·n` bytes). While shrinking is in force only the active columns are computed;
+//! most `8·n` bytes), with the source's diagonal shift added at `s = r`. While shrinking is in force only the active columns are computed;
 //! such a row stays usable until the active set grows again (an "epoch" ends), because
 //! between two reconstructions the active set only shrinks (Joachims, *Making
 //! large-scale SVM learning practical*, 1999; Fan, Chen & Lin, JMLR 6, 2005, section 5):
@@ -62,6 +62,9 @@ pub(super) struct RowSource<'a> {
     pub n: usize,
     /// Every row, tiled for kernel rows.
     pub tiles: Tiles,
+    /// Added to the diagonal of the kernel matrix: 1/(2C) for the squared loss, whose
+    /// dual is the linear loss's with `K + I/(2C)` (Ho & Lin, JMLR 13, 2012, §2), else 0.
+    pub shift: f64,
 }
 
 impl<'a> RowSource<'a> {
@@ -75,7 +78,18 @@ impl<'a> RowSource<'a> {
             d,
             n,
             tiles,
+            shift: 0.0,
         }
+    }
+
+    /// The same rows with `shift` added to the kernel matrix's diagonal.
+    pub fn with_shift(self, shift: f64) -> Self {
+        RowSource { shift, ..self }
+    }
+
+    /// `k(x_r, x_r)` plus the diagonal shift.
+    pub fn diagonal(&self, r: usize) -> f64 {
+        self.value(r, r) + self.shift
     }
 
     /// Row `r` as a slice.
@@ -204,7 +218,11 @@ impl RowCache {
     /// Stops counting `slot` as a user of its layout version (version 0, every row, is
     /// not counted: it needs no member list).
     fn release(&mut self, slot: usize) {
-        let l = self.layout[slot];
+        self.release_layout(self.layout[slot]);
+    }
+
+    /// Stops counting one user of layout `l` (see [`RowCache::release`]).
+    fn release_layout(&mut self, l: Layout) {
         let v = l.version as usize;
         if l.epoch == self.epoch && v > 0 {
             self.users[v] -= 1;
@@ -268,10 +286,14 @@ impl RowCache {
             if same_epoch && l.version == current {
                 return su;
             }
-            self.release(su);
             if same_epoch {
+                // Filter before releasing the old version: releasing its last user frees
+                // the member list the filter reads.
                 self.filter(su, l.version as usize, active);
+                self.release_layout(l);
+                self.acquire(su, false);
             } else {
+                self.release_layout(l);
                 self.compute(su, r, src, active, crew);
             }
             return su;
@@ -304,8 +326,8 @@ impl RowCache {
         su
     }
 
-    /// Keeps, in order, the entries of the row in `su` (stored for version `v`) whose
-    /// rows are still active. Branch-free: every entry is copied to the next free place,
+    /// Keeps, in order, the entries of the row in `su` (stored for version `v`, whose
+    /// member list must still be held) whose rows are still active. Branch-free: every entry is copied to the next free place,
     /// which advances only for a kept row (the place never passes the entry read).
     fn filter(&mut self, su: usize, v: usize, active: &ActiveRows) {
         let row = &mut self.rows[su];
@@ -321,9 +343,12 @@ impl RowCache {
                 out += usize::from(active.mask[r as usize]);
             }
         }
-        debug_assert_eq!(out, active.idx.len());
+        assert_eq!(
+            out,
+            active.idx.len(),
+            "kernel row filtered to the wrong length"
+        );
         row.truncate(out);
-        self.acquire(su, false);
     }
 
     fn compute(&mut self, su: usize, r: usize, src: &RowSource, active: &ActiveRows, crew: &Crew) {
@@ -338,6 +363,17 @@ impl RowCache {
             src.tiles.row_into(crew, &src.kernel, xr, out);
         } else {
             active.tiles.row_into(crew, &src.kernel, xr, out);
+        }
+        if src.shift != 0.0 {
+            // Rows are fetched for active variables only, so row r is among the columns.
+            let at = if all {
+                Ok(r)
+            } else {
+                active.idx.binary_search(&r)
+            };
+            if let Ok(p) = at {
+                out[p] += src.shift;
+            }
         }
         self.evaluations += m as u64;
         self.acquire(su, all);

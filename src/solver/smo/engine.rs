@@ -13,13 +13,20 @@
 //! `m = max over up of v`, `M = min over down of v`, and the point is optimal within
 //! `tol` when `m − M ≤ tol`. A step moves `β_i` by `+δ` and `β_j` by `−δ`, so `g`
 //! changes by `δ (K_i − K_j)`.
+//!
+//! The squared loss is the same problem with `K + I/(2C)` in place of `K` and no upper
+//! bound on the α (Ho & Lin, JMLR 13, 2012, §2, for the linear case): the kernel rows
+//! carry the diagonal shift (`cache.rs`) and the bound `c` is infinite, so the
+//! selection and the steps are unchanged.
 
 use super::cache::{ActiveRows, RowCache, RowSource};
-use super::rows::{Tiles, TILE};
+use super::rows::Tiles;
 use super::scan::{self, Extremes, Second, Update, View, NONE};
 use super::team::Crew;
 use super::Selection;
 use std::time::Instant;
+
+mod shrink;
 
 /// Curvature used when `K_ii + K_jj − 2K_ij ≤ 0` (duplicated rows), as in Fan, Chen &
 /// Lin (2005), eq. (17).
@@ -74,6 +81,7 @@ impl Compact {
 pub(super) struct Engine<'a> {
     src: RowSource<'a>,
     y: &'a [f64],
+    /// Upper bound of every α: C for the linear loss, +∞ for the squared loss.
     c: f64,
     eps: f64,
     pub ap: Vec<f64>,
@@ -100,7 +108,7 @@ impl<'a> Engine<'a> {
     pub fn new(src: RowSource<'a>, y: &'a [f64], c: f64, eps: f64, cache_rows: usize) -> Self {
         let n = src.n;
         let t0 = Instant::now();
-        let diag: Vec<f64> = (0..n).map(|r| src.value(r, r)).collect();
+        let diag: Vec<f64> = (0..n).map(|r| src.diagonal(r)).collect();
         let g: Vec<f64> = y.iter().map(|v| -v).collect();
         Engine {
             y,
@@ -231,105 +239,6 @@ impl<'a> Engine<'a> {
         };
         let (g, view) = self.act.gradient_and_view(c, self.eps);
         scan::extremes(crew, g, Some(update), &view)
-    }
-
-    /// Recomputes `g` on the inactive rows from the support vectors and makes every row
-    /// active again.
-    pub fn reconstruct(&mut self, crew: &Crew) {
-        self.sync();
-        if self.all_active() {
-            return;
-        }
-        let t0 = Instant::now();
-        let sv: Vec<usize> = (0..self.n()).filter(|&s| self.beta[s] != 0.0).collect();
-        let inactive: Vec<usize> = (0..self.n()).filter(|&r| !self.active.mask[r]).collect();
-        let mut sv_tiles = Tiles::new(self.src.d);
-        sv_tiles.gather(self.src.x, sv.iter().copied());
-        let sv_beta: Vec<f64> = sv.iter().map(|&s| self.beta[s]).collect();
-        let mut fresh = vec![0.0; inactive.len()];
-        let (src, y) = (&self.src, self.y);
-        // Blocks of inactive rows in parallel, one kernel-row buffer per block; each
-        // row's sum runs over the support vectors in increasing order.
-        const SPAN: usize = TILE / 8;
-        crew.chunks_mut(&mut fresh, SPAN, |t, outs| {
-            let rows = &inactive[t * SPAN..];
-            let mut k = vec![0.0; sv.len()];
-            for (o, &r) in outs.iter_mut().zip(rows) {
-                sv_tiles.row_into_seq(&src.kernel, src.row(r), &mut k);
-                let mut acc = -y[r];
-                for (b, kv) in sv_beta.iter().zip(&k) {
-                    acc += b * kv;
-                }
-                *o = acc;
-            }
-        });
-        for (&r, v) in inactive.iter().zip(fresh) {
-            self.g[r] = v;
-        }
-        self.extra_evaluations += (inactive.len() * sv.len()) as u64;
-        self.extra_seconds += t0.elapsed().as_secs_f64();
-        self.active.idx = (0..self.n()).collect();
-        self.active.mask.iter_mut().for_each(|m| *m = true);
-        self.act.g.clone_from(&self.g);
-        self.act.ap.clone_from(&self.ap);
-        self.act.am.clone_from(&self.am);
-        self.act.diag.clone_from(&self.diag);
-        self.cache.new_epoch();
-    }
-
-    /// Removes rows whose two variables sit at bounds and cannot form a violating pair
-    /// (Fan, Chen & Lin 2005, §5.1, eq. 25–26).
-    fn shrink(&mut self, m: f64, big_m: f64) {
-        let (c, eps) = (self.c, self.eps);
-        let can_go = |up: bool, down: bool, v: f64| -> bool {
-            match (up, down) {
-                (true, true) => false,
-                (true, false) => v < big_m,
-                (false, true) => v > m,
-                (false, false) => true,
-            }
-        };
-        let keep: Vec<bool> = (0..self.active.idx.len())
-            .map(|p| {
-                let (g, ap, am) = (self.act.g[p], self.act.ap[p], self.act.am[p]);
-                let plus_out = can_go(ap < c, ap > 0.0, -g - eps);
-                let minus_out = can_go(am > 0.0, am < c, -g + eps);
-                !(plus_out && minus_out)
-            })
-            .collect();
-        // Each shrink makes cached kernel rows be compacted again when next used (an
-        // O(active) pass each), so rows leave only in groups of at least an eighth of the
-        // active set; the few that could leave earlier just stay in the scans.
-        let leaving = keep.iter().filter(|&&k| !k).count();
-        if leaving == 0 || leaving * SHRINK_SHARE < keep.len() {
-            return;
-        }
-        self.sync();
-        let filter = |v: &mut Vec<f64>| {
-            let mut out = 0;
-            for p in 0..keep.len() {
-                if keep[p] {
-                    v[out] = v[p];
-                    out += 1;
-                }
-            }
-            v.truncate(out);
-        };
-        filter(&mut self.act.g);
-        filter(&mut self.act.ap);
-        filter(&mut self.act.am);
-        filter(&mut self.act.diag);
-        let mut kept = Vec::with_capacity(self.act.g.len());
-        for (p, &r) in self.active.idx.iter().enumerate() {
-            if keep[p] {
-                kept.push(r);
-            } else {
-                self.active.mask[r] = false;
-            }
-        }
-        self.active.tiles.gather(self.src.x, kept.iter().copied());
-        self.active.idx = kept;
-        self.cache.shrunk(&self.active.idx);
     }
 
     /// Iterates until `m − M ≤ tol` on all rows or `max_iterations` steps.

@@ -10,6 +10,10 @@
 //! shrinking (Joachims, 1999) removes bounded variables, and the gradient is rebuilt on
 //! every row before the final optimality check.
 //!
+//! With the squared loss beyond the tube ([`Loss::L2`]) the dual is the same with
+//! `K + I/(2C)` in place of `K` and no upper bound on the α (Ho & Lin, JMLR 13, 2012,
+//! §2, for the linear case); the same selection and steps solve it.
+//!
 //! Results are bit-identical whatever the number of threads: only independent kernel
 //! values are computed in parallel, every sum runs in a fixed order.
 //!
@@ -31,6 +35,8 @@ mod engine;
 mod rows;
 mod scan;
 mod team;
+#[cfg(test)]
+mod tests;
 
 use std::time::Instant;
 
@@ -40,6 +46,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::kernel::Kernel;
+pub use crate::solver::dcd::Loss;
 use cache::{RowCache, RowSource};
 use engine::Engine;
 use rows::{Tiles, TILE};
@@ -60,8 +67,11 @@ pub enum Selection {
 /// Parameters of the exact SMO fit.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct SmoSettings {
-    /// Box constraint C > 0 (the weight of the epsilon-insensitive loss).
+    /// Weight C > 0 of the loss: the box bound of the linear loss, or the weight of the
+    /// squared residuals beyond the tube for the squared loss.
     pub c: f64,
+    /// Loss beyond the tube: linear (the classic epsilon-SVR) or squared.
+    pub loss: Loss,
     /// Half-width ε ≥ 0 of the insensitive tube, in the units of the target.
     pub epsilon: f64,
     /// Stopping tolerance on the maximal violation `m(α) − M(α)`, > 0.
@@ -78,10 +88,12 @@ pub struct SmoSettings {
 }
 
 impl Default for SmoSettings {
-    /// C = 1, ε = 0.1, tol = 1e-3, 1 GiB cache, shrinking, 10 million steps, WSS2.
+    /// C = 1, the linear loss, ε = 0.1, tol = 1e-3, 1 GiB cache, shrinking, 10 million
+    /// steps, WSS2.
     fn default() -> Self {
         SmoSettings {
             c: 1.0,
+            loss: Loss::L1,
             epsilon: 0.1,
             tol: 1e-3,
             cache_bytes: 1 << 30,
@@ -101,7 +113,8 @@ pub struct SmoReport {
     pub kernel_evaluations: u64,
     /// Training rows with a non-zero coefficient.
     pub support_vectors: usize,
-    /// Dual objective `½ βᵀKβ − yᵀβ + ε Σ(α⁺+α⁻)` at the solution (to be minimised).
+    /// Dual objective `½ βᵀKβ − yᵀβ + ε Σ(α⁺+α⁻)` at the solution (to be minimised),
+    /// plus `‖β‖²/(4C)` for the squared loss.
     pub objective: f64,
     /// Wall-clock seconds of the fit.
     pub seconds: f64,
@@ -268,9 +281,13 @@ pub fn fit(
     let xs = x.as_standard_layout();
     let xs = xs.as_slice().expect("standard layout");
     let ys = y.to_vec();
-    let src = RowSource::new(kernel, xs, d, n);
+    let (bound, shift) = match settings.loss {
+        Loss::L1 => (settings.c, 0.0),
+        Loss::L2 => (f64::INFINITY, 0.5 / settings.c),
+    };
+    let src = RowSource::new(kernel, xs, d, n).with_shift(shift);
     let cache_rows = RowCache::rows_in_budget(settings.cache_bytes, n);
-    let mut engine = Engine::new(src, &ys, settings.c, settings.epsilon, cache_rows);
+    let mut engine = Engine::new(src, &ys, bound, settings.epsilon, cache_rows);
     // Kernel rows, gradient rebuilds and the long scans are split over a crew of as many
     // threads as the current rayon pool has, kept awake for the whole fit (`team.rs`).
     let (outcome, (final_gap, bias)) = with_crew(|crew| {

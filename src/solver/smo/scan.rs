@@ -20,11 +20,11 @@
 //! A long pass is split over the crew (`team.rs`) in parts of whole lane groups; the
 //! parts' results are merged by the same rule (best value, then smallest code), so the
 //! choice is again that of one sequential scan, and the gradient update is the same
-//! element-wise operation wherever it runs.
+//! element-wise operation wherever it runs. In test builds every pass is compared with
+//! the scalar scans of `scan/reference.rs`.
 
 use std::ops::Range;
 
-use super::team::Crew;
 use crate::cpu::{Cpu, Kernel};
 
 /// Positions handled together.
@@ -357,21 +357,10 @@ fn wss2_part(g: &[f64], w: &Second, s: &View, offset: usize) -> (f64, u64) {
     Cpu::detect().run(Wss2Part { g, w, s, offset })
 }
 
-/// Parts a pass over `n` positions is split into on `crew`: one per thread, each of at
-/// least [`MIN_PART`] positions.
-fn parts(crew: &Crew, n: usize) -> usize {
-    crew.threads().min(n / MIN_PART).max(1)
-}
-
-/// Positions per part when `n` positions go into `parts` parts (whole lane groups).
-fn span(n: usize, parts: usize) -> usize {
-    n.div_ceil(parts).next_multiple_of(LANES).max(LANES)
-}
-
 /// The better of two candidates (lanes or parts): the best value, the smallest code
 /// among equal values (the order of one sequential scan); a candidate coded [`NONE`]
 /// never wins.
-fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
+pub(super) fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
     let wins = if MAX { b.0 > a.0 } else { b.0 < a.0 };
     if b.1 != NONE && (a.1 == NONE || wins || (b.0 == a.0 && b.1 < a.1)) {
         b
@@ -380,219 +369,10 @@ fn better<const MAX: bool>(a: (f64, u64), b: (f64, u64)) -> (f64, u64) {
     }
 }
 
-/// `m(α)`, `M(α)` and their variables, after the gradient update when there is one,
-/// split over the crew when long.
-pub(super) fn extremes(crew: &Crew, g: &mut [f64], update: Option<Update>, s: &View) -> Extremes {
-    extremes_split(crew, parts(crew, g.len()), g, update, s)
-}
-
-/// [`extremes`] in `parts` parts of whole lane groups, the parts' results merged in the
-/// order of one sequential scan.
-fn extremes_split(
-    crew: &Crew,
-    parts: usize,
-    g: &mut [f64],
-    update: Option<Update>,
-    s: &View,
-) -> Extremes {
-    fn pass(g: &mut [f64], u: &Option<Update>, s: &View, offset: usize) -> Extremes {
-        match u {
-            Some(u) => extremes_part::<true>(g, u, s, offset),
-            None => {
-                let none = Update {
-                    ki: s.ap,
-                    kj: s.ap,
-                    di: 0.0,
-                    dj: 0.0,
-                };
-                extremes_part::<false>(g, &none, s, offset)
-            }
-        }
-    }
-    if parts <= 1 {
-        return pass(g, &update, s, 0);
-    }
-    let span = span(g.len(), parts);
-    let found = crew.chunks_mut(g, span, |k, gp| {
-        let r = k * span..k * span + gp.len();
-        pass(
-            gp,
-            &update.map(|u| u.part(r.clone())),
-            &s.part(r.clone()),
-            r.start,
-        )
-    });
-    let mut e = found[0];
-    for f in &found[1..] {
-        (e.m, e.i) = better::<true>((e.m, e.i), (f.m, f.i));
-        (e.big_m, e.j) = better::<false>((e.big_m, e.j), (f.big_m, f.j));
-    }
-    e
-}
-
-/// The WSS2 choice of the second variable (its code, or [`NONE`]), split over the crew
-/// like [`extremes`].
-pub(super) fn wss2(crew: &Crew, g: &[f64], w: &Second, s: &View) -> u64 {
-    wss2_split(crew, parts(crew, g.len()), g, w, s)
-}
-
-/// [`wss2`] in `parts` parts, merged like [`extremes_split`].
-fn wss2_split(crew: &Crew, parts: usize, g: &[f64], w: &Second, s: &View) -> u64 {
-    if parts <= 1 {
-        return wss2_part(g, w, s, 0).1;
-    }
-    let (n, span) = (g.len(), span(g.len(), parts));
-    let found = crew.map(n.div_ceil(span), |k| {
-        let r = k * span..((k + 1) * span).min(n);
-        wss2_part(
-            &g[r.clone()],
-            &w.part(r.clone()),
-            &s.part(r.clone()),
-            r.start,
-        )
-    });
-    found
-        .into_iter()
-        .reduce(better::<false>)
-        .map_or(NONE, |b| b.1)
-}
+mod split;
+pub(super) use split::{extremes, wss2};
 
 #[cfg(test)]
-mod tests {
-    use super::super::team::with_crew;
-    use super::*;
-    use rand::{Rng, SeedableRng};
-    use rand_chacha::ChaCha8Rng;
-
-    /// The sequential scans the lane-wise passes must reproduce: every variable visited
-    /// in order (α⁺ then α⁻ of each row) with a strict comparison, as written in Fan,
-    /// Chen & Lin (JMLR 2005), WSS2 and the maximal violating pair.
-    fn sequential(g: &[f64], ap: &[f64], am: &[f64], c: f64, eps: f64) -> Extremes {
-        let mut e = Extremes {
-            m: f64::NEG_INFINITY,
-            i: NONE,
-            big_m: f64::INFINITY,
-            j: NONE,
-        };
-        for p in 0..g.len() {
-            let (vp, vm) = (-g[p] - eps, -g[p] + eps);
-            let code = 2 * p as u64;
-            for (up, down, v, k) in [
-                (ap[p] < c, ap[p] > 0.0, vp, code),
-                (am[p] > 0.0, am[p] < c, vm, code + 1),
-            ] {
-                if up && v > e.m {
-                    (e.m, e.i) = (v, k);
-                }
-                if down && v < e.big_m {
-                    (e.big_m, e.j) = (v, k);
-                }
-            }
-        }
-        e
-    }
-
-    fn sequential_wss2(g: &[f64], s: &View, diag: &[f64], ki: &[f64], kii: f64, m: f64) -> u64 {
-        let (mut best, mut j) = (f64::INFINITY, NONE);
-        for p in 0..g.len() {
-            let a = kii + diag[p] - 2.0 * ki[p];
-            let a = if a > 0.0 { a } else { 1e-12 };
-            for (ok, v, k) in [
-                (s.ap[p] > 0.0, -g[p] - s.eps, 2 * p as u64),
-                (s.am[p] < s.c, -g[p] + s.eps, 2 * p as u64 + 1),
-            ] {
-                let b = m - v;
-                if ok && b > 0.0 && -b * b / a < best {
-                    (best, j) = (-b * b / a, k);
-                }
-            }
-        }
-        j
-    }
-
-    /// Lane-wise passes choose exactly the variables of the sequential scans, and update
-    /// the gradient exactly, on data full of ties (few distinct values, ε = 0 included,
-    /// lengths that end in a partial group of lanes), whole or split in two or three
-    /// parts over crews of one to three threads. Reference: the definitions above
-    /// (common practice for a re-arranged computation).
-    #[test]
-    fn lanes_and_parts_choose_as_the_sequential_scan() {
-        for threads in [1, 2, 3] {
-            rayon::ThreadPoolBuilder::new()
-                .num_threads(threads)
-                .build()
-                .unwrap()
-                .install(|| with_crew(compare_with_sequential));
-        }
-    }
-
-    fn compare_with_sequential(crew: &Crew) {
-        let mut rng = ChaCha8Rng::seed_from_u64(5);
-        let c = 2.0;
-        for trial in 0..300 {
-            let n = 1 + trial % 45;
-            let parts = 1 + trial % 3;
-            let eps = if trial % 3 == 0 { 0.0 } else { 0.25 };
-            let pick = |rng: &mut ChaCha8Rng| [0.0, 0.5, c][rng.random_range(0..3)];
-            let g: Vec<f64> = (0..n)
-                .map(|_| rng.random_range(-3..=3) as f64 * 0.5)
-                .collect();
-            let ap: Vec<f64> = (0..n).map(|_| pick(&mut rng)).collect();
-            let am: Vec<f64> = (0..n).map(|_| pick(&mut rng)).collect();
-            let ki: Vec<f64> = (0..n)
-                .map(|_| rng.random_range(0..4) as f64 * 0.25)
-                .collect();
-            let kj: Vec<f64> = (0..n)
-                .map(|_| rng.random_range(0..4) as f64 * 0.25)
-                .collect();
-            let diag = vec![1.0; n];
-            let s = View {
-                ap: &ap,
-                am: &am,
-                c,
-                eps,
-            };
-            let mut g1 = g.clone();
-            let e = extremes_split(crew, parts, &mut g1, None, &s);
-            let r = sequential(&g, &ap, &am, c, eps);
-            assert_eq!(
-                (e.m, e.i, e.big_m, e.j),
-                (r.m, r.i, r.big_m, r.j),
-                "trial {trial}"
-            );
-            let u = Update {
-                ki: &ki,
-                kj: &kj,
-                di: 0.5,
-                dj: -0.25,
-            };
-            let e = extremes_split(crew, parts, &mut g1, Some(u), &s);
-            let g2: Vec<f64> = (0..n)
-                .map(|p| g[p] + (0.5 * ki[p] + -0.25 * kj[p]))
-                .collect();
-            assert_eq!(g1, g2, "trial {trial}");
-            let r = sequential(&g2, &ap, &am, c, eps);
-            assert_eq!(
-                (e.m, e.i, e.big_m, e.j),
-                (r.m, r.i, r.big_m, r.j),
-                "trial {trial}"
-            );
-            if r.i != NONE {
-                let kii = 1.0;
-                let w = Second {
-                    diag: &diag,
-                    ki: &ki,
-                    kii,
-                    m: r.m,
-                    tau: 1e-12,
-                };
-                let got = wss2_split(crew, parts, &g2, &w, &s);
-                assert_eq!(
-                    got,
-                    sequential_wss2(&g2, &s, &diag, &ki, kii, r.m),
-                    "trial {trial}"
-                );
-            }
-        }
-    }
-}
+mod reference;
+#[cfg(test)]
+mod tests;
