@@ -50,6 +50,18 @@ pub enum Error {
         source: std::io::Error,
     },
 
+    /// An output file or folder could not be written; the message names the user's
+    /// path (never a temporary name) and the real problem, the cause is kept.
+    #[error("{}: {message} ({source})", path.display())]
+    Output {
+        /// The output file or folder as the user named it.
+        path: PathBuf,
+        /// What is wrong, as a clause.
+        message: String,
+        /// The underlying error.
+        source: std::io::Error,
+    },
+
     /// A data file could not be used (corrupt, unreadable, wrong layout).
     #[error("{}: {message}", path.display())]
     File {

@@ -203,8 +203,12 @@ impl Model {
             path: path.to_path_buf(),
             message,
         };
-        let meta: Meta = serde_json::from_value(file.meta.clone())
-            .map_err(|e| bad(format!("its description is not a kernlake model ({e})")))?;
+        let meta: Meta = serde_json::from_value(file.meta.clone()).map_err(|e| {
+            bad(format!(
+                "its description is not a kernlake model ({})",
+                brief(&e)
+            ))
+        })?;
         if meta.kind != MODEL_KIND {
             return Err(bad(format!(
                 "holds a '{}', not a kernlake model",
@@ -234,8 +238,8 @@ impl Model {
                 .filter_map(|(n, a)| n.strip_prefix("map.").map(|s| (s.to_string(), a.clone())))
                 .collect(),
         };
-        let map =
-            map_from_parts(&parts).map_err(|e| bad(format!("has an unusable feature map: {e}")))?;
+        let map = map_from_parts(&parts)
+            .map_err(|e| bad(format!("has an unusable feature map ({})", brief(&e))))?;
         let d = meta.columns.features.len();
         if scaler.mean.len() != d || scaler.scale.len() != d || map.input_dim() != d {
             return Err(bad(format!(
@@ -261,6 +265,13 @@ impl Model {
             (None, None) => None,
             _ => return Err(bad("has malformed coverage landmarks".into())),
         };
+        check_meaning(file, &meta, &scaler, &weights, intercept, coverage.as_ref()).map_err(
+            |m| {
+                bad(format!(
+                    "passes its checksum but is not a usable model: {m}"
+                ))
+            },
+        )?;
         Ok(Model {
             coverage,
             columns: meta.columns,
@@ -285,4 +296,93 @@ impl Model {
         let file = ModelFile::load(path)?;
         Model::from_model_file(&file, path)
     }
+}
+
+/// The first line of an error's text, at most 80 characters: a cause for a one-sentence
+/// message, never a decoder trace.
+pub(crate) fn brief(e: &dyn std::fmt::Display) -> String {
+    let text = e.to_string();
+    let line = text.lines().next().unwrap_or("").trim();
+    if line.chars().count() <= 80 {
+        line.to_string()
+    } else {
+        format!("{}…", line.chars().take(80).collect::<String>())
+    }
+}
+
+/// Checks what a checksum cannot: that a decoded model means something. Returns the
+/// first problem as a clause naming the value concerned.
+fn check_meaning(
+    file: &ModelFile,
+    meta: &Meta,
+    scaler: &Standardizer,
+    weights: &Array1<f64>,
+    intercept: f64,
+    coverage: Option<&Coverage>,
+) -> std::result::Result<(), String> {
+    let features = &meta.columns.features;
+    if features.is_empty() {
+        return Err("it lists no input column".into());
+    }
+    for (i, f) in features.iter().enumerate() {
+        if f.is_empty() {
+            return Err(format!("input {} has an empty name", i + 1));
+        }
+        if features[..i].contains(f) {
+            return Err(format!("the input column '{f}' is listed twice"));
+        }
+        if meta.columns.target.as_ref() == Some(f) {
+            return Err(format!("the target '{f}' is also an input"));
+        }
+    }
+    fn finite<'a>(
+        what: &str,
+        mut v: impl Iterator<Item = &'a f64>,
+    ) -> std::result::Result<(), String> {
+        match v.position(|x| !x.is_finite()) {
+            Some(i) => Err(format!("{what} {} is not a finite number", i + 1)),
+            None => Ok(()),
+        }
+    }
+    finite("weight", weights.iter())?;
+    if !intercept.is_finite() {
+        return Err(format!("its intercept is {intercept}"));
+    }
+    finite("input mean", scaler.mean.iter())?;
+    if let Some(j) = scaler
+        .scale
+        .iter()
+        .position(|s| !(s.is_finite() && *s > 0.0))
+    {
+        return Err(format!(
+            "the scale of input '{}' is {}, not a positive finite number",
+            features[j], scaler.scale[j]
+        ));
+    }
+    let gamma = meta.kernel.gamma;
+    if !(gamma.is_finite() && gamma > 0.0) {
+        return Err(format!(
+            "its kernel's gamma is {gamma}, not a positive number"
+        ));
+    }
+    let (c, eps) = (meta.solver.c, meta.solver.epsilon);
+    if !(c.is_finite() && c > 0.0 && eps.is_finite() && eps >= 0.0) {
+        return Err(format!("its C ({c}) or epsilon ({eps}) is out of range"));
+    }
+    for (name, a) in file.arrays.iter().filter(|(n, _)| n.starts_with("map.")) {
+        finite(&format!("value of array '{name}', number"), a.iter())?;
+    }
+    if let Some(cov) = coverage {
+        if cov.landmarks.nrows() == 0 {
+            return Err("its coverage has no landmarks".into());
+        }
+        finite("coverage landmark value", cov.landmarks.iter())?;
+        if !(0.0..=1.0).contains(&cov.threshold) {
+            return Err(format!(
+                "its coverage threshold is {}, not a number in [0, 1]",
+                cov.threshold
+            ));
+        }
+    }
+    Ok(())
 }

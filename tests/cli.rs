@@ -286,3 +286,53 @@ fn unusable_columns_and_rows_fail_clearly() {
     assert!(!out.exists());
     no_temp_files(dir.path());
 }
+
+#[test]
+fn fit_names_left_out_columns_and_clears_stale_temporaries() {
+    // CCPP rows (dataset: Tüfekci 2014) as CSV with a text column and one bad V cell.
+    let dir = tempfile::tempdir().unwrap();
+    let (_, x, y) = ccpp();
+    let mut text = String::from("site,AT,V,AP,RH,PE\n");
+    for i in 0..600 {
+        let v = if i == 41 {
+            "abc".to_string()
+        } else {
+            x[[i, 1]].to_string()
+        };
+        text.push_str(&format!(
+            "S{},{},{v},{},{},{}\n",
+            i % 7,
+            x[[i, 0]],
+            x[[i, 2]],
+            x[[i, 3]],
+            y[i]
+        ));
+    }
+    let csv = dir.path().join("plant.csv");
+    std::fs::write(&csv, text).unwrap();
+    let model = dir.path().join("m.klm");
+    // a temporary file of a run that no longer exists (no process has this id: above
+    // Linux's largest pid) and one of a live process (this test)
+    let stale = dir.path().join(".m.klm.part-4194305-00000000deadbeef");
+    let live = dir.path().join(format!(
+        ".m.klm.part-{}-00000000deadbeef",
+        std::process::id()
+    ));
+    std::fs::write(&stale, b"half").unwrap();
+    std::fs::write(&live, b"busy").unwrap();
+    let mut args = fit_args(csv.to_str().unwrap(), model.to_str().unwrap());
+    args.retain(|a| *a != "--quiet");
+    let o = kernlake(&args);
+    let err = stderr(&o);
+    assert!(o.status.success(), "{err}");
+    assert!(err.contains("4 input column(s)"), "{err}");
+    assert!(
+        err.contains("column 'site'") && err.contains("'S0' in row 1"),
+        "{err}"
+    );
+    assert!(!stale.exists() && live.exists());
+    // under the fail policy the bad cell is named with its row
+    let mut args = fit_args(csv.to_str().unwrap(), model.to_str().unwrap());
+    args.extend(["--missing", "fail"]);
+    fails_with(&args, &["plant.csv", "row 42", "'V'", "abc"]);
+}

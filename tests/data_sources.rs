@@ -15,8 +15,8 @@ use arrow_array::{
 };
 use arrow_schema::DataType;
 use kernlake::data::{
-    discover, resolve_columns, Block, ColumnSelection, CsvOptions, Format, MissingPolicy,
-    ResolvedColumns, TableReader,
+    choose_columns, discover, discover_lenient, resolve_columns, Block, ColumnSelection,
+    CsvOptions, Format, MissingPolicy, ResolvedColumns, TableReader,
 };
 use kernlake::Error;
 use parquet::arrow::ArrowWriter;
@@ -682,4 +682,164 @@ fn csv_delimiter_and_integer_columns() {
         blocks[0].y.as_ref().unwrap().to_vec(),
         vec![10.0, 20.0, 30.0]
     );
+}
+
+/// CCPP rows (dataset: Tüfekci 2014) as CSV text with `cell` put in place of V on the
+/// data row `bad_row` (1-based).
+fn ccpp_csv_with(rows: &[[f64; 5]], bad_row: usize, cell: &str) -> String {
+    let mut s = String::from("AT,V,AP,RH,PE\n");
+    for (i, r) in rows.iter().enumerate() {
+        let mut cells: Vec<String> = r.iter().map(|v| format!("{v}")).collect();
+        if i + 1 == bad_row {
+            cells[1] = cell.to_string();
+        }
+        s.push_str(&cells.join(","));
+        s.push('\n');
+    }
+    s
+}
+
+#[test]
+fn one_text_cell_is_a_missing_value_not_a_lost_column() {
+    // issue 20: V = "abc" in one of 2,000 rows used to drop V from the inputs
+    let data = ccpp();
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("ccpp.csv");
+    fs::write(&p, ccpp_csv_with(&data[..2000], 17, "abc")).unwrap();
+    let files = discover(&[s(&p)]).unwrap();
+    let choice = choose_columns(&files, &target_pe(), &CsvOptions::default()).unwrap();
+    assert_eq!(choice.columns.features, vec!["AT", "V", "AP", "RH"]);
+    assert!(choice.left_out.is_empty(), "{:?}", choice.left_out);
+
+    // skip: the row is left out and counted against V; every other row is the dataset's
+    let reader = TableReader::new(files.clone(), choice.columns.clone());
+    let blocks = read_all(&reader);
+    let rows = flatten(&blocks);
+    assert_eq!(rows.len(), 1999);
+    assert!(rows.iter().all(|(id, _)| *id != 16));
+    let skipped: u64 = blocks.iter().map(|b| b.skipped[1]).sum();
+    assert_eq!(skipped, 1);
+    for (id, v) in &rows {
+        assert_eq!(v.as_slice(), &data[*id as usize][..]);
+    }
+
+    // fail: the error names file, row and column
+    let reader = TableReader::new(files, choice.columns).with_missing(MissingPolicy::Fail);
+    let e = reader.blocks().unwrap().find_map(Result::err).unwrap();
+    assert!(
+        matches!(&e, Error::Cell { path, row: 17, column, message } if *path == p && column == "V" && message.contains("abc")),
+        "{e}"
+    );
+}
+
+#[test]
+fn columns_left_out_of_the_default_inputs_are_named_with_why() {
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("t.csv");
+    fs::write(
+        &p,
+        "site,AT,note,empty,PE\nA7,14.96,ok,,463.26\nB2,25.18,late,,444.37\nC1,5.11,ok,,488.56\n",
+    )
+    .unwrap();
+    let files = discover(&[s(&p)]).unwrap();
+    let choice = choose_columns(&files, &target_pe(), &CsvOptions::default()).unwrap();
+    assert_eq!(choice.columns.features, vec!["AT"]);
+    let named: Vec<(&str, &str)> = choice
+        .left_out
+        .iter()
+        .map(|l| (l.column.as_str(), l.reason.as_str()))
+        .collect();
+    assert_eq!(named.len(), 3, "{named:?}");
+    assert!(
+        named[0].0 == "site" && named[0].1.contains("'A7' in row 1"),
+        "{named:?}"
+    );
+    assert!(
+        named[1].0 == "note" && named[1].1.contains("not numeric"),
+        "{named:?}"
+    );
+    assert!(
+        named[2].0 == "empty" && named[2].1.contains("empty"),
+        "{named:?}"
+    );
+    let line = choice.left_out[0].to_string();
+    assert!(line.contains("t.csv") && line.contains("'site'"), "{line}");
+    // an excluded column is the user's choice: no note
+    let sel = ColumnSelection {
+        exclude: vec!["site".into()],
+        ..target_pe()
+    };
+    let choice = choose_columns(&files, &sel, &CsvOptions::default()).unwrap();
+    assert!(choice.left_out.iter().all(|l| l.column != "site"));
+}
+
+#[test]
+fn unclear_column_failures_name_the_real_cause() {
+    let dir = tempfile::tempdir().unwrap();
+    let opts = CsvOptions::default();
+    let msg = |p: &Path, sel: &ColumnSelection| {
+        let files = discover(&[s(p)]).unwrap();
+        resolve_columns(&files, sel, &opts).unwrap_err().to_string()
+    };
+    // a header without data rows: no rows, not "no numeric column"
+    let p = dir.path().join("header.csv");
+    fs::write(&p, "AT,V,AP,RH,PE\n").unwrap();
+    let m = msg(&p, &target_pe());
+    assert!(
+        m.contains("header.csv") && m.contains("no data rows"),
+        "{m}"
+    );
+
+    // separated by semicolons without a delimiter: the delimiter is suggested
+    let p = dir.path().join("semi.csv");
+    fs::write(&p, "AT;V;PE\n14.96;41.76;463.26\n25.18;62.96;444.37\n").unwrap();
+    let m = msg(&p, &target_pe());
+    assert!(
+        m.contains("semi.csv") && m.contains("--delimiter ';'"),
+        "{m}"
+    );
+
+    // a duplicated header name, no --features given: the file is blamed, not --features
+    let p = dir.path().join("dup.csv");
+    fs::write(&p, "AT,V,AT,PE\n1,2,3,4\n5,6,7,8\n").unwrap();
+    let files = discover(&[s(&p)]).unwrap();
+    let e = resolve_columns(&files, &target_pe(), &opts).unwrap_err();
+    assert!(
+        matches!(&e, Error::Column { path, column, message } if *path == p && column == "AT" && message.contains("more than once")),
+        "{e}"
+    );
+
+    // a target that is null in every row of every file is named
+    let p = dir.path().join("nulls.parquet");
+    let batch = RecordBatch::try_from_iter(vec![
+        (
+            "AT",
+            Arc::new(Float64Array::from(vec![1.0, 2.0, 3.0])) as ArrayRef,
+        ),
+        (
+            "PE",
+            Arc::new(Float64Array::from(vec![None::<f64>; 3])) as ArrayRef,
+        ),
+    ])
+    .unwrap();
+    write_batch(&p, &batch);
+    let files = discover(&[s(&p)]).unwrap();
+    let e = resolve_columns(&files, &target_pe(), &opts).unwrap_err();
+    assert!(
+        matches!(&e, Error::Column { column, message, .. } if column == "PE" && message.contains("null")),
+        "{e}"
+    );
+}
+
+#[test]
+fn lenient_discovery_lists_an_unreadable_parquet_file() {
+    let data = ccpp();
+    let dir = tempfile::tempdir().unwrap();
+    write_batch(&dir.path().join("a.parquet"), &ccpp_batch(&data[..5]));
+    fs::write(dir.path().join("b.parquet"), b"not parquet at all").unwrap();
+    let e = discover(&[s(dir.path())]).unwrap_err();
+    assert!(e.to_string().contains("b.parquet"), "{e}");
+    let files = discover_lenient(&[s(dir.path())]).unwrap();
+    assert_eq!(files.len(), 2);
+    assert_eq!((files[0].rows, files[1].rows), (Some(5), None));
 }

@@ -1,6 +1,8 @@
 //! The model-file container: round trip, layout as seen by a plain Arrow reader, and
 //! clean errors on damaged, foreign, truncated and newer files.
 
+mod common;
+
 use std::collections::HashMap;
 use std::io::{Cursor, Write};
 use std::path::Path;
@@ -347,10 +349,146 @@ fn save_leaves_no_temporary_file_and_interrupted_writes_leave_nothing() {
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 1);
     ModelFile::load(&path).unwrap();
 
-    // Saving into a folder that does not exist is an I/O error naming it.
+    // Saving into a folder that does not exist names the user's path and the missing
+    // folder, never the temporary name.
     let nowhere = dir.path().join("no-such-folder").join("model.klm");
-    assert!(matches!(
-        sample_model().save(&nowhere),
-        Err(Error::Io { .. })
-    ));
+    let e = sample_model().save(&nowhere).unwrap_err();
+    let msg = e.to_string();
+    assert!(matches!(e, Error::Output { .. }), "{msg}");
+    assert!(
+        msg.starts_with(&nowhere.display().to_string())
+            && msg.contains("no-such-folder does not exist")
+            && !msg.contains(".part-"),
+        "{msg}"
+    );
+    // A folder given as the model's path is named as such (not "File exists").
+    let e = sample_model().save(dir.path()).unwrap_err().to_string();
+    assert!(e.contains("is a folder") && !e.contains(".part-"), "{e}");
+}
+
+/// A model fitted on 300 rows of Friedman #1 (published: Friedman 1991), with coverage.
+fn fitted() -> kernlake::model::Model {
+    let (x, y, _) = common::friedman1(300, 3);
+    kernlake::fit::Fitter::new()
+        .with_components(32)
+        .with_gamma(0.1)
+        .with_c(10.0)
+        .with_epsilon(0.1)
+        .with_seed(5)
+        .fit(x.view(), y.view())
+        .unwrap()
+}
+
+/// Hand edits that keep the checksum right (the file is re-encoded) but make the model
+/// meaningless; each used to load and predict NaN or nonsense with exit 0 (issue 20).
+#[test]
+fn models_that_pass_the_checksum_but_mean_nothing_are_refused() {
+    let model = fitted();
+    let good = model.to_model_file().unwrap();
+    let origin = Path::new("edited.klm");
+    kernlake::model::Model::from_model_file(&good, origin).unwrap();
+    let set = |f: &mut ModelFile, name: &str, edit: &dyn Fn(&mut Array2<f64>)| {
+        let a = &mut f.arrays.iter_mut().find(|(n, _)| n == name).unwrap().1;
+        edit(a);
+    };
+    type Edit = Box<dyn Fn(&mut ModelFile)>;
+    let cases: Vec<(&str, Edit, &str)> = vec![
+        (
+            "NaN weight",
+            Box::new(|f| set(f, "weights", &|a| a[[0, 3]] = f64::NAN)),
+            "weight 4",
+        ),
+        (
+            "zero scale",
+            Box::new(|f| set(f, "scaler.scale", &|a| a[[0, 1]] = 0.0)),
+            "scale",
+        ),
+        (
+            "infinite scale",
+            Box::new(|f| set(f, "scaler.scale", &|a| a[[0, 0]] = f64::INFINITY)),
+            "scale",
+        ),
+        (
+            "NaN mean",
+            Box::new(|f| set(f, "scaler.mean", &|a| a[[0, 2]] = f64::NAN)),
+            "mean",
+        ),
+        (
+            "infinite intercept",
+            Box::new(|f| set(f, "intercept", &|a| a[[0, 0]] = f64::INFINITY)),
+            "intercept",
+        ),
+        (
+            "duplicated names",
+            Box::new(|f| {
+                f.meta["columns"]["features"][1] = f.meta["columns"]["features"][0].clone()
+            }),
+            "twice",
+        ),
+        (
+            "gamma -1",
+            Box::new(|f| f.meta["kernel"]["gamma"] = serde_json::json!(-1.0)),
+            "gamma",
+        ),
+        (
+            "NaN threshold",
+            Box::new(|f| set(f, "coverage.threshold", &|a| a[[0, 0]] = f64::NAN)),
+            "threshold",
+        ),
+        (
+            "zero landmarks",
+            Box::new(|f| {
+                set(f, "coverage.landmarks", &|a| {
+                    *a = Array2::zeros((0, a.ncols()))
+                })
+            }),
+            "landmarks",
+        ),
+        (
+            "NaN frequency",
+            Box::new(|f| set(f, "map.frequencies", &|a| a[[1, 1]] = f64::NAN)),
+            "map.frequencies",
+        ),
+    ];
+    for (what, edit, needle) in cases {
+        let mut f = good.clone();
+        edit(&mut f);
+        // re-encode: the checksum is right, only the meaning is wrong
+        let bytes = f.to_bytes().unwrap();
+        let decoded = ModelFile::from_bytes(&bytes, origin).unwrap();
+        let e = match kernlake::model::Model::from_model_file(&decoded, origin) {
+            Ok(_) => panic!("{what}: a meaningless model loaded"),
+            Err(e) => e.to_string(),
+        };
+        assert!(
+            e.contains("edited.klm") && e.contains(needle),
+            "{what}: {e}"
+        );
+        assert!(
+            e.len() < 200 && !e.contains('\n'),
+            "{what}: not one short sentence: {e}"
+        );
+    }
+}
+
+#[test]
+fn output_folders_are_created_whole_or_refused_naming_the_file_in_the_way() {
+    // common practice: create each missing folder, then sync its parent
+    let dir = tempfile::tempdir().unwrap();
+    let deep = dir.path().join("a").join("b").join("c");
+    kernlake::atomic::create_dir_durable(&deep).unwrap();
+    assert!(deep.is_dir());
+    kernlake::atomic::create_dir_durable(&deep).unwrap();
+    std::fs::write(dir.path().join("plain"), b"x").unwrap();
+    let blocked = dir.path().join("plain").join("sub");
+    let e = kernlake::atomic::create_dir_durable(&blocked).unwrap_err();
+    let msg = e.to_string();
+    assert!(matches!(e, Error::Output { .. }), "{msg}");
+    assert!(msg.contains("plain") && msg.contains("is a file"), "{msg}");
+    // a stale temporary file of a dead process is removed by the next write of that
+    // name (no process has an id above Linux's largest pid)
+    let stale = deep.join(".m.klm.part-4194305-0123456789abcdef");
+    std::fs::write(&stale, b"half").unwrap();
+    sample_model().save(&deep.join("m.klm")).unwrap();
+    assert!(!stale.exists());
 }

@@ -377,6 +377,71 @@ fn rerun_skips_complete_outputs_and_redoes_changed_ones() {
 }
 
 #[test]
+fn rerun_rewrites_an_output_whose_pages_are_damaged_under_an_intact_footer() {
+    // issue 20: bytes 2,000-2,400 zeroed used to pass as "already complete"
+    let model = ccpp_model();
+    let tmp = tempfile::tempdir().unwrap();
+    lake(&tmp.path().join("lake"));
+    let files = discover(&[tmp.path().join("lake").display().to_string()]).unwrap();
+    let out = tmp.path().join("out");
+    let o = opts(&out, 2, 4096);
+    assert_eq!(
+        score_files(&model, &files, &o, &Quiet)
+            .unwrap()
+            .files_scored,
+        6
+    );
+    let out0 = out.join("site=1").join("part-0.parquet");
+    let good = std::fs::read(&out0).unwrap();
+    let mut bad = good.clone();
+    assert!(bad.len() > 2400, "{} bytes", bad.len());
+    bad[2000..2400].fill(0);
+    std::fs::write(&out0, &bad).unwrap();
+    // the footer still reads
+    ParquetRecordBatchReaderBuilder::try_new(std::fs::File::open(&out0).unwrap()).unwrap();
+    let again = score_files(&model, &files, &o, &Quiet).unwrap();
+    assert_eq!((again.files_scored, again.files_skipped), (1, 5));
+    assert_eq!(std::fs::read(&out0).unwrap(), good);
+}
+
+#[test]
+fn keep_going_scores_the_rest_past_an_unreadable_parquet_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let lake_dir = dir.path().join("lake");
+    lake(&lake_dir);
+    std::fs::write(
+        lake_dir.join("site=1").join("broken.parquet"),
+        b"PAR1 not really",
+    )
+    .unwrap();
+    let model = dir.path().join("m.klm");
+    ccpp_model().save(&model).unwrap();
+    let out = dir.path().join("out");
+    let o = kernlake()
+        .args(["score", "--keep-going", model.to_str().unwrap()])
+        .arg(&lake_dir)
+        .args(["--out", out.to_str().unwrap()])
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains("broken.parquet") && err.contains("6 scored"),
+        "{err}"
+    );
+    assert!(out.join("site=3").join("part-5.parquet").exists());
+    // without --keep-going the same lake stops before scoring, naming the file
+    let o = kernlake()
+        .args(["score", model.to_str().unwrap()])
+        .arg(&lake_dir)
+        .args(["--out", dir.path().join("out2").to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(!o.status.success());
+    assert!(String::from_utf8_lossy(&o.stderr).contains("broken.parquet"));
+}
+
+#[test]
 fn contract_failures_name_file_and_column_and_write_nothing() {
     let model = ccpp_model();
     let tmp = tempfile::tempdir().unwrap();
@@ -440,8 +505,11 @@ fn bad_outputs_corrupt_and_empty_inputs() {
     std::fs::write(tmp.path().join("plain"), b"x").unwrap();
     let blocked = tmp.path().join("plain").join("out");
     match score_files(&model, &files, &opts(&blocked, 1, 1000), &Quiet) {
-        Err(e @ Error::Io { .. }) => assert!(e.to_string().contains("plain"), "{e}"),
-        other => panic!("expected an io error, got {other:?}"),
+        Err(e @ Error::Output { .. }) => {
+            let m = e.to_string();
+            assert!(m.contains("plain") && m.contains("is a file"), "{m}");
+        }
+        other => panic!("expected an output error, got {other:?}"),
     }
     // A corrupt input file (not Parquet bytes) is named.
     let bad = tmp.path().join("other/bad.parquet");

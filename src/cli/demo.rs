@@ -23,7 +23,7 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     if data_dir.exists() {
         std::fs::remove_dir_all(&data_dir).map_err(|e| Error::io(&data_dir, e))?;
     }
-    std::fs::create_dir_all(&data_dir).map_err(|e| Error::io(&data_dir, e))?;
+    crate::atomic::create_dir_durable(&data_dir)?;
     let bar = rows_bar(quiet, a.rows, "generate");
     let summary = generate(&data_dir, &spec, &|r| bar.set_position(r))?;
     bar.finish_and_clear();

@@ -1,7 +1,7 @@
 //! `kernlake fit`: discover sources, resolve columns, stream the fit, save the model.
 
 use crate::atomic::write_atomic;
-use crate::data::{discover, resolve_columns, TableReader};
+use crate::data::{choose_columns, discover, TableReader};
 use crate::error::{Error, Result};
 use crate::fit::Fitter;
 use crate::report::render_training;
@@ -15,7 +15,10 @@ pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
     let opts = a.model.options()?;
     let csv = a.src.csv()?;
     let files = discover(&a.src.sources)?;
-    let columns = resolve_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;
+    let choice = choose_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;
+    let notes = choice.left_out.iter().filter(|_| !quiet);
+    notes.for_each(|l| eprintln!("kernlake: {l}"));
+    let columns = choice.columns;
     let known_rows: u64 = files.iter().filter_map(|f| f.rows).sum();
     if !quiet {
         eprintln!(

@@ -7,7 +7,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use clap::{Args, ValueEnum};
 use indicatif::{ProgressBar, ProgressStyle};
 
-use crate::data::{discover, CsvOptions};
+use crate::data::{discover, discover_lenient, CsvOptions};
 use crate::error::{Error, Result};
 use crate::model::Model;
 use crate::score::{
@@ -186,7 +186,11 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
         let stdout = std::io::BufWriter::new(std::io::stdout().lock());
         score_stream(&model, stdin, stdout, &opts)?
     } else {
-        let files = discover(&a.sources)?;
+        let files = if a.keep_going {
+            discover_lenient(&a.sources)?
+        } else {
+            discover(&a.sources)?
+        };
         let rows: Option<u64> = files.iter().map(|f| f.rows).sum();
         let progress = bar(quiet || to_stdout, rows, files.len());
         let s = if to_stdout {

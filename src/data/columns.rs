@@ -7,13 +7,13 @@
 //! when it is named explicitly (as a feature or the target) and the file has no
 //! column of that name; its value must parse as a number.
 
-use std::path::Path;
+use std::path::PathBuf;
 
-use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 
 use super::csv;
-use super::sources::{CsvOptions, Format, SourceFile};
+use super::kind::{kind_of, Kind};
+use super::sources::{corrupt, CsvOptions, Format, SourceFile};
 use crate::error::{Error, Result};
 
 /// Which columns to use; by default every numeric column but the target.
@@ -47,62 +47,102 @@ impl ResolvedColumns {
     }
 }
 
-/// What a column of a file holds, as far as kernlake is concerned.
-#[derive(Clone, Debug, PartialEq)]
-pub(crate) enum Kind {
-    /// Integers, floats, decimals or booleans.
-    Numeric,
-    /// No value seen (an all-null column, or empty CSV cells in the inferred records).
-    Unknown,
-    /// Anything else, with a name for messages.
-    Other(String),
-}
-
-/// Whether an Arrow type is read as `f64`.
-pub(crate) fn is_numeric(dt: &DataType) -> bool {
-    match dt {
-        DataType::Dictionary(_, values) => is_numeric(values),
-        dt => dt.is_numeric() || matches!(dt, DataType::Boolean),
-    }
-}
-
-fn kind_of(dt: &DataType) -> Kind {
-    match dt {
-        DataType::Null => Kind::Unknown,
-        dt if is_numeric(dt) => Kind::Numeric,
-        dt => Kind::Other(dt.to_string()),
-    }
+/// The columns of one file as far as the column choice needs them.
+pub(crate) struct FileSchema {
+    /// Column names and kinds, in file order.
+    pub columns: Vec<(String, Kind)>,
+    /// Whether the file has at least one data row.
+    pub has_rows: bool,
+    /// Whether every row was seen to infer the kinds (Parquet: always).
+    pub complete: bool,
+    /// For CSV files: the clause suggesting another delimiter (see
+    /// [`csv::delimiter_advice`]), or empty.
+    pub advice: String,
 }
 
 /// Column names and kinds of one file; `None` for an empty CSV file (no header).
-pub(crate) fn file_schema(
-    file: &SourceFile,
-    csv_opts: &CsvOptions,
-) -> Result<Option<Vec<(String, Kind)>>> {
+/// A Parquet column whose footer statistics count every value as null is
+/// [`Kind::Unknown`].
+pub(crate) fn file_schema(file: &SourceFile, csv_opts: &CsvOptions) -> Result<Option<FileSchema>> {
     match file.format {
-        Format::Csv => csv::infer(&file.path, csv_opts),
+        Format::Csv => Ok(csv::infer(&file.path, csv_opts)?.map(|inf| {
+            let names: Vec<String> = inf.columns.iter().map(|(n, _)| n.clone()).collect();
+            FileSchema {
+                advice: csv::delimiter_advice(&names, csv_opts),
+                columns: inf.columns,
+                has_rows: inf.records > 0,
+                complete: inf.complete,
+            }
+        })),
         Format::Parquet => {
             let f = std::fs::File::open(&file.path).map_err(|e| Error::io(&file.path, e))?;
             let builder =
                 ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| corrupt(&file.path, e))?;
-            Ok(Some(
-                builder
-                    .schema()
-                    .fields()
+            let meta = builder.metadata();
+            let rows = meta.file_metadata().num_rows();
+            let fields = builder.schema().fields();
+            let flat = builder.parquet_schema().num_columns() == fields.len();
+            let all_null = |j: usize| -> bool {
+                flat && rows > 0 && {
+                    let nulls: Option<i64> = meta.row_groups().iter().try_fold(0i64, |acc, rg| {
+                        let n = rg.column(j).statistics()?.null_count_opt()?;
+                        Some(acc + i64::try_from(n).ok()?)
+                    });
+                    nulls == Some(rows)
+                }
+            };
+            Ok(Some(FileSchema {
+                columns: fields
                     .iter()
-                    .map(|f| (f.name().clone(), kind_of(f.data_type())))
+                    .enumerate()
+                    .map(|(j, f)| {
+                        let kind = match kind_of(f.data_type()) {
+                            Kind::Numeric if all_null(j) => Kind::Unknown,
+                            k => k,
+                        };
+                        (f.name().clone(), kind)
+                    })
                     .collect(),
-            ))
+                has_rows: rows > 0,
+                complete: true,
+                advice: String::new(),
+            }))
         }
     }
 }
 
-/// The error for a Parquet file whose footer or pages cannot be read.
-pub(crate) fn corrupt(path: &Path, e: impl std::fmt::Display) -> Error {
-    Error::File {
-        path: path.to_path_buf(),
-        message: format!("is not a readable Parquet file ({e})"),
+/// A column of the first file that the default input set leaves out, and why.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LeftOut {
+    /// The file whose columns gave the default input set.
+    pub path: PathBuf,
+    /// The column left out.
+    pub column: String,
+    /// Why, as a clause ("it is not numeric (type Utf8)").
+    pub reason: String,
+}
+
+impl std::fmt::Display for LeftOut {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "column '{}' of {} is not used as an input: {}",
+            self.column,
+            self.path.display(),
+            self.reason
+        )
     }
+}
+
+/// The result of [`choose_columns`]: the chosen columns and the columns that the
+/// default input set left out.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ColumnChoice {
+    /// The input contract.
+    pub columns: ResolvedColumns,
+    /// Columns of the first file left out of the default input set (empty when the
+    /// features were listed).
+    pub left_out: Vec<LeftOut>,
 }
 
 /// Where a chosen column's values come from in one file.
@@ -130,22 +170,48 @@ fn column_error(file: &SourceFile, column: &str, message: String) -> Error {
     }
 }
 
-/// Chooses the feature and target columns and checks them in every file's schema
-/// (Parquet footers; CSV headers with types inferred from the first records).
-///
-/// Default features are the numeric columns of the first non-empty file, in its order,
-/// without the target and the `exclude`d columns; partition columns count only when
-/// named. `exclude` also removes names from an explicit feature list.
-///
-/// Errors: no files; a named column missing from a file (naming the file, and a file
-/// that has it); a chosen column that is not numeric (naming the file and column, and a
-/// file where it is numeric); a partition value that is not a number; the target listed
-/// as a feature; a feature listed twice; no feature left.
+/// Why a column of kind `kind` is not a default input, as a clause.
+fn reason(kind: &Kind, schema: &FileSchema, file: &SourceFile) -> Option<String> {
+    match kind {
+        Kind::Numeric => None,
+        Kind::Other(t) => Some(format!("it is not numeric ({t})")),
+        Kind::Unknown if !schema.has_rows => Some("the file has no data rows".into()),
+        Kind::Unknown if file.format == Format::Csv => Some(format!(
+            "its cells are empty in the first {} records",
+            csv::INFER_RECORDS
+        )),
+        Kind::Unknown => Some("every value is null".into()),
+    }
+}
+
+/// Chooses the feature and target columns; see [`choose_columns`].
 pub fn resolve_columns(
     files: &[SourceFile],
     sel: &ColumnSelection,
     csv: &CsvOptions,
 ) -> Result<ResolvedColumns> {
+    choose_columns(files, sel, csv).map(|c| c.columns)
+}
+
+/// Chooses the feature and target columns and checks them in every file's schema
+/// (Parquet footers; CSV headers with types inferred from the first records), and lists
+/// the columns of the first file that the default input set leaves out, with why.
+///
+/// Default features are the numeric columns of the first non-empty file, in its order,
+/// without the target and the `exclude`d columns; partition columns count only when
+/// named. `exclude` also removes names from an explicit feature list.
+///
+/// Errors: no files; no data rows in any file; a named column missing from a file
+/// (naming the file, and a file that has it; suggesting a delimiter when a CSV header
+/// seems split by another one); a chosen column that is not numeric (naming the file and
+/// column, a sample cell, and a file where it is numeric) or has no value in any file; a
+/// chosen column that appears twice in a file; a partition value that is not a number;
+/// the target listed as a feature; a feature listed twice; no feature left.
+pub fn choose_columns(
+    files: &[SourceFile],
+    sel: &ColumnSelection,
+    csv: &CsvOptions,
+) -> Result<ColumnChoice> {
     if files.is_empty() {
         return Err(Error::invalid("inputs", "there are no data files to read"));
     }
@@ -153,26 +219,37 @@ pub fn resolve_columns(
     for f in files {
         schemas.push(file_schema(f, csv)?);
     }
-    let first = schemas.iter().position(Option::is_some);
-    let mut features: Vec<String> = match (&sel.features, first) {
-        (Some(list), _) => list.clone(),
-        (None, Some(i)) => schemas[i]
-            .as_ref()
-            .map(|s| {
-                s.iter()
-                    .filter(|(_, k)| *k == Kind::Numeric)
-                    .map(|(n, _)| n.clone())
-                    .collect()
-            })
-            .unwrap_or_default(),
-        (None, None) => {
-            return Err(Error::File {
-                path: files[0].path.clone(),
-                message: "is empty, so no feature columns can be listed from it".into(),
-            })
+    let Some(first) = schemas.iter().position(Option::is_some) else {
+        return Err(Error::File {
+            path: files[0].path.clone(),
+            message: "is empty, so no feature columns can be listed from it".into(),
+        });
+    };
+    let head = schemas[first].as_ref().expect("first has a schema");
+    let unused = |n: &String| sel.exclude.contains(n) || sel.target.as_ref() == Some(n);
+    let mut left_out = Vec::new();
+    let mut features: Vec<String> = match &sel.features {
+        Some(list) => list.clone(),
+        None => {
+            for (n, k) in &head.columns {
+                if let Some(why) = reason(k, head, &files[first]).filter(|_| !unused(n)) {
+                    left_out.push(LeftOut {
+                        path: files[first].path.clone(),
+                        column: n.clone(),
+                        reason: why,
+                    });
+                }
+            }
+            let mut v: Vec<String> = Vec::new();
+            for (n, k) in &head.columns {
+                if *k == Kind::Numeric && !v.contains(n) {
+                    v.push(n.clone());
+                }
+            }
+            v
         }
     };
-    features.retain(|f| !sel.exclude.contains(f) && sel.target.as_ref() != Some(f));
+    features.retain(|f| !unused(f));
     if let (Some(t), Some(list)) = (&sel.target, &sel.features) {
         if list.contains(t) {
             return Err(Error::invalid(
@@ -189,32 +266,56 @@ pub fn resolve_columns(
             ));
         }
     }
-    if features.is_empty() {
+    if !schemas.iter().flatten().any(|s| s.has_rows) {
         return Err(Error::File {
-            path: files[first.unwrap_or(0)].path.clone(),
-            message: "has no numeric column left to use as a feature".into(),
+            path: files[first].path.clone(),
+            message: match files.len() {
+                1 => "has no data rows (a header or schema only)".to_string(),
+                n => format!(
+                    "has no data rows, and neither have the other {} files",
+                    n - 1
+                ),
+            },
+        });
+    }
+    if features.is_empty() {
+        let why: Vec<String> = left_out
+            .iter()
+            .take(3)
+            .map(|l| format!("'{}': {}", l.column, l.reason))
+            .collect();
+        let why = if why.is_empty() {
+            String::new()
+        } else {
+            format!(" ({})", why.join("; "))
+        };
+        return Err(Error::File {
+            path: files[first].path.clone(),
+            message: format!(
+                "has no numeric column left to use as a feature{why}{}",
+                head.advice
+            ),
         });
     }
     let chosen: Vec<&String> = features.iter().chain(sel.target.as_ref()).collect();
     for name in chosen {
         check_column(files, &schemas, name)?;
     }
-    Ok(ResolvedColumns {
-        features,
-        target: sel.target.clone(),
+    Ok(ColumnChoice {
+        columns: ResolvedColumns {
+            features,
+            target: sel.target.clone(),
+        },
+        left_out,
     })
 }
 
 /// Checks that `name` is usable in every file with a schema.
-fn check_column(
-    files: &[SourceFile],
-    schemas: &[Option<Vec<(String, Kind)>>],
-    name: &str,
-) -> Result<()> {
+fn check_column(files: &[SourceFile], schemas: &[Option<FileSchema>], name: &str) -> Result<()> {
     let found: Vec<Option<Found>> = files
         .iter()
         .zip(schemas)
-        .map(|(f, s)| s.as_ref().map(|s| find(s, f, name)))
+        .map(|(f, s)| s.as_ref().map(|s| find(&s.columns, f, name)))
         .collect();
     let numeric_in = found.iter().position(|x| {
         matches!(x, Some(Found::Column(Kind::Numeric)))
@@ -225,6 +326,15 @@ fn check_column(
         .position(|x| !matches!(x, None | Some(Found::Absent)));
     for (i, x) in found.iter().enumerate() {
         let file = &files[i];
+        if let Some(s) = &schemas[i] {
+            if s.columns.iter().filter(|(n, _)| n == name).count() > 1 {
+                return Err(column_error(
+                    file,
+                    name,
+                    "appears more than once in this file's header or schema, so which one to read is unclear; rename one".into(),
+                ));
+            }
+        }
         match x {
             None | Some(Found::Column(Kind::Numeric | Kind::Unknown)) => {}
             Some(Found::Column(Kind::Other(t))) => {
@@ -235,7 +345,7 @@ fn check_column(
                 return Err(column_error(
                     file,
                     name,
-                    format!("is not numeric (type {t}){also}"),
+                    format!("is not numeric ({t}){also}"),
                 ));
             }
             Some(Found::Partition(v)) => {
@@ -252,13 +362,42 @@ fn check_column(
                     Some(j) => format!(", though {} has it", files[j].path.display()),
                     None => String::new(),
                 };
+                let advice = schemas[i].as_ref().map_or("", |s| s.advice.as_str());
                 return Err(column_error(
                     file,
                     name,
-                    format!("no such column in this file{also}"),
+                    format!("no such column in this file{also}{advice}"),
                 ));
             }
         }
     }
-    Ok(())
+    all_null(files, schemas, &found, name)
+}
+
+/// An error when `name` holds no value in any file: every file with rows has it as a
+/// null-only column (Parquet footer statistics or a `Null` column; CSV cells all empty
+/// in a file whose every record was inferred).
+fn all_null(
+    files: &[SourceFile],
+    schemas: &[Option<FileSchema>],
+    found: &[Option<Found>],
+    name: &str,
+) -> Result<()> {
+    let mut with_rows = files
+        .iter()
+        .zip(schemas)
+        .zip(found)
+        .filter(|((_, s), _)| s.as_ref().is_some_and(|s| s.has_rows));
+    let first = with_rows.clone().next();
+    let empty = with_rows.all(|((_, s), x)| {
+        s.as_ref().is_some_and(|s| s.complete) && matches!(x, Some(Found::Column(Kind::Unknown)))
+    });
+    match first {
+        Some(((f, _), _)) if empty => Err(column_error(
+            f,
+            name,
+            "has no value in any file (every cell is empty or null), so it cannot be used".into(),
+        )),
+        _ => Ok(()),
+    }
 }

@@ -4,6 +4,7 @@
 //! ```text
 //! discover(inputs) → Vec<SourceFile>          files, folders, globs; key=value partitions
 //! resolve_columns(files, selection, csv)     → ResolvedColumns (the input contract)
+//! choose_columns(files, selection, csv)      → the same, and the columns left out, with why
 //! TableReader::new(files, columns).blocks()  → Block, Block, …   (rows × features as f64)
 //! survey(&reader, settings, progress)        → Survey (moments, missing counts, sample)
 //! ```
@@ -11,6 +12,7 @@
 mod block;
 mod columns;
 pub(crate) mod csv;
+mod kind;
 mod open;
 mod reader;
 mod sample;
@@ -18,8 +20,10 @@ mod sources;
 mod survey;
 
 pub use block::{Block, MissingPolicy};
-pub use columns::{resolve_columns, ColumnSelection, ResolvedColumns};
+pub use columns::{
+    choose_columns, resolve_columns, ColumnChoice, ColumnSelection, LeftOut, ResolvedColumns,
+};
 pub use reader::{Blocks, TableReader};
 pub use sample::{sample_key, splitmix64};
-pub use sources::{discover, CsvOptions, Format, SourceFile};
+pub use sources::{discover, discover_lenient, CsvOptions, Format, SourceFile};
 pub use survey::{survey, ColumnStats, Survey, SurveySettings};

@@ -11,9 +11,9 @@ use arrow_schema::DataType;
 use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
 
-use super::columns::{corrupt, is_numeric};
 use super::csv::{self, CsvBatches};
-use super::sources::{CsvOptions, Format, SourceFile};
+use super::kind::is_numeric;
+use super::sources::{corrupt, CsvOptions, Format, SourceFile};
 use crate::error::{Error, Result};
 
 /// Where a chosen column's values come from in one open file.
@@ -30,13 +30,16 @@ pub(crate) enum Batches {
     Csv(Box<CsvBatches>),
 }
 
-/// The values of each chosen column of a decoded batch, as `Float64`.
+/// The values of each chosen column of a decoded batch, as `Float64`. A CSV cell that is
+/// not a number is a missing value (null) unless `strict`, when it is an error naming
+/// file, row and column (the missing-value policy `fail`).
 pub(crate) fn columns_of(
     batch: &RecordBatch,
     sources: &[Source],
     names: &[&str],
     file: &SourceFile,
     local_row: u64,
+    strict: bool,
 ) -> Result<Vec<Float64Array>> {
     let n = batch.num_rows();
     sources
@@ -47,7 +50,9 @@ pub(crate) fn columns_of(
             Source::Column(c) => {
                 let a = batch.column(*c);
                 match (file.format, a.data_type()) {
-                    (Format::Csv, _) => csv::to_f64(a.as_ref(), &file.path, name, local_row + 1),
+                    (Format::Csv, _) => {
+                        csv::to_f64(a.as_ref(), &file.path, name, local_row + 1, strict)
+                    }
                     (Format::Parquet, DataType::Float64) => {
                         Ok(a.as_primitive::<Float64Type>().clone())
                     }

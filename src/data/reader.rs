@@ -14,10 +14,10 @@
 use std::sync::OnceLock;
 
 use super::block::{build_block, BatchPlace, Block, MissingPolicy};
-use super::columns::{corrupt, ResolvedColumns};
+use super::columns::ResolvedColumns;
 use super::csv;
 use super::open::{columns_of, open_csv, open_parquet, Batches, Source};
-use super::sources::{CsvOptions, Format, SourceFile};
+use super::sources::{corrupt, CsvOptions, Format, SourceFile};
 use crate::error::{Error, Result};
 
 /// Reads the chosen columns of a list of files as [`Block`]s (builder style).
@@ -312,7 +312,8 @@ impl<'a> Blocks<'a> {
             };
             let batch = batch?;
             let names: Vec<&str> = r.columns.all().collect();
-            let cols = columns_of(&batch, &cur.sources, &names, file, cur.local_row)?;
+            let strict = r.missing == MissingPolicy::Fail;
+            let cols = columns_of(&batch, &cur.sources, &names, file, cur.local_row, strict)?;
             let place = BatchPlace {
                 path: &file.path,
                 file_index: cur.index,

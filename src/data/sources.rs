@@ -97,13 +97,18 @@ impl SourceFile {
     }
 }
 
+/// The error for a Parquet file whose footer or pages cannot be read.
+pub(crate) fn corrupt(path: &Path, e: impl std::fmt::Display) -> Error {
+    Error::File {
+        path: path.to_path_buf(),
+        message: format!("is not a readable Parquet file ({e})"),
+    }
+}
+
 /// Row count of a Parquet file from its footer.
 fn parquet_rows(path: &Path) -> Result<u64> {
     let file = File::open(path).map_err(|e| Error::io(path, e))?;
-    let builder = ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| Error::File {
-        path: path.to_path_buf(),
-        message: format!("is not a readable Parquet file ({e})"),
-    })?;
+    let builder = ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| corrupt(path, e))?;
     let rows = builder.metadata().file_metadata().num_rows();
     u64::try_from(rows).map_err(|_| Error::File {
         path: path.to_path_buf(),
@@ -173,6 +178,19 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<()> {
 /// not a data file name; a folder with no data files; a pattern that is malformed or
 /// matches no data file; an unreadable Parquet footer.
 pub fn discover(inputs: &[String]) -> Result<Vec<SourceFile>> {
+    discover_files(inputs, false)
+}
+
+/// Like [`discover`], but a Parquet file whose footer cannot be read is listed (with no
+/// row count) instead of stopping the discovery, so that a run that goes on past failed
+/// files (scoring with `keep_going`) reports it among its failures and does the rest.
+///
+/// Errors: those of [`discover`] but the unreadable footer.
+pub fn discover_lenient(inputs: &[String]) -> Result<Vec<SourceFile>> {
+    discover_files(inputs, true)
+}
+
+fn discover_files(inputs: &[String], lenient: bool) -> Result<Vec<SourceFile>> {
     if inputs.is_empty() {
         return Err(Error::invalid(
             "inputs",
@@ -230,7 +248,17 @@ pub fn discover(inputs: &[String]) -> Result<Vec<SourceFile>> {
     for path in paths {
         let key = std::fs::canonicalize(&path).unwrap_or_else(|_| path.clone());
         if seen.insert(key) {
-            files.push(SourceFile::open(path)?);
+            match SourceFile::open(path.clone()) {
+                Ok(f) => files.push(f),
+                Err(Error::File { .. }) if lenient && Format::from_path(&path).is_some() => files
+                    .push(SourceFile {
+                        partitions: partitions_of(&path),
+                        format: Format::Parquet,
+                        rows: None,
+                        path,
+                    }),
+                Err(e) => return Err(e),
+            }
         }
     }
     Ok(files)

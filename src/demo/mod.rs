@@ -224,7 +224,7 @@ fn write_site(
             continue;
         }
         let dir = partition_dir(out, site, &month.name());
-        std::fs::create_dir_all(&dir).map_err(|e| Error::io(&dir, e))?;
+        crate::atomic::create_dir_durable(&dir)?;
         let path = dir.join("part-0.parquet");
         write_atomic(&path, |file| {
             let props = WriterProperties::builder()

@@ -13,8 +13,9 @@ use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchR
 use parquet::arrow::ProjectionMask;
 
 use super::batch::{score_planned, Plan};
-use super::writer::{complete_stamp, plan_outputs, remove_stale_temps, OutputFile, Stamp};
+use super::writer::{complete_stamp, plan_outputs, OutputFile, Stamp};
 use super::{model_checksum, FileFailure, ScoreObserver, ScoreOptions, ScoreSummary};
+use crate::atomic::remove_stale_temps;
 use crate::data::csv::{self, CsvBatches};
 use crate::data::{Format, SourceFile};
 use crate::error::{Error, Result};
@@ -70,7 +71,8 @@ impl Iterator for SourceBatches {
 /// whose rows are known once read).
 ///
 /// CSV cells are read as text: the model's inputs are parsed as numbers batch by batch
-/// (an unparsable cell stops the file, naming row and column), copied columns stay text.
+/// (a cell that is not a number is a missing input and follows the missing-row policy),
+/// copied columns stay text.
 pub(crate) fn open_checked(
     model: &Model,
     file: &SourceFile,
@@ -103,6 +105,15 @@ pub(crate) fn open_checked(
                 return Err(Error::File {
                     path: path.clone(),
                     message: "is empty (no header row), so its columns cannot be checked against the model".into(),
+                });
+            }
+            if csv::delimiter_hint(&header, &opts.csv).is_some() {
+                return Err(Error::File {
+                    path: path.clone(),
+                    message: format!(
+                        "has a single column{}",
+                        csv::delimiter_advice(&header, &opts.csv)
+                    ),
                 });
             }
             let schema = Schema::new(

@@ -8,19 +8,22 @@
 //! per file, files in parallel:  footer or header → contract check → read batches
 //!   (projection) → inputs to f64 → predict + coverage, one pass over row blocks
 //!   → write under a temporary name → stamp (input size + mtime, model CRC-32,
-//!   settings, rows) → rename
+//!   settings, rows, CRC-32 of the bytes before the footer) → rename
 //! ```
 //!
 //! CSV sources (header row, [`ScoreOptions::csv`] delimiter) are checked by column name
 //! before any row is read; their cells are read as text: model inputs are parsed as
-//! numbers with the same rules as fitting (an unparsable cell stops the file, naming row
-//! and column), kept columns are written as text (`Utf8`), exactly as in the file.
+//! numbers with the same rules as fitting (a cell that is not a number is a missing
+//! input: a null prediction, a skipped row, or under `fail` an error naming row and
+//! column), kept columns are written as text (`Utf8`), exactly as in the file.
 //!
 //! * Contract first: a file whose schema breaks the model's input contract is refused
 //!   before any row is read, naming file and column, and nothing is written for it.
 //! * Restartable: outputs are written atomically ([`crate::atomic`]); a rerun skips an
-//!   output whose footer reads and whose stamp matches the input, model and settings, and
-//!   removes temporary files left by a killed run.
+//!   output whose footer reads, whose stamp matches the input, model and settings, and
+//!   whose bytes before the footer still have the stamped CRC-32 (damaged data pages
+//!   under an intact footer are rewritten), and removes temporary files left by a
+//!   killed run.
 //! * Bounded memory: `threads` workers each hold one file open and one batch of
 //!   `batch_rows` rows; row groups are flushed every `batch_rows` rows. The map and the
 //!   coverage run on a rayon pool of `threads`, row-wise, so results do not depend on
@@ -31,6 +34,7 @@
 //!   write Arrow IPC streams (pipes).
 
 mod batch;
+mod covered;
 mod files;
 mod pipe;
 mod writer;
@@ -39,7 +43,8 @@ use std::path::PathBuf;
 
 use serde::{Deserialize, Serialize};
 
-pub use batch::{predict_covered, score_batch};
+pub use batch::score_batch;
+pub use covered::predict_covered;
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
 pub use writer::STAMP_KEY;

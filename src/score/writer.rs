@@ -12,15 +12,15 @@ use parquet::file::metadata::KeyValue;
 use parquet::file::properties::WriterProperties;
 use serde::{Deserialize, Serialize};
 
-use crate::atomic::{is_temp_name, AtomicFile};
+use crate::atomic::{create_dir_durable, AtomicFile};
 use crate::data::Format;
 use crate::error::{Error, Result};
 
 /// Key of the stamp in an output file's Parquet key-value metadata.
 pub const STAMP_KEY: &str = "kernlake.score";
 
-/// Version of the stamp's layout.
-const STAMP_VERSION: u32 = 1;
+/// Version of the stamp's layout (2: with the checksum of the data pages).
+const STAMP_VERSION: u32 = 2;
 
 /// What an output file records about how it was made; a rerun skips an output whose
 /// stamp matches the input file, model and settings at hand and whose row count matches.
@@ -40,6 +40,14 @@ pub(crate) struct Stamp {
     pub settings: String,
     /// Rows written; filled in when the output is complete.
     pub output_rows: u64,
+    /// Bytes of the output before its footer (the magic and every row group); filled
+    /// in when the output is complete.
+    #[serde(default)]
+    pub data_bytes: u64,
+    /// CRC-32 of those bytes, 8 hex digits: a rerun reads them back and compares, so
+    /// damaged data pages under an intact footer are rewritten, not trusted.
+    #[serde(default)]
+    pub data_crc32: String,
 }
 
 impl Stamp {
@@ -65,15 +73,19 @@ impl Stamp {
             model_crc32: model_crc32.to_string(),
             settings: settings.to_string(),
             output_rows: 0,
+            data_bytes: 0,
+            data_crc32: String::new(),
         })
     }
 }
 
 /// The stamp of `output` when the output is complete: it exists, its Parquet footer
-/// reads, its stamp matches `expected` (every field but the output row count, and the
-/// input row count only when `check_input_rows`: CSV inputs have no row count before
-/// they are read, their size and modification time identify them) and its row count
-/// equals the stamped one.
+/// reads, its stamp matches `expected` (every field but the output row count and data
+/// checksum, and the input row count only when `check_input_rows`: CSV inputs have no
+/// row count before they are read, their size and modification time identify them), its
+/// row count equals the stamped one, and the CRC-32 of its bytes before the footer
+/// equals the stamped one (one sequential read of the output; the footer alone says
+/// nothing about the pages it points to).
 pub(crate) fn complete_stamp(
     output: &Path,
     expected: &Stamp,
@@ -90,6 +102,8 @@ pub(crate) fn complete_stamp(
     let rows = u64::try_from(meta.num_rows()).unwrap_or(u64::MAX);
     let comparable = Stamp {
         output_rows: 0,
+        data_bytes: 0,
+        data_crc32: String::new(),
         input_rows: if check_input_rows {
             stamp.input_rows
         } else {
@@ -97,12 +111,66 @@ pub(crate) fn complete_stamp(
         },
         ..stamp.clone()
     };
-    (stamp.output_rows == rows && comparable == *expected).then_some(stamp)
+    if stamp.output_rows != rows || comparable != *expected {
+        return None;
+    }
+    (data_crc32(output, stamp.data_bytes).ok()? == stamp.data_crc32).then_some(stamp)
+}
+
+/// CRC-32 of the first `len` bytes of `path`, 8 hex digits.
+fn data_crc32(path: &Path, len: u64) -> std::io::Result<String> {
+    use std::io::Read;
+    let mut hasher = crc32fast::Hasher::new();
+    let mut file = File::open(path)?.take(len);
+    let mut buf = vec![0u8; 1 << 16];
+    let mut seen = 0u64;
+    loop {
+        let n = file.read(&mut buf)?;
+        if n == 0 {
+            break;
+        }
+        hasher.update(&buf[..n]);
+        seen += n as u64;
+    }
+    if seen != len {
+        return Err(std::io::ErrorKind::UnexpectedEof.into());
+    }
+    Ok(format!("{:08x}", hasher.finalize()))
+}
+
+/// A writer that counts and checksums the bytes passing through it.
+pub(crate) struct Summing {
+    inner: AtomicFile,
+    hasher: crc32fast::Hasher,
+    bytes: u64,
+}
+
+impl Summing {
+    fn new(inner: AtomicFile) -> Self {
+        Summing {
+            inner,
+            hasher: crc32fast::Hasher::new(),
+            bytes: 0,
+        }
+    }
+}
+
+impl std::io::Write for Summing {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        let n = self.inner.write(buf)?;
+        self.hasher.update(&buf[..n]);
+        self.bytes += n as u64;
+        Ok(n)
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        self.inner.flush()
+    }
 }
 
 /// An output Parquet file being written under a temporary name.
 pub(crate) struct OutputFile {
-    writer: ArrowWriter<AtomicFile>,
+    writer: ArrowWriter<Summing>,
     rows: u64,
 }
 
@@ -114,10 +182,10 @@ impl OutputFile {
         schema: arrow_schema::SchemaRef,
         row_group_rows: usize,
     ) -> Result<OutputFile> {
-        if let Some(dir) = path.parent() {
-            std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
+            create_dir_durable(dir)?;
         }
-        let atomic = AtomicFile::create(path)?;
+        let atomic = Summing::new(AtomicFile::create(path)?);
         let props = WriterProperties::builder()
             .set_compression(Compression::SNAPPY)
             .set_max_row_group_row_count(Some(row_group_rows.max(1)))
@@ -138,11 +206,16 @@ impl OutputFile {
     /// its final name. Returns the rows written.
     pub(crate) fn commit(mut self, mut stamp: Stamp, path: &Path) -> Result<u64> {
         stamp.output_rows = self.rows;
+        // Every row group goes out first, so the bytes so far are all but the footer.
+        self.writer.flush().map_err(|e| write_error(path, e))?;
+        let sum = self.writer.inner();
+        stamp.data_bytes = sum.bytes;
+        stamp.data_crc32 = format!("{:08x}", sum.hasher.clone().finalize());
         let json = serde_json::to_string(&stamp).expect("a stamp encodes as JSON");
         self.writer
             .append_key_value_metadata(KeyValue::new(STAMP_KEY.to_string(), json));
-        let atomic = self.writer.into_inner().map_err(|e| write_error(path, e))?;
-        atomic.commit()?;
+        let sum = self.writer.into_inner().map_err(|e| write_error(path, e))?;
+        sum.inner.commit()?;
         Ok(self.rows)
     }
 }
@@ -245,50 +318,10 @@ pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<Pat
         }
         seen.insert(o, i);
     }
-    std::fs::create_dir_all(out_dir).map_err(|e| Error::io(out_dir, e))?;
+    create_dir_durable(out_dir)?;
     // Probe that the folder takes files (create then drop a temporary file).
     drop(AtomicFile::create(&out_dir.join("write-probe"))?);
     Ok(outputs)
-}
-
-/// Removes temporary files left under `dir` (recursively) by killed runs: names that
-/// [`is_temp_name`] recognises whose process no longer runs. Returns how many were
-/// removed.
-pub(crate) fn remove_stale_temps(dir: &Path) -> Result<usize> {
-    let mut removed = 0;
-    let Ok(entries) = std::fs::read_dir(dir) else {
-        return Ok(0);
-    };
-    for entry in entries {
-        let entry = entry.map_err(|e| Error::io(dir, e))?;
-        let path = entry.path();
-        let kind = entry.file_type().map_err(|e| Error::io(&path, e))?;
-        if kind.is_dir() {
-            removed += remove_stale_temps(&path)?;
-            continue;
-        }
-        let name = entry.file_name();
-        let Some(name) = name.to_str() else { continue };
-        if is_temp_name(name) && !owner_alive(name) {
-            std::fs::remove_file(&path).map_err(|e| Error::io(&path, e))?;
-            removed += 1;
-        }
-    }
-    Ok(removed)
-}
-
-/// Whether the process that named a temporary file still runs (Linux `/proc`; elsewhere
-/// only our own process counts as alive).
-fn owner_alive(temp_name: &str) -> bool {
-    let pid = temp_name
-        .rsplit_once(".part-")
-        .and_then(|(_, s)| s.split_once('-'))
-        .and_then(|(p, _)| p.parse::<u32>().ok());
-    match pid {
-        Some(p) if p == std::process::id() => true,
-        Some(p) => Path::new("/proc/self").exists() && Path::new(&format!("/proc/{p}")).exists(),
-        None => false,
-    }
 }
 
 #[cfg(test)]

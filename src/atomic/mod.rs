@@ -4,8 +4,15 @@
 //!
 //! The temporary name is `.<final name>.part-<pid>-<random>`: hidden on Unix, in the same
 //! folder (so the rename stays on one file system and is atomic there), and recognisable
-//! by [`is_temp_name`] so that folder scanners skip such files and a cleanup can remove
-//! ones left behind by a killed process.
+//! by [`is_temp_name`] so that folder scanners skip such files.
+//!
+//! One cleanup rule for every output: creating a temporary file for a final name first
+//! removes the temporary files of that same name left by processes that no longer run
+//! (a killed `fit`, `tune`, `audit`, `demo` or `score`); `score` also sweeps its whole
+//! output folder with [`remove_stale_temps`]. Folders made for outputs are created by
+//! [`create_dir_durable`], which fsyncs each new folder's parent so that the folder
+//! survives a power cut together with the files committed into it (common practice in
+//! databases: a new directory entry is durable only once its parent is synced).
 
 use std::ffi::OsString;
 use std::fs::{File, OpenOptions};
@@ -15,8 +22,12 @@ use std::sync::atomic::{AtomicU64, Ordering};
 
 use crate::error::{Error, Result};
 
+mod folders;
+use folders::remove_stale_siblings;
+pub use folders::{create_dir_durable, remove_stale_temps};
+
 /// The marker between the final name and the process id in a temporary name.
-const PART_MARKER: &str = ".part-";
+pub(crate) const PART_MARKER: &str = ".part-";
 
 /// How many distinct temporary names to try before giving up.
 const CREATE_ATTEMPTS: u32 = 16;
@@ -46,7 +57,14 @@ impl AtomicFile {
             path: final_path.to_path_buf(),
             message: "an output path must end in a file name".to_string(),
         })?;
+        if final_path.is_dir() {
+            return Err(Error::File {
+                path: final_path.to_path_buf(),
+                message: "is a folder; give the output a file name".to_string(),
+            });
+        }
         let folder = parent_folder(final_path);
+        remove_stale_siblings(&folder, name);
         let mut last_err = None;
         for _ in 0..CREATE_ATTEMPTS {
             let temp_path = folder.join(temp_name(name));
@@ -62,13 +80,12 @@ impl AtomicFile {
                         final_path: final_path.to_path_buf(),
                     })
                 }
-                Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => {
-                    last_err = Some(Error::io(temp_path, e));
-                }
-                Err(e) => return Err(Error::io(temp_path, e)),
+                Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => last_err = Some(e),
+                Err(e) => return Err(output_error(final_path, &folder, e)),
             }
         }
-        Err(last_err.expect("at least one attempt was made"))
+        let e = last_err.expect("at least one attempt was made");
+        Err(output_error(final_path, &folder, e))
     }
 
     /// The open temporary file, for writing.
@@ -95,12 +112,13 @@ impl AtomicFile {
     /// [`Error::Io`] naming the path concerned; the temporary file is removed on failure.
     pub fn commit(mut self) -> Result<()> {
         let mut file = self.file.take().expect("commit is called once");
+        let folder = parent_folder(&self.final_path);
         file.flush()
             .and_then(|()| file.sync_all())
-            .map_err(|e| Error::io(&self.temp_path, e))?;
+            .map_err(|e| output_error(&self.final_path, &folder, e))?;
         drop(file);
         std::fs::rename(&self.temp_path, &self.final_path)
-            .map_err(|e| Error::io(&self.final_path, e))?;
+            .map_err(|e| output_error(&self.final_path, &folder, e))?;
         // The temporary name no longer exists: nothing for Drop to remove.
         self.temp_path = PathBuf::new();
         sync_folder(&parent_folder(&self.final_path))
@@ -162,8 +180,49 @@ pub fn is_temp_name(name: &str) -> bool {
         && random.bytes().all(|b| b.is_ascii_hexdigit())
 }
 
+/// The error for an output that cannot be written, naming the user's path and the real
+/// problem (never the temporary name).
+pub(crate) fn output_error(final_path: &Path, folder: &Path, e: std::io::Error) -> Error {
+    use std::io::ErrorKind as K;
+    let message = match e.kind() {
+        K::NotFound => format!(
+            "cannot be written because the folder {} does not exist",
+            folder.display()
+        ),
+        K::PermissionDenied | K::ReadOnlyFilesystem => format!(
+            "cannot be written: no permission to create files in {}",
+            folder.display()
+        ),
+        K::NotADirectory => format!(
+            "cannot be written because {} (or a folder above it) is a file, not a folder",
+            folder.display()
+        ),
+        K::IsADirectory => "is a folder; give the output a file name".to_string(),
+        K::StorageFull => "cannot be written: the disk is full".to_string(),
+        K::AlreadyExists => format!(
+            "cannot be written: no fresh temporary name was free in {}",
+            folder.display()
+        ),
+        _ => "cannot be written".to_string(),
+    };
+    Error::Output {
+        path: final_path.to_path_buf(),
+        message,
+        source: e,
+    }
+}
+
+/// Checks before any work that `final_path` can be written: its folder exists and takes
+/// files, and it is not a folder itself (a temporary file is created and removed).
+///
+/// # Errors
+/// Those of [`AtomicFile::create`], naming `final_path`.
+pub fn check_writable(final_path: &Path) -> Result<()> {
+    AtomicFile::create(final_path).map(drop)
+}
+
 /// The folder that holds `path` (the current folder for a bare file name).
-fn parent_folder(path: &Path) -> PathBuf {
+pub(crate) fn parent_folder(path: &Path) -> PathBuf {
     match path.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),
@@ -191,7 +250,7 @@ fn temp_name(name: &std::ffi::OsStr) -> OsString {
 
 /// Fsyncs a folder so that a rename inside it survives a power cut (Unix only; other
 /// systems do not allow opening a folder as a file and make renames durable themselves).
-fn sync_folder(folder: &Path) -> Result<()> {
+pub(crate) fn sync_folder(folder: &Path) -> Result<()> {
     #[cfg(unix)]
     {
         let dir = File::open(folder).map_err(|e| Error::io(folder, e))?;
@@ -257,8 +316,15 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let target = dir.path().join("absent").join("out.bin");
         match AtomicFile::create(&target) {
-            Err(Error::Io { path, .. }) => assert!(path.starts_with(dir.path().join("absent"))),
-            other => panic!("expected an Io error, got {other:?}"),
+            Err(e @ Error::Output { .. }) => {
+                let msg = e.to_string();
+                assert!(msg.starts_with(&target.display().to_string()), "{msg}");
+                assert!(
+                    msg.contains("does not exist") && !msg.contains(".part-"),
+                    "{msg}"
+                );
+            }
+            other => panic!("expected an Output error, got {other:?}"),
         }
     }
 }
