@@ -11,7 +11,10 @@ use kernlake::tune::{tune, TuneOptions};
 use ndarray::{Array1, Array2};
 
 fn ccpp() -> (Array2<f64>, Array1<f64>) {
-    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/ccpp_folds5x2_sheet1.csv");
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/data/ccpp_folds5x2_sheet1.csv"
+    );
     let text = std::fs::read_to_string(path).expect("CCPP file");
     let rows: Vec<Vec<f64>> = text
         .lines()
@@ -30,18 +33,33 @@ fn main() {
     let n = if full { x.nrows() } else { 1_000 };
     let (x, y) = (x.slice(ndarray::s![..n, ..]), y.slice(ndarray::s![..n]));
     let opts = TuneOptions {
-        exact_rows: if full { 2_000 } else { 300 },
+        exact_rows: if full {
+            std::env::var("KL_EXACT_ROWS")
+                .ok()
+                .and_then(|v| v.parse().ok())
+                .unwrap_or(TuneOptions::default().exact_rows)
+        } else {
+            300
+        },
         max_dim: if full { 4_096 } else { 256 },
         rows_total: Some(n as u64),
         ..TuneOptions::default()
     };
     let t = Instant::now();
     let r = tune(x, y, &opts).expect("tune runs");
+    let steps: Vec<u64> = r.candidates.iter().map(|c| c.steps).collect();
     println!(
-        "tune bench ({} run): CCPP, {n} rows, {} threads: {:.2} s; {} candidates, {} edge moves; chosen gamma ×{}, C ×{}, epsilon ×{}, D = {}; val. RMSE exact {:.4}, on the map {:.4}; defaults {:.4} ± {:.4}",
+        "Newton steps per candidate (largest over folds): mean {:.1}, max {}",
+        steps.iter().sum::<u64>() as f64 / steps.len() as f64,
+        steps.iter().max().unwrap_or(&0)
+    );
+    println!(
+        "tune bench ({} run): CCPP, {n} rows, {} exact rows, {} threads: {:.2} s ({:.2} s on the grid); {} candidates, {} edge moves; chosen gamma ×{}, C ×{}, epsilon ×{}, D = {}; val. RMSE exact {:.4}, on the map {:.4}; defaults {:.4} ± {:.4}",
         if full { "full" } else { "smoke" },
+        r.exact_rows,
         rayon::current_num_threads(),
         t.elapsed().as_secs_f64(),
+        r.grid_seconds,
         r.candidates.len(),
         r.extensions,
         r.best.factors[0],

@@ -1,15 +1,14 @@
 //! Data-driven defaults and the validation search (issues 6 and 14), each check naming
 //! its source.
 
-mod common;
 #[path = "tune/accuracy.rs"]
 mod accuracy;
+mod common;
 
 use common::{ccpp, friedman1, rmse};
 use kernlake::fit::Fitter;
 use kernlake::tune::{
-    cherkassky_ma, heatmap_svg, median_gamma, tune, Defaults, TuneOptions, TuneReport,
-    Validation,
+    cherkassky_ma, heatmap_svg, median_gamma, tune, Defaults, TuneOptions, TuneReport, Validation,
 };
 use kernlake::Error;
 use ndarray::{Array1, Array2};
@@ -281,7 +280,14 @@ fn command_line_tune_writes_report_heatmap_and_model() {
             "-D",
             "32",
         ])
-        .args(["--max-dim", "64", "--max-fits", "6", "--gamma-factors", "0.5,1,2"])
+        .args([
+            "--max-dim",
+            "64",
+            "--max-fits",
+            "6",
+            "--gamma-factors",
+            "0.5,1,2",
+        ])
         .args([
             "--c-factors",
             "0.3,1",
@@ -327,7 +333,15 @@ fn command_line_tune_writes_report_heatmap_and_model() {
         ("--components-tol", "--dim-tol"),
     ] {
         let o = std::process::Command::new(bin)
-            .args(["tune", lake.to_str().unwrap(), "--target", "PE", "-q", old, "1"])
+            .args([
+                "tune",
+                lake.to_str().unwrap(),
+                "--target",
+                "PE",
+                "-q",
+                old,
+                "1",
+            ])
             .output()
             .unwrap();
         let err = String::from_utf8_lossy(&o.stderr);

@@ -12,8 +12,8 @@ use crate::data::{discover, resolve_columns, survey, SurveySettings, TableReader
 use crate::error::{Error, Result};
 use crate::features::MapSpec;
 use crate::fit::{FitOptions, Fitter};
-use crate::report::render_training;
 use crate::kernel::KernelKind;
+use crate::report::render_training;
 use crate::solver::dcd::Loss;
 use crate::tune::{heatmap_svg, render_tune, tune, TuneOptions, TuneReport, Validation};
 
@@ -63,7 +63,7 @@ pub struct TuneArgs {
     pub epsilon_factors: Vec<f64>,
     /// Rows of the sample on which the exact kernel machine is cross-validated (its cost
     /// grows like the cube of this).
-    #[arg(long, default_value_t = 2_000)]
+    #[arg(long, default_value_t = 1_000)]
     pub exact_rows: usize,
     /// Candidates the search may evaluate; the grid grows past an edge holding the
     /// lowest error only within this budget.
@@ -328,9 +328,8 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
         let reader = reader.with_batch_rows(opts.block_rows);
         let survey_bar = rows_bar(quiet, known_rows, "survey");
         let epochs = EpochBars::new(quiet, known_rows);
-        let model = Fitter::from_options(opts).fit_files(&reader, &epochs, &|rows| {
-            survey_bar.set_position(rows)
-        })?;
+        let model = Fitter::from_options(opts)
+            .fit_files(&reader, &epochs, &|rows| survey_bar.set_position(rows))?;
         survey_bar.finish_and_clear();
         model.save(out)?;
         if !quiet {

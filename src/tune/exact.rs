@@ -25,7 +25,10 @@ use ndarray_linalg::{FactorizeC, SolveC, UPLO};
 use crate::error::{Error, Result};
 
 /// Newton steps at most.
-const MAX_STEPS: usize = 60;
+const MAX_STEPS: usize = 40;
+
+/// Relative decrease of the objective below which a step counts as no progress.
+const FLAT: f64 = 1e-12;
 
 /// A solution of [`solve_l2`].
 #[derive(Clone, Debug)]
@@ -107,7 +110,9 @@ pub fn solve_l2(
                 ))
             })?;
             let sol = factor.solvec(&rhs).map_err(|e| {
-                Error::Numerical(format!("the exact machine's Newton system could not be solved: {e}"))
+                Error::Numerical(format!(
+                    "the exact machine's Newton system could not be solved: {e}"
+                ))
             })?;
             for (&(i, _), v) in active.iter().zip(sol.iter()) {
                 target[i] = *v;
@@ -123,7 +128,7 @@ pub fn solve_l2(
             let fb = &f + &(t * &fd);
             let o = objective(&b, &fb, y, c, eps);
             if o <= obj {
-                moved = o < obj || t == 1.0;
+                moved = o < obj * (1.0 - FLAT);
                 beta = b;
                 f = fb;
                 obj = o;
@@ -158,9 +163,7 @@ mod tests {
         // the tube and β_i = 0 inside it.
         let x = [0.0, 0.3, 0.7, 1.0, 1.4, 2.0, 2.2];
         let y = array![0.1, 0.5, 0.4, 1.2, 0.9, 2.1, 1.7];
-        let q = Array2::from_shape_fn((7, 7), |(i, j)| {
-            (-(x[i] - x[j] as f64).powi(2)).exp() + 1.0
-        });
+        let q = Array2::from_shape_fn((7, 7), |(i, j)| (-(x[i] - x[j] as f64).powi(2)).exp() + 1.0);
         let (c, eps) = (3.0, 0.15);
         let s = solve_l2(q.view(), y.view(), c, eps, None).unwrap();
         assert!(s.converged);
@@ -172,7 +175,11 @@ mod tests {
             } else {
                 0.0
             };
-            assert!((s.beta[i] - want).abs() < 1e-9, "row {i}: {} vs {want}", s.beta[i]);
+            assert!(
+                (s.beta[i] - want).abs() < 1e-9,
+                "row {i}: {} vs {want}",
+                s.beta[i]
+            );
         }
         // A warm start from the solution stops at once with the same answer.
         let w = solve_l2(q.view(), y.view(), c, eps, Some(&s.beta)).unwrap();

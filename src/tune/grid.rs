@@ -122,7 +122,13 @@ pub(crate) fn score_gamma(
                         let mut prev: Option<Array1<f64>> = None;
                         cs.iter()
                             .map(|&(_, c)| {
-                                match solve_l2(q.view(), fold.y_train.view(), c, e / fold.sd, prev.as_ref()) {
+                                match solve_l2(
+                                    q.view(),
+                                    fold.y_train.view(),
+                                    c,
+                                    e / fold.sd,
+                                    prev.as_ref(),
+                                ) {
                                     Ok(sol) => {
                                         let f = qv.dot(&sol.beta);
                                         let r = (fold.sse(&f), sol.steps as u64, sol.converged);
@@ -147,7 +153,12 @@ pub(crate) fn score_gamma(
                                 cache_bytes: 256 << 20,
                                 ..SmoSettings::default()
                             };
-                            match smo::fit(fold.x_train.view(), fold.y_raw.view(), *kernel, &settings) {
+                            match smo::fit(
+                                fold.x_train.view(),
+                                fold.y_raw.view(),
+                                *kernel,
+                                &settings,
+                            ) {
                                 Ok(fit) => {
                                     let p = fit.model.predict(fold.x_val.view());
                                     let sse = p

@@ -117,7 +117,10 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
     Standardizer::fit(x).apply(xs.view_mut());
     // A seeded random order, so that every prefix is a uniform sample of the rows.
     let mut order: Vec<usize> = (0..n).collect();
-    order.shuffle(&mut ChaCha8Rng::seed_from_u64(splitmix64(opts.seed, 0x6578_6163_74)));
+    order.shuffle(&mut ChaCha8Rng::seed_from_u64(splitmix64(
+        opts.seed,
+        0x6578_6163_74,
+    )));
     let xs = xs.select(Axis(0), &order);
     let ys = y.select(Axis(0), &order);
     let mean = ys.sum() / n as f64;
@@ -148,6 +151,7 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
     let exact = ExactFold::all(&folds);
     let search = select::search(opts, &exact, &defaults)?;
 
+    let grid_seconds = t0.elapsed().as_secs_f64();
     let b = &search.best;
     let (dims, chosen) = dim::choose_dim(opts, &folds, &exact, (b.gamma, b.c, b.epsilon), b.error)?;
     Ok(TuneReport {
@@ -169,6 +173,7 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
         chosen_error: dims[chosen].error,
         dims,
         dim_tol: opts.dim_tol,
+        grid_seconds,
         seconds: t0.elapsed().as_secs_f64(),
     })
 }

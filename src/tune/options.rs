@@ -74,7 +74,7 @@ impl Default for TuneOptions {
             c_factors: vec![0.1, 0.316, 1.0, 3.16, 10.0],
             epsilon_factors: vec![0.25, 1.0, 4.0],
             validation: Validation::KFold(3),
-            exact_rows: 2_000,
+            exact_rows: 1_000,
             max_fits: 150,
             max_epochs: 50,
             sweeps_per_epoch: 10,
@@ -128,7 +128,11 @@ impl TuneOptions {
         if self.exact_rows < 2 * MIN_FOLD_ROWS {
             return Err(Error::invalid(
                 "exact rows",
-                format!("must be at least {}, got {}", 2 * MIN_FOLD_ROWS, self.exact_rows),
+                format!(
+                    "must be at least {}, got {}",
+                    2 * MIN_FOLD_ROWS,
+                    self.exact_rows
+                ),
             ));
         }
         if self.max_fits == 0 {

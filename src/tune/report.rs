@@ -34,7 +34,10 @@ pub struct CandidateResult {
     pub steps: u64,
     /// Every fold's solve met its optimality conditions (trained, not stopped early).
     pub converged: bool,
-    /// Within one standard error of the best candidate.
+    /// Standard error of the per-fold RMSE differences to the lowest candidate (paired
+    /// over folds).
+    pub se_diff: f64,
+    /// Its validation RMSE exceeds the lowest one's by at most `se_diff`.
     pub within_one_se: bool,
     /// This is the data-driven default.
     pub is_default: bool,
@@ -74,7 +77,8 @@ pub struct TuneReport {
     /// The candidate with the lowest validation RMSE.
     pub lowest: CandidateResult,
     /// The chosen candidate: the simplest (smallest gamma, then smallest C, then largest
-    /// epsilon) within one standard error of the lowest.
+    /// epsilon) within one standard error of the lowest (the standard error of its
+    /// per-fold differences to the lowest).
     pub best: CandidateResult,
     /// Every candidate, lowest validation RMSE first.
     pub candidates: Vec<CandidateResult>,
@@ -92,7 +96,9 @@ pub struct TuneReport {
     pub chosen_error: f64,
     /// Relative tolerance of the agreement with the exact machine.
     pub dim_tol: f64,
-    /// Wall time of the search.
+    /// Wall time of the search on the exact machine (defaults and grid).
+    pub grid_seconds: f64,
+    /// Wall time of the whole search.
     pub seconds: f64,
 }
 
@@ -121,7 +127,7 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
     );
     let _ = writeln!(
         s,
-        "  {} candidates (budget {}), grid edges moved {} time(s){}, {:.1} s",
+        "  {} candidates (budget {}), grid edges moved {} time(s){}, {:.1} s ({:.1} s on the grid)",
         r.candidates.len(),
         r.max_fits,
         r.extensions,
@@ -130,12 +136,13 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
         } else {
             ""
         },
-        r.seconds
+        r.seconds,
+        r.grid_seconds
     );
     let _ = writeln!(
         s,
-        "\n{:>4}  {:>20}  {:>20}  {:>20}  {:>10}  {:>9}",
-        "rank", "gamma", "C", "epsilon", "val. RMSE", "± s.e."
+        "\n{:>4}  {:>20}  {:>20}  {:>20}  {:>10}  {:>9}  {:>9}",
+        "rank", "gamma", "C", "epsilon", "val. RMSE", "± s.e.", "diff s.e."
     );
     let shown: Vec<&CandidateResult> = r.candidates.iter().take(top).collect();
     let mut lines: Vec<&CandidateResult> = shown.clone();
@@ -146,7 +153,11 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
         lines.push(&r.default);
     }
     for c in lines {
-        let rank = r.candidates.iter().position(|x| x == c).map_or(0, |i| i + 1);
+        let rank = r
+            .candidates
+            .iter()
+            .position(|x| x == c)
+            .map_or(0, |i| i + 1);
         let mut marks = Vec::new();
         if c == &r.best {
             marks.push("chosen");
@@ -161,7 +172,7 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
         }
         let _ = writeln!(
             s,
-            "{:>4}  {:>12.4e} {:>7}  {:>12.4e} {:>7}  {:>12.4e} {:>7}  {:>10.5}  {:>9.5}{}",
+            "{:>4}  {:>12.4e} {:>7}  {:>12.4e} {:>7}  {:>12.4e} {:>7}  {:>10.5}  {:>9.5}  {:>9.5}{}",
             rank,
             c.gamma,
             format!("×{}", trim(c.factors[0])),
@@ -171,6 +182,7 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
             format!("×{}", trim(c.factors[2])),
             c.error,
             c.se,
+            c.se_diff,
             if marks.is_empty() {
                 String::new()
             } else {
@@ -183,8 +195,8 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
     }
     let _ = writeln!(
         s,
-        "\nchosen: the simplest candidate (smallest gamma, then smallest C, then largest epsilon) within one standard error of the lowest ({:.5} + {:.5}); common practice in cross-validation",
-        r.lowest.error, r.lowest.se
+        "\nchosen: the simplest candidate (smallest gamma, then smallest C, then largest epsilon) within one standard error of the lowest ({:.5}), the one-standard-error rule of cross-validation (common practice), with the standard error of each candidate's per-fold differences to the lowest (diff s.e.)",
+        r.lowest.error
     );
     let gain = 100.0 * (r.default.error - r.best.error) / r.default.error;
     let _ = writeln!(

@@ -67,14 +67,17 @@ fn summary(s: &Scored, folds: &[ExactFold]) -> (f64, f64, Vec<f64>) {
         .zip(folds)
         .map(|(e, f)| (e / f.y_val.len() as f64).sqrt())
         .collect();
-    let k = per.len() as f64;
-    let se = if per.len() < 2 {
-        0.0
-    } else {
-        let m = per.iter().sum::<f64>() / k;
-        (per.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / (k - 1.0) / k).sqrt()
-    };
-    (pooled, se, per)
+    (pooled, standard_error(&per), per)
+}
+
+/// Sample standard deviation over √count (0 for fewer than two values).
+fn standard_error(v: &[f64]) -> f64 {
+    if v.len() < 2 {
+        return 0.0;
+    }
+    let k = v.len() as f64;
+    let m = v.iter().sum::<f64>() / k;
+    (v.iter().map(|x| (x - m) * (x - m)).sum::<f64>() / (k - 1.0) / k).sqrt()
 }
 
 /// Lowest error first, failed (NaN) last, ties by simplicity.
@@ -132,7 +135,11 @@ pub(crate) fn search(opts: &TuneOptions, folds: &[ExactFold], d: &Defaults) -> R
         for (i, a) in next.iter_mut().enumerate() {
             let v = lowest.factors[i];
             for up in [false, true] {
-                let edge = if up { a.values.last() } else { a.values.first() };
+                let edge = if up {
+                    a.values.last()
+                } else {
+                    a.values.first()
+                };
                 if edge == Some(&v) {
                     if let Some(f) = a.beyond(up) {
                         a.values.push(f);
@@ -176,6 +183,7 @@ pub(crate) fn search(opts: &TuneOptions, folds: &[ExactFold], d: &Defaults) -> R
                 fold_errors,
                 steps: s.steps,
                 converged: s.converged,
+                se_diff: 0.0,
                 within_one_se: false,
                 is_default: f == [1.0, 1.0, 1.0],
             }
@@ -189,9 +197,17 @@ pub(crate) fn search(opts: &TuneOptions, folds: &[ExactFold], d: &Defaults) -> R
             lowest.gamma, lowest.c, lowest.epsilon
         )));
     }
-    let bound = lowest.error + lowest.se;
+    // Paired over folds: the per-fold RMSE differences to the lowest candidate share
+    // each fold's difficulty, so their standard error measures the comparison itself.
     for c in cands.iter_mut() {
-        c.within_one_se = c.error <= bound;
+        let diff: Vec<f64> = c
+            .fold_errors
+            .iter()
+            .zip(&lowest.fold_errors)
+            .map(|(a, b)| a - b)
+            .collect();
+        c.se_diff = standard_error(&diff);
+        c.within_one_se = c.error - lowest.error <= c.se_diff;
     }
     let best = cands
         .iter()
