@@ -161,9 +161,9 @@ mod tests {
     fn kkt_conditions_hold_at_the_solution() {
         // published: Chapelle (2007) — at the optimum β_i = 2C(y_i − f_i − ε s_i) outside
         // the tube and β_i = 0 inside it.
-        let x = [0.0, 0.3, 0.7, 1.0, 1.4, 2.0, 2.2];
+        let x: [f64; 7] = [0.0, 0.3, 0.7, 1.0, 1.4, 2.0, 2.2];
         let y = array![0.1, 0.5, 0.4, 1.2, 0.9, 2.1, 1.7];
-        let q = Array2::from_shape_fn((7, 7), |(i, j)| (-(x[i] - x[j] as f64).powi(2)).exp() + 1.0);
+        let q = Array2::from_shape_fn((7, 7), |(i, j)| (-(x[i] - x[j]).powi(2)).exp() + 1.0);
         let (c, eps) = (3.0, 0.15);
         let s = solve_l2(q.view(), y.view(), c, eps, None).unwrap();
         assert!(s.converged);

@@ -146,7 +146,7 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
     );
     let shown: Vec<&CandidateResult> = r.candidates.iter().take(top).collect();
     let mut lines: Vec<&CandidateResult> = shown.clone();
-    if !shown.iter().any(|c| *c == &r.best) {
+    if !shown.contains(&&r.best) {
         lines.push(&r.best);
     }
     if !lines.iter().any(|c| c.is_default) {
