@@ -62,6 +62,10 @@ pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
     if !quiet {
         print!("{}", render_training(&model.report));
         println!("model written to {}", a.out.display());
+        // A quick check on a sample for a clearly better gamma (issue 14).
+        if let Ok(Some(hint)) = crate::tune::gamma_hint_for_model(&reader, &model) {
+            println!("{}", hint.message());
+        }
     }
     Ok(0)
 }

@@ -4,20 +4,21 @@
 
 use std::path::{Path, PathBuf};
 
-use clap::{Args, Parser};
+use clap::Args;
 use ndarray::Axis;
 
 use crate::atomic::write_atomic;
 use crate::data::{discover, resolve_columns, survey, SurveySettings, TableReader};
 use crate::error::{Error, Result};
 use crate::features::MapSpec;
+use crate::fit::{FitOptions, Fitter};
 use crate::kernel::KernelKind;
+use crate::report::render_training;
 use crate::solver::dcd::Loss;
 use crate::tune::{heatmap_svg, render_tune, tune, TuneOptions, TuneReport, Validation};
 
 use super::args::{KernelArg, MapArg, SourceArgs};
-use super::{Cli, Command};
-use super::progress::rows_bar;
+use super::progress::{rows_bar, EpochBars};
 
 /// `kernlake tune`.
 #[derive(Debug, Args)]
@@ -60,34 +61,42 @@ pub struct TuneArgs {
         default_value = "0.25,1,4"
     )]
     pub epsilon_factors: Vec<f64>,
-    /// Train every candidate with the full budget (no successive halving).
-    #[arg(long)]
-    pub no_halving: bool,
-    /// Halving rate: each rung keeps the best 1/eta.
-    #[arg(long, default_value_t = 3)]
-    pub eta: usize,
-    /// Start every candidate from zero instead of the previous C's duals.
-    #[arg(long)]
-    pub no_warm_start: bool,
-    /// Epochs of a candidate at the last rung.
-    #[arg(long, default_value_t = 27)]
+    /// Rows of the sample on which the exact kernel machine is cross-validated (its cost
+    /// grows like the cube of this).
+    #[arg(long, default_value_t = 1_000)]
+    pub exact_rows: usize,
+    /// Candidates the search may evaluate; the grid grows past an edge holding the
+    /// lowest error only within this budget.
+    #[arg(long, default_value_t = 150)]
+    pub max_fits: usize,
+    /// Epoch limit of the linear-loss fits on the map when choosing D.
+    #[arg(long, default_value_t = 50)]
     pub epochs: usize,
-    /// Coordinate-descent sweeps per epoch (linear loss only; the squared loss uses Newton
-    /// passes).
+    /// Coordinate-descent sweeps per epoch (linear loss, when choosing D).
     #[arg(long, default_value_t = 10)]
     pub sweeps: usize,
-    /// A candidate stops when its relative duality gap is at most this.
+    /// Duality-gap tolerance of the linear-loss fits when choosing D.
     #[arg(long, default_value_t = 1e-3)]
     pub tol: f64,
-    /// Features D of the grid search, and the first D when doubling.
-    #[arg(long, short = 'D', default_value_t = 256)]
-    pub components: usize,
+    /// The first D (mapped features) tried; D doubles from here.
+    #[arg(long = "dim", short = 'D', default_value_t = 256)]
+    pub dim: usize,
     /// Largest D tried when doubling.
     #[arg(long, default_value_t = 4096)]
-    pub max_components: usize,
-    /// Stop doubling D when the validation error improves by less than this share.
+    pub max_dim: usize,
+    /// D agrees with the exact machine when its validation RMSE is at most this share
+    /// above the exact machine's.
     #[arg(long, default_value_t = 0.01)]
-    pub components_tol: f64,
+    pub dim_tol: f64,
+    /// Old spelling of --dim, refused.
+    #[arg(long = "components", hide = true, value_name = "D")]
+    pub old_components: Option<String>,
+    /// Old spelling of --max-dim, refused.
+    #[arg(long = "max-components", hide = true, value_name = "D")]
+    pub old_max_components: Option<String>,
+    /// Old spelling of --dim-tol, refused.
+    #[arg(long = "components-tol", hide = true, value_name = "SHARE")]
+    pub old_components_tol: Option<String>,
     /// Kernel family.
     #[arg(long, value_enum, default_value = "gaussian")]
     pub kernel: KernelArg,
@@ -140,11 +149,29 @@ impl TuneArgs {
         }
     }
 
+    /// Refuses the old spellings of the D flags, naming the new ones.
+    fn check_names(&self) -> Result<()> {
+        let old = [
+            (&self.old_components, "--components", "-D/--dim"),
+            (&self.old_max_components, "--max-components", "--max-dim"),
+            (&self.old_components_tol, "--components-tol", "--dim-tol"),
+        ];
+        for (v, was, now) in old {
+            if v.is_some() {
+                return Err(Error::invalid(
+                    was,
+                    format!("this flag is now spelled {now}"),
+                ));
+            }
+        }
+        Ok(())
+    }
+
     /// The search options these flags ask for (`rows` = rows the full fit will use).
-    fn options(&self, rows: u64) -> TuneOptions {
+    fn options(&self, rows: Option<u64>) -> TuneOptions {
         TuneOptions {
             kernel: self.kernel(),
-            map: self.map_spec(self.components),
+            map: self.map_spec(self.dim),
             loss: self.loss(),
             gamma_factors: self.gamma_factors.clone(),
             c_factors: self.c_factors.clone(),
@@ -153,17 +180,31 @@ impl TuneArgs {
                 Some(h) => Validation::Holdout(h),
                 None => Validation::KFold(self.folds),
             },
-            halving: !self.no_halving,
-            eta: self.eta,
-            warm_start: !self.no_warm_start,
+            exact_rows: self.exact_rows,
+            max_fits: self.max_fits,
             max_epochs: self.epochs,
             sweeps_per_epoch: self.sweeps,
             tol: self.tol,
-            components: self.components,
-            max_components: self.max_components,
-            components_tol: self.components_tol,
+            dim: self.dim,
+            max_dim: self.max_dim,
+            dim_tol: self.dim_tol,
             seed: self.seed,
-            rows_total: Some(rows),
+            rows_total: rows,
+        }
+    }
+
+    /// The fit's options with the chosen values (everything else the fit's defaults).
+    fn fit_options(&self, r: &TuneReport) -> FitOptions {
+        FitOptions {
+            kernel: self.kernel(),
+            gamma: Some(r.best.gamma),
+            map: self.map_spec(r.chosen_dim),
+            c: Some(r.best.c),
+            epsilon: Some(r.best.epsilon),
+            loss: self.loss(),
+            seed: self.seed,
+            threads: self.threads,
+            ..FitOptions::default()
         }
     }
 
@@ -186,7 +227,7 @@ impl TuneArgs {
         }
         flag("--kernel", format!("{:?}", self.kernel).to_lowercase());
         flag("--map", format!("{:?}", self.map).to_lowercase());
-        flag("-D", r.chosen_components.to_string());
+        flag("-D", r.chosen_dim.to_string());
         flag("--loss", self.loss.clone());
         flag("--gamma", format!("{:e}", r.best.gamma));
         flag("--c", format!("{:e}", r.best.c));
@@ -222,6 +263,9 @@ fn write_text(path: &Path, text: &[u8]) -> Result<()> {
 
 /// Runs `kernlake tune`.
 pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
+    // Settings are checked before any data is read.
+    a.check_names()?;
+    a.options(None).validate()?;
     let csv = a.src.csv()?;
     let files = discover(&a.src.sources)?;
     let columns = resolve_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;
@@ -256,7 +300,7 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
             a.target
         );
     }
-    let opts = a.options(s.rows_used);
+    let opts = a.options(Some(s.rows_used));
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(a.threads)
         .build()
@@ -279,19 +323,19 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
         words.join(" ")
     );
     if let Some(out) = &a.fit {
-        // The same fit as the printed command line, with its defaults for everything else.
-        let mut argv = vec!["kernlake".to_string(), "fit".to_string()];
-        argv.extend(args);
-        argv.push("--out".into());
-        argv.push(out.display().to_string());
-        argv.push("--threads".into());
-        argv.push(a.threads.to_string());
-        let cli =
-            Cli::try_parse_from(&argv).map_err(|e| Error::invalid("fit command", e.to_string()))?;
-        match cli.command {
-            Command::Fit(f) => super::fit::run(*f, quiet)?,
-            _ => unreachable!("the command built above is a fit"),
-        };
+        // The same fit as the printed command line, called with its options.
+        let opts = a.fit_options(&report);
+        let reader = reader.with_batch_rows(opts.block_rows);
+        let survey_bar = rows_bar(quiet, known_rows, "survey");
+        let epochs = EpochBars::new(quiet, known_rows);
+        let model = Fitter::from_options(opts)
+            .fit_files(&reader, &epochs, &|rows| survey_bar.set_position(rows))?;
+        survey_bar.finish_and_clear();
+        model.save(out)?;
+        if !quiet {
+            print!("{}", render_training(&model.report));
+            println!("model written to {}", out.display());
+        }
     }
     Ok(0)
 }

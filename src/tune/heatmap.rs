@@ -1,6 +1,6 @@
 //! A hand-written SVG heat map of validation error over gamma × C at the chosen epsilon.
-//! Cells pruned by successive halving show the error at the rung where they stopped
-//! (marked with that rung), the chosen cell is outlined.
+//! Each cell shows the exact machine's validation RMSE and its standard error over folds;
+//! the chosen cell is outlined.
 
 use std::fmt::Write;
 
@@ -41,22 +41,13 @@ fn escape(s: &str) -> String {
 /// The heat map as an SVG document: rows are gamma factors, columns C factors, at the
 /// epsilon factor of the chosen candidate (factor 1 when the choice is off the grid).
 pub fn heatmap_svg(r: &TuneReport) -> String {
-    let eps_index = r.best.grid.map(|g| g[2]).unwrap_or_else(|| {
-        r.epsilon_factors
-            .iter()
-            .enumerate()
-            .min_by(|a, b| (a.1.ln().abs()).total_cmp(&b.1.ln().abs()))
-            .map(|(i, _)| i)
-            .unwrap_or(0)
-    });
-    let last_rung = r.rung_epochs.len().saturating_sub(1);
+    let eps_index = r.best.grid[2];
     let (ng, nc) = (r.gamma_factors.len(), r.c_factors.len());
     let mut cells = vec![None; ng * nc];
     for c in &r.candidates {
-        if let Some(g) = c.grid {
-            if g[2] == eps_index {
-                cells[g[0] * nc + g[1]] = Some(c);
-            }
+        let g = c.grid;
+        if g[2] == eps_index {
+            cells[g[0] * nc + g[1]] = Some(c);
         }
     }
     let finite: Vec<f64> = cells
@@ -139,11 +130,7 @@ pub fn heatmap_svg(r: &TuneReport) -> String {
                 s,
                 r#"<rect x="{x}" y="{y}" width="{CELL_W}" height="{CELL_H}" fill="{fill}" stroke="white"/>"#
             );
-            let note = if c.rung < last_rung {
-                format!(" (rung {})", c.rung)
-            } else {
-                String::new()
-            };
+            let note = format!(" ±{:.3}", c.se);
             let _ = writeln!(
                 s,
                 r#"<text x="{}" y="{}" text-anchor="middle" fill="{text}">{:.4}{}</text>"#,
@@ -166,7 +153,7 @@ pub fn heatmap_svg(r: &TuneReport) -> String {
     }
     let _ = writeln!(
         s,
-        r#"<text x="10" y="{}">gamma × {:.4e}; lower is better; (rung r) = pruned after rung r; red = chosen.</text>"#,
+        r#"<text x="10" y="{}">gamma × {:.4e}; validation RMSE ± its standard error over folds; lower is better; red = chosen.</text>"#,
         TOP + CELL_H * ng as f64 + 30.0,
         r.defaults.gamma
     );

@@ -11,54 +11,73 @@
 //!   3-nearest-neighbour residuals.
 //!
 //! # Validation search ([`tune`])
-//! The grid is the defaults times factors (by default gamma × {¼, ½, 1, 2, 4},
-//! C × {1/10, 1/√10, 1, √10, 10}, epsilon × {¼, 1, 4}). Each candidate is a linear
-//! epsilon-SVR on D random features, trained by dual coordinate descent (Ho & Lin, JMLR
-//! 2012) and scored by k-fold (default 3) or holdout validation RMSE in target units.
-//! Successive halving (Jamieson & Talwalkar, AISTATS 2016) trains every candidate for a
-//! few epochs, keeps the best 1/η (η = 3), and resumes the survivors with η times the
-//! epochs, up to the full budget; the defaults are never pruned, so the result is never
-//! worse than them on validation. Candidates with the same gamma share their mapped
-//! features, and along increasing C each starts from the previous C's duals (warm start).
-//! Then D doubles from its start (256) while the winner's validation error falls by at
-//! least 1% a step. Everything is seeded: the same data, options and seed give the same
-//! report (apart from the timing), whatever the thread count.
+//! gamma, C and epsilon are chosen on the exact kernel machine, so that the feature
+//! map's approximation error does not bias the comparison (a narrow kernel needs more
+//! features than a wide one): on a seeded random subset of the sample (`exact_rows`,
+//! default 2,000), by k-fold (default 3) or holdout validation RMSE in target units.
+//! For the squared loss the exact machine is solved by primal Newton on the Gram matrix
+//! (Chapelle, Neural Computation 19, 2007; [`exact`]), warm-started along increasing C;
+//! for the linear loss by SMO ([`crate::solver::smo`]). Every candidate is trained to
+//! its optimality conditions before it is compared: nothing is pruned on a partly
+//! trained model.
+//!
+//! The grid starts as the defaults times factors (gamma × {¼, ½, 1, 2, 4},
+//! C × {1/10, 1/√10, 1, √10, 10}, epsilon × {¼, 1, 4}) and grows past any edge that
+//! holds the lowest error, one step at that edge's spacing, while the number of
+//! candidates stays within `max_fits` (a practitioner's rule: a minimum on the edge of a
+//! grid is not a minimum). Each candidate's error comes with its standard error over
+//! folds, and the choice is the simplest candidate (smallest gamma, then smallest C,
+//! then largest epsilon) within one standard error of the lowest (the one-standard-error
+//! rule; Breiman et al., *Classification and Regression Trees*, 1984; Hastie,
+//! Tibshirani & Friedman, *The Elements of Statistical Learning*, §7.10), where the
+//! standard error is that of the candidate's per-fold differences to the lowest (paired
+//! over folds: the folds' own difficulty cancels, which with 3 folds is most of the
+//! spread). The defaults are a candidate, so the choice is never worse than them on
+//! validation by more than that standard error.
+//!
+//! Then D doubles from `dim` (256) up to `max_dim` until the chosen machine on the
+//! feature map agrees with the exact one (validation RMSE at most `dim_tol` above it):
+//! the smallest such D is chosen. Everything is seeded: the same data, options and seed
+//! give the same report (apart from the timing), whatever the thread count.
 //!
 //! # Limits
-//! * Memory: the mapped rows of one gamma and one fold are held at a time
-//!   (about 8·n·D bytes), plus each surviving candidate's duals (8 bytes a training row).
-//! * Candidates are compared at equal epoch budgets (passes), not at equal optimality.
-//!   With the squared loss each pass is a Newton iteration (Hessian from a sample of
-//!   4,096 fold rows), which reaches the gap tolerance in a few passes whatever C; with
-//!   the linear loss and a large C coordinate descent may not reach it within
-//!   `max_epochs`, which favours smaller C. Successive halving ranks candidates by their
-//!   early errors and can miss the full grid's winner when early and final rankings
-//!   differ: on Friedman #1, 20,000 rows, a 5 × 5 × 3 grid at D = 1,024 (squared loss,
-//!   Newton passes) it chose the full grid's gamma and C with a larger epsilon, 0.18%
-//!   worse on validation, for a quarter of the time; with the dual solver (2,000 rows)
-//!   the winner was 4% worse.
+//! * The exact machine's cost grows like the cube of `exact_rows` (one Cholesky
+//!   factorization per Newton step) and its memory like the square (a Gram matrix per
+//!   fold). A narrower kernel's advantage that shows only with more rows than
+//!   `exact_rows` is not seen.
+//! * For C, the squared loss uses solver units (unit-free, as the fit does: the
+//!   Cherkassky & Ma value divided by the target's standard deviation).
 
-mod halving;
+mod dim;
+pub mod exact;
+mod grid;
 mod heatmap;
+mod hint;
 mod options;
 mod report;
 mod search;
+mod select;
 
 pub use crate::heuristics::{cherkassky_ma, knn_noise_sd, median_gamma, Defaults};
-pub use halving::rung_budgets;
 pub use heatmap::heatmap_svg;
+pub use hint::{gamma_hint, gamma_hint_for_model, GammaHint, HINT_FACTOR, HINT_GAIN, HINT_ROWS};
 pub use options::{TuneOptions, Validation};
-pub use report::{render_tune, CandidateResult, ComponentStep, TuneReport};
+pub use report::{render_tune, CandidateResult, DimStep, TuneReport};
 
 use std::time::Instant;
 
-use ndarray::{ArrayView1, ArrayView2};
+use ndarray::{ArrayView1, ArrayView2, Axis};
+use rand::seq::SliceRandom;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
 
+use crate::data::splitmix64;
 use crate::error::{Error, Result};
 use crate::scale::Standardizer;
+use crate::solver::dcd::Loss;
 
-use halving::{by_error, Candidate, Search};
-use search::{run_seed, FoldData, Folds, Run};
+use grid::ExactFold;
+use search::Folds;
 
 /// Chooses gamma, C, epsilon and D for inputs `x` (rows × columns, raw units; they are
 /// standardized here by the sample's own mean and deviation) and targets `y` by
@@ -68,7 +87,7 @@ use search::{run_seed, FoldData, Folds, Run};
 /// Invalid options, such as a non-positive grid value ([`Error::InvalidParameter`]); too
 /// few rows for the validation scheme or a constant target ([`Error::NoRows`]);
 /// non-finite inputs ([`Error::NonFinite`]) or targets ([`Error::NonFiniteTarget`]);
-/// every candidate diverging ([`Error::TuneFailed`], naming the best attempt).
+/// every candidate failing ([`Error::TuneFailed`]).
 ///
 /// # Panics
 /// If `x` and `y` differ in rows.
@@ -97,178 +116,65 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
     }
     let mut xs = x.to_owned();
     Standardizer::fit(x).apply(xs.view_mut());
-    let folds = Folds::new(xs.view(), y, opts.validation, opts.seed)?;
-    let mean = y.sum() / n as f64;
-    let sd = (y.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
-    let defaults = Defaults::from_sample(
+    // A seeded random order, so that every prefix is a uniform sample of the rows.
+    let mut order: Vec<usize> = (0..n).collect();
+    order.shuffle(&mut ChaCha8Rng::seed_from_u64(splitmix64(
+        opts.seed,
+        0x0065_7861_6374,
+    )));
+    let xs = xs.select(Axis(0), &order);
+    let ys = y.select(Axis(0), &order);
+    let mean = ys.sum() / n as f64;
+    let sd = (ys.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
+    if !(sd > 0.0 && sd.is_finite()) {
+        return Err(Error::NoRows(
+            "the target is constant on the tuning sample; nothing to tune".into(),
+        ));
+    }
+    let mut defaults = Defaults::from_sample(
         xs.view(),
-        y,
+        ys.view(),
         mean,
         sd,
         opts.rows_total.unwrap_or(n as u64).max(2),
     )?;
+    // The squared loss's C is unit-free: the fit divides the rule's value by the sd.
+    if opts.loss == Loss::L2 {
+        defaults.c /= sd;
+    }
+    let m = n.min(opts.exact_rows);
+    let folds = Folds::new(
+        xs.slice(ndarray::s![..m, ..]),
+        ys.slice(ndarray::s![..m]),
+        opts.validation,
+        opts.seed,
+    )?;
+    let exact = ExactFold::all(&folds);
+    let search = select::search(opts, &exact, &defaults)?;
 
-    let k = folds.ranges.len();
-    let mut cands = Vec::new();
-    for (gi, gf) in opts.gamma_factors.iter().enumerate() {
-        for (ci, cf) in opts.c_factors.iter().enumerate() {
-            for (ei, ef) in opts.epsilon_factors.iter().enumerate() {
-                let mut c = Candidate::new(
-                    defaults.gamma * gf,
-                    defaults.c * cf,
-                    defaults.epsilon * ef,
-                    Some([gi, ci, ei]),
-                    k,
-                );
-                c.protected = *gf == 1.0 && *cf == 1.0 && *ef == 1.0;
-                cands.push(c);
-            }
-        }
-    }
-    for c in &cands {
-        if !(c.gamma.is_finite() && c.c.is_finite() && c.epsilon.is_finite()) {
-            return Err(Error::invalid(
-                "grid",
-                format!(
-                    "a grid point overflows: gamma = {}, C = {}, epsilon = {}",
-                    c.gamma, c.c, c.epsilon
-                ),
-            ));
-        }
-    }
-    if !cands.iter().any(|c| c.protected) {
-        let mut c = Candidate::new(defaults.gamma, defaults.c, defaults.epsilon, None, k);
-        c.protected = true;
-        cands.push(c);
-    }
-    let search = Search {
-        folds: &folds,
-        opts,
-        components: opts.components,
-    };
-    let (alive, budgets) = search.run(&mut cands)?;
-    let winner = winner(&cands, &alive)?;
-    let default_index = cands
-        .iter()
-        .position(|c| c.protected)
-        .expect("defaults are a candidate");
-    let default_error = cands[default_index].error;
-
-    // Search over D at the winner's gamma, C and epsilon, cold starts, full budget.
-    let mut steps = vec![ComponentStep {
-        components: opts.components,
-        error: cands[winner].error,
-    }];
-    let mut chosen = 0;
-    for &d in opts.component_ladder().iter().skip(1) {
-        let error = cross_validate(&search, &cands[winner], d)?;
-        let prev = steps[chosen].error;
-        steps.push(ComponentStep {
-            components: d,
-            error,
-        });
-        if !(error.is_finite() && prev - error >= opts.components_tol * prev) {
-            break;
-        }
-        chosen = steps.len() - 1;
-    }
-
-    let mut ranked: Vec<usize> = (0..cands.len()).collect();
-    by_error(&cands, &mut ranked);
-    ranked.sort_by_key(|&i| std::cmp::Reverse(cands[i].rung));
-    let result = |i: usize| {
-        let c = &cands[i];
-        CandidateResult {
-            gamma: c.gamma,
-            c: c.c,
-            epsilon: c.epsilon,
-            grid: c.grid,
-            error: c.error,
-            rung: c.rung,
-            epochs: c.epochs,
-            converged: c.converged,
-            is_default: c.protected,
-        }
-    };
+    let grid_seconds = t0.elapsed().as_secs_f64();
+    let b = &search.best;
+    let (dims, chosen) = dim::choose_dim(opts, &folds, &exact, (b.gamma, b.c, b.epsilon), b.error)?;
     Ok(TuneReport {
         rows: n,
+        exact_rows: m,
         validation: opts.validation,
         defaults,
-        default_error,
-        gamma_factors: opts.gamma_factors.clone(),
-        c_factors: opts.c_factors.clone(),
-        epsilon_factors: opts.epsilon_factors.clone(),
-        best: result(winner),
-        candidates: ranked.iter().map(|&i| result(i)).collect(),
-        rung_epochs: budgets,
-        epochs_total: cands.iter().map(|c| c.work as u64).sum(),
-        components: steps.clone(),
-        chosen_components: steps[chosen].components,
-        chosen_error: steps[chosen].error,
-        grid_components: opts.components,
+        default: search.default,
+        gamma_factors: search.axes[0].clone(),
+        c_factors: search.axes[1].clone(),
+        epsilon_factors: search.axes[2].clone(),
+        lowest: search.lowest,
+        best: search.best,
+        candidates: search.candidates,
+        max_fits: opts.max_fits,
+        extensions: search.extensions,
+        budget_reached: search.budget_reached,
+        chosen_dim: dims[chosen].dim,
+        chosen_error: dims[chosen].error,
+        dims,
+        dim_tol: opts.dim_tol,
+        grid_seconds,
         seconds: t0.elapsed().as_secs_f64(),
     })
-}
-
-/// The best of the last rung, or a typed error naming the best attempt when every
-/// candidate's validation error is non-finite.
-fn winner(cands: &[Candidate], alive: &[usize]) -> Result<usize> {
-    let w = alive[0];
-    let c = &cands[w];
-    if c.error.is_finite() {
-        return Ok(w);
-    }
-    Err(Error::TuneFailed(format!(
-        "no candidate gave a finite validation error; best attempt: gamma = {:.4e}, C = {:.4e}, epsilon = {:.4e}, validation RMSE {} after {} epochs (converged: {}); try smaller C values or larger epsilon values",
-        c.gamma, c.c, c.epsilon, c.error, c.epochs, c.converged
-    )))
-}
-
-/// Validation RMSE of one candidate at D = `d`, every fold trained from zero with the
-/// full epoch budget.
-fn cross_validate(search: &Search, cand: &Candidate, d: usize) -> Result<f64> {
-    let map = search.map(cand.gamma, d)?;
-    let settings = cand.settings(search.opts);
-    let mut sse = 0.0;
-    let mut rows = 0;
-    for f in 0..search.folds.ranges.len() {
-        let fold = FoldData::new(search.folds, f, map.as_ref())?;
-        let mut run = Run::cold(&fold, run_seed(search.opts.seed, usize::MAX, f));
-        run.advance(&fold, &settings, search.opts.max_epochs);
-        sse += run.validation_sse(&fold);
-        rows += fold.y_val.len();
-    }
-    Ok((sse / rows as f64).sqrt())
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn every_candidate_failing_is_a_typed_error_naming_the_best_attempt() {
-        // common practice: a search whose every candidate diverged must not return a choice.
-        let mut a = Candidate::new(0.5, 2.0, 0.1, None, 3);
-        a.epochs = 7;
-        let mut b = Candidate::new(0.25, 4.0, 0.1, None, 3);
-        b.error = f64::INFINITY;
-        let cands = vec![a, b];
-        let mut alive = vec![0, 1];
-        by_error(&cands, &mut alive);
-        assert_eq!(alive, vec![1, 0], "NaN ranks after infinity");
-        match winner(&cands, &alive) {
-            Err(Error::TuneFailed(m)) => {
-                assert!(
-                    m.contains("gamma = 2.5000e-1") && m.contains("C = 4.0000e0"),
-                    "{m}"
-                )
-            }
-            other => panic!("expected TuneFailed, got {other:?}"),
-        }
-        let mut ok = cands.clone();
-        ok[0].error = 3.0;
-        let mut alive = vec![0, 1];
-        by_error(&ok, &mut alive);
-        assert_eq!(winner(&ok, &alive).unwrap(), 0);
-    }
 }

@@ -1,5 +1,6 @@
 //! Settings of the validation search: the grid (as factors around the data-driven
-//! defaults), the validation scheme, successive halving and the search over D.
+//! defaults), the validation scheme, the exact machine's sample and budget, and the
+//! search over D.
 
 use serde::{Deserialize, Serialize};
 
@@ -24,41 +25,39 @@ pub enum Validation {
 pub struct TuneOptions {
     /// Kernel family.
     pub kernel: KernelKind,
-    /// Feature map used for every candidate; its `components` is ignored (see
-    /// [`TuneOptions::components`]) and its `seed` replaced by [`TuneOptions::seed`].
+    /// Feature map whose D is chosen; its `components` is ignored (see
+    /// [`TuneOptions::dim`]) and its `seed` replaced by [`TuneOptions::seed`].
     pub map: MapSpec,
     /// Loss beyond the tube.
     pub loss: Loss,
-    /// Multipliers of the median-heuristic gamma (all positive).
+    /// Multipliers of the median-heuristic gamma (all positive); the starting grid.
     pub gamma_factors: Vec<f64>,
-    /// Multipliers of the Cherkassky & Ma C (all positive).
+    /// Multipliers of the Cherkassky & Ma C (all positive); the starting grid.
     pub c_factors: Vec<f64>,
-    /// Multipliers of the Cherkassky & Ma epsilon (all positive).
+    /// Multipliers of the Cherkassky & Ma epsilon (all positive); the starting grid.
     pub epsilon_factors: Vec<f64>,
     /// Validation scheme.
     pub validation: Validation,
-    /// Successive halving (Jamieson & Talwalkar, AISTATS 2016): `false` trains every
-    /// candidate with the full epoch budget.
-    pub halving: bool,
-    /// Halving rate η ≥ 2: each rung keeps the best 1/η and multiplies the budget by η.
-    pub eta: usize,
-    /// Warm-start the solver along increasing C (same gamma, epsilon and fold share the
-    /// mapped features; the duals of the previous C are the starting point).
-    pub warm_start: bool,
-    /// Epoch budget of a candidate at the last rung (passes of dual coordinate descent).
+    /// Rows of the sample (a seeded random subset) on which the exact kernel machine is
+    /// cross-validated; its cost grows like the cube of this.
+    pub exact_rows: usize,
+    /// Candidates (each one cross-validated exact fit) the search may evaluate; the grid
+    /// grows past an edge holding the lowest error only while this allows.
+    pub max_fits: usize,
+    /// Epoch limit of the linear-loss fits on the map when choosing D.
     pub max_epochs: usize,
-    /// Coordinate-descent sweeps per epoch (the block's sub-problem, see
-    /// [`crate::solver::dcd::solve_block`]).
+    /// Coordinate-descent sweeps per epoch (linear loss, when choosing D).
     pub sweeps_per_epoch: usize,
-    /// A candidate stops early when its relative duality gap is at most this.
+    /// Duality-gap tolerance of the linear-loss fits when choosing D.
     pub tol: f64,
-    /// D used for the grid search, and the first D of the search over D.
-    pub components: usize,
-    /// Largest D tried when doubling (at most this; ≤ `components` skips the search).
-    pub max_components: usize,
-    /// Doubling D stops when the validation error improves by less than this share.
-    pub components_tol: f64,
-    /// Seed of every random choice (folds, map, coordinate order).
+    /// The first D tried for the map.
+    pub dim: usize,
+    /// Largest D tried when doubling.
+    pub max_dim: usize,
+    /// D agrees with the exact machine when its validation RMSE is at most this share
+    /// above the exact machine's.
+    pub dim_tol: f64,
+    /// Seed of every random choice (folds, sample, map).
     pub seed: u64,
     /// Rows for which the defaults' epsilon is computed (Cherkassky & Ma use the training
     /// size n in √(ln n / n)); `None` = the sample's rows.
@@ -75,15 +74,14 @@ impl Default for TuneOptions {
             c_factors: vec![0.1, 0.316, 1.0, 3.16, 10.0],
             epsilon_factors: vec![0.25, 1.0, 4.0],
             validation: Validation::KFold(3),
-            halving: true,
-            eta: 3,
-            warm_start: true,
-            max_epochs: 27,
+            exact_rows: 1_000,
+            max_fits: 150,
+            max_epochs: 50,
             sweeps_per_epoch: 10,
             tol: 1e-3,
-            components: 256,
-            max_components: 4096,
-            components_tol: 0.01,
+            dim: 256,
+            max_dim: 4096,
+            dim_tol: 0.01,
             seed: 0,
             rows_total: None,
         }
@@ -127,11 +125,18 @@ impl TuneOptions {
             }
             _ => {}
         }
-        if self.eta < 2 {
+        if self.exact_rows < 2 * MIN_FOLD_ROWS {
             return Err(Error::invalid(
-                "eta",
-                format!("must be at least 2, got {}", self.eta),
+                "exact rows",
+                format!(
+                    "must be at least {}, got {}",
+                    2 * MIN_FOLD_ROWS,
+                    self.exact_rows
+                ),
             ));
+        }
+        if self.max_fits == 0 {
+            return Err(Error::invalid("max fits", "must be at least 1"));
         }
         if self.max_epochs == 0 {
             return Err(Error::invalid("epochs", "must be at least 1"));
@@ -145,24 +150,32 @@ impl TuneOptions {
                 format!("must be at least 0, got {}", self.tol),
             ));
         }
-        if self.components == 0 {
-            return Err(Error::invalid("components", "must be at least 1"));
+        if self.dim == 0 {
+            return Err(Error::invalid("dim", "must be at least 1"));
         }
-        if !(self.components_tol.is_finite() && self.components_tol >= 0.0) {
+        if self.max_dim < self.dim {
             return Err(Error::invalid(
-                "components tolerance",
-                format!("must be at least 0, got {}", self.components_tol),
+                "max dim",
+                format!(
+                    "{} is below the first D, {}; give a largest D of at least the first",
+                    self.max_dim, self.dim
+                ),
+            ));
+        }
+        if !(self.dim_tol.is_finite() && self.dim_tol >= 0.0) {
+            return Err(Error::invalid(
+                "dim tolerance",
+                format!("must be at least 0, got {}", self.dim_tol),
             ));
         }
         Ok(())
     }
 
-    /// The D values of the doubling search: `components`, 2·`components`, … up to
-    /// `max_components`.
-    pub fn component_ladder(&self) -> Vec<usize> {
-        let mut out = vec![self.components];
-        let mut d = self.components;
-        while d.saturating_mul(2) <= self.max_components {
+    /// The D values of the doubling search: `dim`, 2·`dim`, … up to `max_dim`.
+    pub fn dim_ladder(&self) -> Vec<usize> {
+        let mut out = vec![self.dim];
+        let mut d = self.dim;
+        while d.saturating_mul(2) <= self.max_dim {
             d *= 2;
             out.push(d);
         }

@@ -1,5 +1,6 @@
-//! What a validation search found, and its text rendering: a ranked table, the
-//! defaults' figure beside the winner's, and the search over D.
+//! What a validation search found, and its text rendering: a ranked table with each
+//! candidate's standard error over folds, the one-standard-error choice, the defaults'
+//! figure beside it, and the search over D.
 
 use std::fmt::Write;
 
@@ -8,74 +9,96 @@ use serde::{Deserialize, Serialize};
 use crate::heuristics::Defaults;
 use super::options::Validation;
 
-/// One candidate's outcome.
+/// One candidate's outcome on the exact kernel machine.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct CandidateResult {
     /// Kernel width.
     pub gamma: f64,
-    /// Penalty C (target units).
+    /// Penalty C (solver units: target units for the linear loss, unit-free for the
+    /// squared loss).
     pub c: f64,
     /// Tube half-width (target units).
     pub epsilon: f64,
-    /// Indices into the gamma, C and epsilon factor lists; `None` for the defaults when
-    /// they are not on the grid.
-    pub grid: Option<[usize; 3]>,
-    /// Pooled validation RMSE (target units) at the last rung this candidate reached;
-    /// NaN if a run diverged.
+    /// Factors of the defaults' gamma, C and epsilon.
+    pub factors: [f64; 3],
+    /// Indices into the report's gamma, C and epsilon factor lists.
+    pub grid: [usize; 3],
+    /// Pooled validation RMSE (target units); NaN if a fold's solve failed.
     pub error: f64,
-    /// Last rung reached (0 = first).
-    pub rung: usize,
-    /// Epochs run at that rung (largest over folds).
-    pub epochs: usize,
-    /// Every fold's run reached the duality-gap tolerance.
+    /// Standard error of the per-fold RMSE (sample deviation over folds / √folds; 0 for
+    /// a holdout).
+    pub se: f64,
+    /// Validation RMSE of each fold.
+    pub fold_errors: Vec<f64>,
+    /// Newton steps (squared loss) or SMO iterations (linear loss), largest over folds.
+    pub steps: u64,
+    /// Every fold's solve met its optimality conditions (trained, not stopped early).
     pub converged: bool,
+    /// Standard error of the per-fold RMSE differences to the lowest candidate (paired
+    /// over folds).
+    pub se_diff: f64,
+    /// Its validation RMSE exceeds the lowest one's by at most `se_diff`.
+    pub within_one_se: bool,
     /// This is the data-driven default.
     pub is_default: bool,
 }
 
 /// One step of the search over D.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
-pub struct ComponentStep {
+pub struct DimStep {
     /// Mapped features D.
-    pub components: usize,
-    /// The winner's validation RMSE at this D.
+    pub dim: usize,
+    /// The chosen candidate's validation RMSE on the map with this D.
     pub error: f64,
+    /// Within the tolerance of the exact machine's validation RMSE.
+    pub agrees: bool,
 }
 
 /// The outcome of [`crate::tune::tune`].
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct TuneReport {
-    /// Sample rows used.
+    /// Sample rows given.
     pub rows: usize,
+    /// Rows of the sample the exact machine was validated on.
+    pub exact_rows: usize,
     /// Validation scheme.
     pub validation: Validation,
-    /// The data-driven defaults the grid is centred on.
+    /// The data-driven defaults the grid is centred on (C in solver units, as the fit
+    /// uses it for the chosen loss).
     pub defaults: Defaults,
-    /// Validation RMSE of the defaults (full budget, D = `grid_components`).
-    pub default_error: f64,
-    /// Grid factors of gamma.
+    /// The defaults' candidate.
+    pub default: CandidateResult,
+    /// Grid factors of gamma, after any extension.
     pub gamma_factors: Vec<f64>,
-    /// Grid factors of C.
+    /// Grid factors of C, after any extension.
     pub c_factors: Vec<f64>,
-    /// Grid factors of epsilon.
+    /// Grid factors of epsilon, after any extension.
     pub epsilon_factors: Vec<f64>,
-    /// The chosen gamma, C and epsilon.
+    /// The candidate with the lowest validation RMSE.
+    pub lowest: CandidateResult,
+    /// The chosen candidate: the simplest (smallest gamma, then smallest C, then largest
+    /// epsilon) within one standard error of the lowest (the standard error of its
+    /// per-fold differences to the lowest).
     pub best: CandidateResult,
-    /// Every candidate, best first (by last rung reached, then validation error).
+    /// Every candidate, lowest validation RMSE first.
     pub candidates: Vec<CandidateResult>,
-    /// Epoch budget of each rung of successive halving.
-    pub rung_epochs: Vec<usize>,
-    /// Epochs run, summed over candidates and folds (the search's work).
-    pub epochs_total: u64,
-    /// D of the grid search.
-    pub grid_components: usize,
+    /// Candidates (each a cross-validated exact fit) the search may evaluate.
+    pub max_fits: usize,
+    /// The grid's edges moved this many times.
+    pub extensions: usize,
+    /// The lowest candidate still lies on an edge of the grid because the budget ran out.
+    pub budget_reached: bool,
     /// The search over D, in the order tried.
-    pub components: Vec<ComponentStep>,
-    /// The chosen D.
-    pub chosen_components: usize,
-    /// The winner's validation RMSE at the chosen D.
+    pub dims: Vec<DimStep>,
+    /// The chosen D: the smallest tried whose machine agrees with the exact one.
+    pub chosen_dim: usize,
+    /// The chosen candidate's validation RMSE at the chosen D.
     pub chosen_error: f64,
-    /// Wall time of the search.
+    /// Relative tolerance of the agreement with the exact machine.
+    pub dim_tol: f64,
+    /// Wall time of the search on the exact machine (defaults and grid).
+    pub grid_seconds: f64,
+    /// Wall time of the whole search.
     pub seconds: f64,
 }
 
@@ -86,81 +109,130 @@ fn scheme(v: Validation) -> String {
     }
 }
 
-fn factor(list: &[f64], grid: Option<[usize; 3]>, axis: usize) -> String {
-    match grid {
-        Some(g) => format!("×{}", trim(list[g[axis]])),
-        None => "×1".into(),
-    }
-}
-
 fn trim(v: f64) -> String {
     let s = format!("{v:.3}");
     s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
-/// The report as text: the ranked table (at most `top` rows), the defaults against the
-/// choice, and the search over D.
+/// The report as text: the ranked table (at most `top` rows), the choice by the
+/// one-standard-error rule, the defaults against it, and the search over D.
 pub fn render_tune(r: &TuneReport, top: usize) -> String {
     let mut s = String::new();
     let _ = writeln!(
         s,
-        "validation search: {} sample rows, {}, D = {}",
+        "validation search on the exact kernel machine: {} of {} sample rows, {}",
+        r.exact_rows,
         r.rows,
-        scheme(r.validation),
-        r.grid_components
+        scheme(r.validation)
     );
-    let budgets: Vec<String> = r.rung_epochs.iter().map(|e| e.to_string()).collect();
     let _ = writeln!(
         s,
-        "  {} candidates, rung budgets (epochs) {}, {} epochs in all, {:.1} s",
+        "  {} candidates (budget {}), grid edges moved {} time(s){}, {:.1} s ({:.1} s on the grid)",
         r.candidates.len(),
-        budgets.join(" → "),
-        r.epochs_total,
-        r.seconds
+        r.max_fits,
+        r.extensions,
+        if r.budget_reached {
+            "; the budget ran out with the lowest candidate on an edge"
+        } else {
+            ""
+        },
+        r.seconds,
+        r.grid_seconds
     );
     let _ = writeln!(
         s,
-        "\n{:>4}  {:>22}  {:>22}  {:>22}  {:>11}  {:>4}  {:>6}",
-        "rank", "gamma", "C", "epsilon", "val. RMSE", "rung", "epochs"
+        "\n{:>4}  {:>20}  {:>20}  {:>20}  {:>10}  {:>9}  {:>9}",
+        "rank", "gamma", "C", "epsilon", "val. RMSE", "± s.e.", "diff s.e."
     );
-    for (i, c) in r.candidates.iter().take(top).enumerate() {
-        let mark = if c.is_default { "  (defaults)" } else { "" };
+    let shown: Vec<&CandidateResult> = r.candidates.iter().take(top).collect();
+    let mut lines: Vec<&CandidateResult> = shown.clone();
+    if !shown.contains(&&r.best) {
+        lines.push(&r.best);
+    }
+    if !lines.iter().any(|c| c.is_default) {
+        lines.push(&r.default);
+    }
+    for c in lines {
+        let rank = r
+            .candidates
+            .iter()
+            .position(|x| x == c)
+            .map_or(0, |i| i + 1);
+        let mut marks = Vec::new();
+        if c == &r.best {
+            marks.push("chosen");
+        } else if c.within_one_se {
+            marks.push("within 1 s.e.");
+        }
+        if c.is_default {
+            marks.push("defaults");
+        }
+        if !c.converged {
+            marks.push("not converged");
+        }
         let _ = writeln!(
             s,
-            "{:>4}  {:>14.5e} {:>7}  {:>14.5e} {:>7}  {:>14.5e} {:>7}  {:>11.5}  {:>4}  {:>5}{}{}",
-            i + 1,
+            "{:>4}  {:>12.4e} {:>7}  {:>12.4e} {:>7}  {:>12.4e} {:>7}  {:>10.5}  {:>9.5}  {:>9.5}{}",
+            rank,
             c.gamma,
-            factor(&r.gamma_factors, c.grid, 0),
+            format!("×{}", trim(c.factors[0])),
             c.c,
-            factor(&r.c_factors, c.grid, 1),
+            format!("×{}", trim(c.factors[1])),
             c.epsilon,
-            factor(&r.epsilon_factors, c.grid, 2),
+            format!("×{}", trim(c.factors[2])),
             c.error,
-            c.rung,
-            c.epochs,
-            if c.converged { "✓" } else { " " },
-            mark
+            c.se,
+            c.se_diff,
+            if marks.is_empty() {
+                String::new()
+            } else {
+                format!("  ({})", marks.join(", "))
+            }
         );
     }
     if r.candidates.len() > top {
         let _ = writeln!(s, "   … {} more", r.candidates.len() - top);
     }
-    let gain = 100.0 * (r.default_error - r.best.error) / r.default_error;
     let _ = writeln!(
         s,
-        "\ndefaults (median heuristic; Cherkassky & Ma 2004): val. RMSE {:.5}; chosen {:.5} ({:.1}% lower)",
-        r.default_error, r.best.error, gain
+        "\nchosen: the simplest candidate (smallest gamma, then smallest C, then largest epsilon) within one standard error of the lowest ({:.5}), the one-standard-error rule of cross-validation (common practice), with the standard error of each candidate's per-fold differences to the lowest (diff s.e.)",
+        r.lowest.error
+    );
+    let gain = 100.0 * (r.default.error - r.best.error) / r.default.error;
+    let _ = writeln!(
+        s,
+        "defaults (median heuristic; Cherkassky & Ma 2004): val. RMSE {:.5} ± {:.5}; chosen {:.5} ({:.1}% lower)",
+        r.default.error, r.default.se, r.best.error, gain
     );
     let steps: Vec<String> = r
-        .components
+        .dims
         .iter()
-        .map(|st| format!("D = {}: {:.5}", st.components, st.error))
+        .map(|st| {
+            format!(
+                "D = {}: {:.5}{}",
+                st.dim,
+                st.error,
+                if st.agrees { " (agrees)" } else { "" }
+            )
+        })
         .collect();
-    let _ = writeln!(s, "features: {}", steps.join(", "));
+    let _ = writeln!(
+        s,
+        "features (agreement: within {:.1}% of the exact machine's {:.5}): {}",
+        100.0 * r.dim_tol,
+        r.best.error,
+        steps.join(", ")
+    );
+    if !r.dims.iter().any(|d| d.agrees) {
+        let _ = writeln!(
+            s,
+            "no D tried agrees with the exact machine; the largest is chosen (raise --max-dim)"
+        );
+    }
     let _ = writeln!(
         s,
         "chosen: gamma = {:.6e}, C = {:.6e}, epsilon = {:.6e}, D = {} (val. RMSE {:.5})",
-        r.best.gamma, r.best.c, r.best.epsilon, r.chosen_components, r.chosen_error
+        r.best.gamma, r.best.c, r.best.epsilon, r.chosen_dim, r.chosen_error
     );
     s
 }

@@ -1,8 +1,7 @@
-//! The sample split into validation folds, and one candidate's training on one fold:
-//! primal Newton passes for the squared loss ([`crate::solver::newton`]) or dual
-//! coordinate descent (Ho & Lin, JMLR 2012) for the linear loss, on the fold's mapped
-//! training rows, resumable epoch by epoch so that successive halving can extend a run,
-//! and startable from another run's solution (warm start along C).
+//! The sample split into validation folds, and one fit on one fold's mapped training
+//! rows: primal Newton passes for the squared loss ([`crate::solver::newton`]) or dual
+//! coordinate descent (Ho & Lin, JMLR 2012) for the linear loss (the latter is what the
+//! search over D uses for the linear loss).
 
 use std::ops::Range;
 
@@ -160,32 +159,6 @@ impl Run {
         match &self.newton {
             Some(n) => &n.w,
             None => &self.state.w,
-        }
-    }
-
-    /// Starts from `prev`'s duals and weights when they are feasible for `settings`
-    /// (always for L2; for L1 when |β| ≤ C), otherwise from zero.
-    pub fn warm(prev: &Run, fold: &FoldData, settings: &DcdSettings, seed: u64) -> Run {
-        let std = settings.in_standard_units(fold.sd);
-        let feasible = match settings.loss {
-            Loss::L2 => true,
-            Loss::L1 => prev.state.beta.iter().all(|b| b.abs() <= std.c),
-        };
-        if !feasible || !prev.weights().iter().all(|v| v.is_finite()) {
-            return Run::cold(fold, seed);
-        }
-        if settings.loss == Loss::L2 {
-            let mut run = Run::cold(fold, seed);
-            run.newton = Some(NewtonState::starting_at(prev.weights().clone()));
-            return run;
-        }
-        Run {
-            state: prev.state.clone(),
-            newton: None,
-            rng: ChaCha8Rng::seed_from_u64(seed),
-            seed,
-            epochs: 0,
-            converged: false,
         }
     }
 
