@@ -114,6 +114,10 @@ pub enum Error {
     /// error); the message names the best attempt.
     #[error("tuning failed: {0}")]
     TuneFailed(String),
+
+    /// The caller asked a running fit to stop (for example Ctrl-C in Python).
+    #[error("the run was interrupted; nothing was written")]
+    Interrupted,
 }
 
 impl Error {

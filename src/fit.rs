@@ -215,6 +215,20 @@ impl Fitter {
     /// # Panics
     /// If `x` and `y` differ in rows.
     pub fn fit(&self, x: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<Model> {
+        self.fit_observed(x, y, &Silent)
+    }
+
+    /// [`Fitter::fit`] with an observer that sees progress and may stop the run
+    /// ([`TrainObserver::should_stop`]).
+    ///
+    /// # Panics
+    /// If `x` and `y` differ in rows.
+    pub fn fit_observed(
+        &self,
+        x: ArrayView2<f64>,
+        y: ArrayView1<f64>,
+        observer: &dyn TrainObserver,
+    ) -> Result<Model> {
         assert_eq!(x.nrows(), y.len(), "fit: x and y differ in rows");
         self.validate()?;
         let t0 = Instant::now();
@@ -256,7 +270,7 @@ impl Fitter {
             skipped_by_column: Vec::new(),
             constant_columns: Vec::new(),
         };
-        self.train(facts, &source, &Silent, t0)
+        self.train(facts, &source, observer, t0)
     }
 
     /// Streams a fit over files: one survey pass (statistics, sample), then block

@@ -39,7 +39,7 @@ use std::path::PathBuf;
 
 use serde::{Deserialize, Serialize};
 
-pub use batch::{predict_covered, score_batch};
+pub use batch::{predict_covered, score_batch, score_batch_at};
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
 pub use writer::STAMP_KEY;

@@ -208,6 +208,11 @@ pub trait TrainObserver: Sync {
     fn rows_done(&self, _rows: u64) {}
     /// An epoch finished.
     fn epoch_finished(&self, _record: &EpochRecord) {}
+    /// Whether the run should stop now (asked before each epoch and after each block
+    /// handed to the solver); the run then fails with [`Error::Interrupted`].
+    fn should_stop(&self) -> bool {
+        false
+    }
 }
 
 /// An observer that ignores everything.
@@ -318,6 +323,9 @@ impl Trainer<'_> {
         let mut last: Option<(Array1<f64>, Objective)> = None;
 
         for epoch in 1..=self.settings.dcd.max_epochs {
+            if observer.should_stop() {
+                return Err(Error::Interrupted);
+            }
             let t0 = std::time::Instant::now();
             observer.pass_started(epoch, if epoch == 1 { 0 } else { cache.rows_read });
             let (out, resident_blocks) = self.epoch(
@@ -472,6 +480,9 @@ impl Trainer<'_> {
                     if group_rows >= target_rows {
                         flush(&mut group);
                         group_rows = 0;
+                        if observer.should_stop() {
+                            return Err(Error::Interrupted);
+                        }
                     }
                     Ok(())
                 })?;
@@ -504,6 +515,9 @@ impl Trainer<'_> {
                         mb.y.view(),
                         &mb.rows,
                     );
+                    if observer.should_stop() {
+                        return Err(Error::Interrupted);
+                    }
                     Ok(())
                 })?;
                 let out = match state.step(acc)? {
