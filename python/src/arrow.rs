@@ -6,7 +6,7 @@
 use std::ffi::CStr;
 
 use arrow_array::ffi::{from_ffi, FFI_ArrowArray, FFI_ArrowSchema};
-use arrow_array::ffi_stream::{RecordBatchStreamReader, FFI_ArrowArrayStream};
+use arrow_array::ffi_stream::{FFI_ArrowArrayStream, RecordBatchStreamReader};
 use arrow_array::{Array, RecordBatch, RecordBatchIterator, RecordBatchReader, StructArray};
 use arrow_schema::{ArrowError, SchemaRef};
 use pyo3::prelude::*;

@@ -4,8 +4,8 @@
 use arrow_array::RecordBatchReader;
 use kernlake::data::{discover, resolve_columns, ResolvedColumns, TableReader};
 use kernlake::fit::Fitter;
-use numpy::{PyArrayMethods, PyUntypedArrayMethods};
 use numpy::{PyArray1, PyArray2};
+use numpy::{PyArrayMethods, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use pyo3::types::PyDict;
 
@@ -43,9 +43,8 @@ pub fn fit_files(
             .with_csv(src.csv);
         let observer = FitObserver::new(progress, known_rows, stop);
         let survey_bar = observer.rows_bar("survey");
-        let model = Fitter::from_options(opts).fit_files(&reader, &observer, &|rows| {
-            survey_bar.set_position(rows)
-        })?;
+        let model = Fitter::from_options(opts)
+            .fit_files(&reader, &observer, &|rows| survey_bar.set_position(rows))?;
         survey_bar.finish_and_clear();
         Ok(model)
     })?;
@@ -63,7 +62,10 @@ fn float_array<'py>(
     if !obj.is_instance(&np.getattr("ndarray")?)? {
         return Err(input(
             py,
-            format!("{what} must be a numpy array, got {}", obj.get_type().name()?),
+            format!(
+                "{what} must be a numpy array, got {}",
+                obj.get_type().name()?
+            ),
         ));
     }
     let dtype: String = obj.getattr("dtype")?.str()?.extract()?;
@@ -139,8 +141,12 @@ pub fn fit_arrays(
             ));
         }
     }
-    let xr = xa.try_readonly().map_err(|e| input(py, format!("X: {e}")))?;
-    let yr = ya.try_readonly().map_err(|e| input(py, format!("y: {e}")))?;
+    let xr = xa
+        .try_readonly()
+        .map_err(|e| input(py, format!("X: {e}")))?;
+    let yr = ya
+        .try_readonly()
+        .map_err(|e| input(py, format!("y: {e}")))?;
     let (xv, yv) = (xr.as_array(), yr.as_array());
     let rows = xv.nrows() as u64;
     let mut model = interruptible(py, move |stop| {

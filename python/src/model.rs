@@ -79,7 +79,11 @@ fn score_options(
 
 /// Scores every batch of `batches` in slices of `opts.batch_rows` rows (row numbers in
 /// messages count from the table's first row) on a pool of `opts.threads`.
-fn score_all(model: &Model, batches: Batches, opts: &ScoreOptions) -> kernlake::Result<Vec<RecordBatch>> {
+fn score_all(
+    model: &Model,
+    batches: Batches,
+    opts: &ScoreOptions,
+) -> kernlake::Result<Vec<RecordBatch>> {
     let pool = rayon_pool(opts.threads)?;
     let mut out = Vec::new();
     let mut first = 0u64;
@@ -104,7 +108,9 @@ fn rayon_pool(threads: usize) -> kernlake::Result<rayon::ThreadPool> {
     rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()
-        .map_err(|e| kernlake::Error::invalid("threads", format!("could not start a thread pool ({e})")))
+        .map_err(|e| {
+            kernlake::Error::invalid("threads", format!("could not start a thread pool ({e})"))
+        })
 }
 
 /// The output schema for an input schema (the contract check, on an empty batch).
@@ -170,7 +176,9 @@ impl PyModel {
                 ),
             ));
         }
-        let xr = xa.try_readonly().map_err(|e| input(py, format!("X: {e}")))?;
+        let xr = xa
+            .try_readonly()
+            .map_err(|e| input(py, format!("X: {e}")))?;
         let xv = xr.as_array();
         let model = &self.inner;
         let pred = released(py, || {
@@ -335,7 +343,6 @@ impl BatchScorer {
         Ok(out.map(|(schema, b)| ArrowStream::new(schema, vec![b])))
     }
 }
-
 
 /// Benchmark hook: seconds the library takes to score `table` (already imported, so no
 /// Python runs between batches), with `score`'s default options.

@@ -58,8 +58,7 @@ pub const MAPS: &[&str] = &["fourier", "orthogonal", "nystrom"];
 pub fn bytes(py: Python<'_>, what: &str, v: &Bound<'_, PyAny>) -> PyResult<usize> {
     if let Ok(s) = v.cast::<PyString>() {
         let s: String = s.extract()?;
-        return kernlake_bytes(&s)
-            .map_err(|e| input(py, format!("invalid value for {what}: {e}")));
+        return kernlake_bytes(&s).map_err(|e| input(py, format!("invalid value for {what}: {e}")));
     }
     v.extract::<usize>().map_err(|_| {
         input(

@@ -73,12 +73,21 @@ impl TrainObserver for FitObserver<'_> {
         *self.bar.lock().expect("the bar's lock is never poisoned") = Some(bar);
     }
     fn rows_done(&self, rows: u64) {
-        if let Some(b) = self.bar.lock().expect("the bar's lock is never poisoned").as_ref() {
+        if let Some(b) = self
+            .bar
+            .lock()
+            .expect("the bar's lock is never poisoned")
+            .as_ref()
+        {
             b.inc(rows);
         }
     }
     fn epoch_finished(&self, r: &EpochRecord) {
-        let bar = self.bar.lock().expect("the bar's lock is never poisoned").take();
+        let bar = self
+            .bar
+            .lock()
+            .expect("the bar's lock is never poisoned")
+            .take();
         if let Some(b) = bar {
             b.finish_and_clear();
         }

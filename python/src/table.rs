@@ -34,9 +34,12 @@ fn numeric(dt: &DataType) -> bool {
 pub fn choose(schema: &Schema, sel: &ColumnSelection) -> Result<Vec<String>> {
     let target = sel.target.as_deref();
     let check = |name: &str, role: &str| -> Result<()> {
-        let f = schema
-            .field_with_name(name)
-            .map_err(|_| column_error(name, format!("no such column, but it was given as the {role}")))?;
+        let f = schema.field_with_name(name).map_err(|_| {
+            column_error(
+                name,
+                format!("no such column, but it was given as the {role}"),
+            )
+        })?;
         if !numeric(f.data_type()) {
             return Err(column_error(
                 name,
@@ -129,10 +132,7 @@ pub fn arrays(
 }
 
 /// The named columns of `batch` as `Float64` arrays.
-fn float_columns(
-    batch: &RecordBatch,
-    names: &[&str],
-) -> Result<Vec<arrow_array::Float64Array>> {
+fn float_columns(batch: &RecordBatch, names: &[&str]) -> Result<Vec<arrow_array::Float64Array>> {
     names
         .iter()
         .map(|name| {

@@ -4,7 +4,9 @@
 use kernlake::audit::{
     audit_model, audit_with_progress, plot::render_svg, AuditOptions, ModelAuditOptions,
 };
-use kernlake::data::{discover, resolve_columns, survey, ColumnSelection, Survey, SurveySettings, TableReader};
+use kernlake::data::{
+    discover, resolve_columns, survey, ColumnSelection, Survey, SurveySettings, TableReader,
+};
 use kernlake::features::{FourierVariant, Landmarks, MapKind};
 use kernlake::kernel::KernelKind;
 use kernlake::solver::dcd::Loss;
@@ -47,12 +49,13 @@ fn answer<'py>(
 }
 
 fn encode(v: &impl serde::Serialize) -> kernlake::Result<serde_json::Value> {
-    serde_json::to_value(v).map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))
+    serde_json::to_value(v)
+        .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))
 }
 
 const AUDIT_KEYS: &[&str] = &[
-    "kernel", "gamma", "c", "epsilon", "maps", "dim", "phase", "agree", "split", "cache",
-    "sample", "seed", "threads",
+    "kernel", "gamma", "c", "epsilon", "maps", "dim", "phase", "agree", "split", "cache", "sample",
+    "seed", "threads",
 ];
 
 /// `kernlake audit` on files: exact machine against approximate ones (or a fitted model).
@@ -100,7 +103,10 @@ pub fn audit_files<'py>(
     o.threads = get(settings, "threads")?.unwrap_or(o.threads);
     let sample: usize = get(settings, "sample")?.unwrap_or(10_000);
     if sample < 2 {
-        return Err(crate::errors::input(py, "invalid value for sample: must be at least 2 rows"));
+        return Err(crate::errors::input(
+            py,
+            "invalid value for sample: must be at least 2 rows",
+        ));
     }
     let model = model.map(|m| std::sync::Arc::clone(m.model()));
     let target = match (target, &model) {
@@ -108,9 +114,21 @@ pub fn audit_files<'py>(
         (None, Some(m)) => m.columns.target.clone().ok_or_else(|| {
             crate::errors::input(py, "the model names no target column; give target")
         })?,
-        (None, None) => return Err(crate::errors::input(py, "give the target column to predict")),
+        (None, None) => {
+            return Err(crate::errors::input(
+                py,
+                "give the target column to predict",
+            ))
+        }
     };
-    let mut src = source_settings(py, Some(target.clone()), features, exclude, missing, delimiter)?;
+    let mut src = source_settings(
+        py,
+        Some(target.clone()),
+        features,
+        exclude,
+        missing,
+        delimiter,
+    )?;
     if let Some(m) = &model {
         src.selection = ColumnSelection {
             target: Some(target),
@@ -162,9 +180,28 @@ pub fn audit_files<'py>(
 }
 
 const TUNE_KEYS: &[&str] = &[
-    "sample", "folds", "holdout", "gamma_factors", "c_factors", "epsilon_factors", "halving",
-    "eta", "warm_start", "epochs", "sweeps", "tol", "dim", "max_dim", "dim_tol", "kernel",
-    "map", "phase", "kmeans", "loss", "seed", "threads",
+    "sample",
+    "folds",
+    "holdout",
+    "gamma_factors",
+    "c_factors",
+    "epsilon_factors",
+    "halving",
+    "eta",
+    "warm_start",
+    "epochs",
+    "sweeps",
+    "tol",
+    "dim",
+    "max_dim",
+    "dim_tol",
+    "kernel",
+    "map",
+    "phase",
+    "kmeans",
+    "loss",
+    "seed",
+    "threads",
 ];
 
 /// `kernlake tune` on files: search gamma, C, epsilon and D by validation on a sample.

@@ -55,12 +55,12 @@ def test_properties_are_plain_values(small_model, cli):
 
 def test_audit_returns_the_clis_json_record(cli, ccpp_lake, tmp_path):
     out = tmp_path / "audit.json"
-    args = ["-D", "64,128", "--maps", "fourier", "--sample", "600", "--seed", "4",
+    args = ["-D", "64,128", "--maps", "fourier", "--sample", "1000", "--seed", "4",
             "--threads", "1", "--target", "PE"]
     cli("audit", ccpp_lake, *args, "--json", out)
     expected = json.loads(out.read_text())
     got, svg = kernlake.audit(str(ccpp_lake), "PE", dim=[64, 128], maps=["fourier"],
-                              sample=600, seed=4, threads=1, plot=True)
+                              sample=1000, seed=4, threads=1, plot=True)
     assert set(got) == set(expected)
     assert svg.lstrip().startswith("<svg") or "<svg" in svg[:200]
     _same_but_times(got, expected)

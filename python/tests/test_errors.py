@@ -153,8 +153,16 @@ def test_bad_settings_are_refused_before_any_data_is_read(ccpp_lake):
         kernlake.fit(str(ccpp_lake), "PE", memory="lots")
     with pytest.raises(kernlake.InputError, match="missing"):
         kernlake.fit(str(ccpp_lake), "PE", missing="maybe")
-    with pytest.raises(kernlake.IOError):
+    with pytest.raises(kernlake.InputError, match="does not exist"):
         kernlake.fit(str(ccpp_lake / "absent"), "PE")
+
+
+def test_io_failures(small_model, tmp_path):
+    model, _ = small_model
+    with pytest.raises(kernlake.IOError) as e:
+        model.save(tmp_path / "no" / "such" / "folder" / "m.klm")
+    assert "No such file" in _one_sentence(e.value)
+    assert isinstance(e.value, OSError)
 
 
 def test_the_process_survives_and_still_works(small_model, ccpp_arrays):

@@ -36,7 +36,7 @@ def test_every_table_kind_gives_the_numpy_predictions(small_model, ccpp_table, c
         "polars.DataFrame": lambda: pl.from_arrow(ccpp_table),
         "pandas.DataFrame": lambda: pandas_df,
         "duckdb relation": lambda: duckdb.from_arrow(ccpp_table),
-        "duckdb query": lambda: con.sql("SELECT AT, V, AP, RH FROM ccpp"),
+        "duckdb query": lambda: con.sql('SELECT "AT", "V", "AP", "RH" FROM ccpp'),
     }
     for kind, make in kinds.items():
         got = model.predict(make())
