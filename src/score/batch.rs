@@ -386,8 +386,23 @@ pub(crate) fn score_planned(
 /// [`Error::Column`] when the schema breaks the contract (naming the column);
 /// [`Error::Cell`] for a missing input under [`MissingRows::Fail`]; an invalid option.
 pub fn score_batch(model: &Model, batch: &RecordBatch, opts: &ScoreOptions) -> Result<RecordBatch> {
+    score_batch_at(model, batch, opts, 0)
+}
+
+/// [`score_batch`] for a batch that is one slice of a longer table: rows are numbered
+/// from `first_row` (zero-based) in messages, so a missing input under
+/// [`MissingRows::Fail`] names its row in the whole table.
+///
+/// # Errors
+/// Those of [`score_batch`].
+pub fn score_batch_at(
+    model: &Model,
+    batch: &RecordBatch,
+    opts: &ScoreOptions,
+    first_row: u64,
+) -> Result<RecordBatch> {
     opts.validate()?;
     let path = Path::new("<record batch>");
     let plan = Plan::new(model, batch.schema().as_ref(), &[], opts, path, false)?;
-    Ok(score_planned(model, &plan, batch, opts, path, 0)?.batch)
+    Ok(score_planned(model, &plan, batch, opts, path, first_row)?.batch)
 }

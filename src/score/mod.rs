@@ -43,7 +43,7 @@ use std::path::PathBuf;
 
 use serde::{Deserialize, Serialize};
 
-pub use batch::score_batch;
+pub use batch::{score_batch, score_batch_at};
 pub use covered::predict_covered;
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
