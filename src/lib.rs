@@ -90,8 +90,7 @@ pub use error::{Error, Result};
 // The entry points: what a program that fits, scores, audits or tunes needs.
 pub use audit::{audit, audit_model, AuditOptions, AuditReport};
 pub use data::{
-    discover, resolve_columns, ColumnSelection, CsvOptions, MissingPolicy, SourceFile,
-    TableReader,
+    discover, resolve_columns, ColumnSelection, CsvOptions, MissingPolicy, SourceFile, TableReader,
 };
 pub use features::{FourierVariant, Landmarks, MapKind, MapSpec};
 pub use fit::{FitOptions, Fitter};

@@ -12,7 +12,7 @@ use crate::data::ResolvedColumns;
 use crate::error::{Error, Result};
 use crate::features::{map_from_parts, FeatureMap, MapParts, MapSpec};
 use crate::kernel::Kernel;
-use crate::modelfile::ModelFile;
+use crate::modelfile::{brief, ModelFile};
 use crate::report::TrainingReport;
 use crate::scale::Standardizer;
 use crate::solver::dcd::DcdSettings;
@@ -295,18 +295,6 @@ impl Model {
     pub fn load(path: &Path) -> Result<Model> {
         let file = ModelFile::load(path)?;
         Model::from_model_file(&file, path)
-    }
-}
-
-/// The first line of an error's text, at most 80 characters: a cause for a one-sentence
-/// message, never a decoder trace.
-pub(crate) fn brief(e: &dyn std::fmt::Display) -> String {
-    let text = e.to_string();
-    let line = text.lines().next().unwrap_or("").trim();
-    if line.chars().count() <= 80 {
-        line.to_string()
-    } else {
-        format!("{}…", line.chars().take(80).collect::<String>())
     }
 }
 

@@ -85,4 +85,3 @@ pub(crate) fn physical_memory() -> Option<u64> {
 pub(crate) fn gib(bytes: u64) -> String {
     format!("{:.1} GiB", bytes as f64 / (1u64 << 30) as f64)
 }
-

@@ -165,7 +165,10 @@ fn settings_are_checked_before_any_file_is_opened() {
         (&["--sweeps", "0"], "sweeps"),
         (&["--hessian-rows", "0"], "hessian rows"),
         (&["-D", "1001"], "even"),
-        (&["--map", "orthogonal", "--kernel", "laplacian"], "Gaussian"),
+        (
+            &["--map", "orthogonal", "--kernel", "laplacian"],
+            "Gaussian",
+        ),
         (&["--block-rows", "0"], "block rows"),
         (&["-D", "1000000"], "memory"),
         (&["--threads", "100000"], "threads"),
@@ -179,7 +182,10 @@ fn settings_are_checked_before_any_file_is_opened() {
         let (code, err) = kernlake(&args);
         assert_eq!(code, 2, "{flags:?}: {err}");
         assert!(err.contains(word), "{flags:?} should name '{word}': {err}");
-        assert!(!err.contains("nonexistent"), "{flags:?} read data first: {err}");
+        assert!(
+            !err.contains("nonexistent"),
+            "{flags:?} read data first: {err}"
+        );
     }
 }
 
@@ -229,10 +235,16 @@ fn the_defaults_are_written_once() {
         ("--epochs", defaults::EPOCHS.to_string()),
         ("--sample", defaults::SAMPLE.to_string()),
     ] {
-        let at = help.find(&format!("{flag} ")).unwrap_or_else(|| panic!("{flag} in help"));
+        let at = help
+            .find(&format!("{flag} "))
+            .unwrap_or_else(|| panic!("{flag} in help"));
         let rest = &help[at..];
         let shown = rest.find("[default: ").map(|i| &rest[i + 10..]).unwrap();
-        assert!(shown.starts_with(&value), "{flag}: help shows {}", &shown[..10]);
+        assert!(
+            shown.starts_with(&value),
+            "{flag}: help shows {}",
+            &shown[..10]
+        );
     }
 }
 

@@ -80,7 +80,12 @@ fn edges(depth: usize) -> BTreeMap<String, BTreeSet<String>> {
     rust_files(&src, &mut files);
     let texts: BTreeMap<String, String> = files
         .iter()
-        .map(|f| (module_of(&src, f), code(&std::fs::read_to_string(f).unwrap())))
+        .map(|f| {
+            (
+                module_of(&src, f),
+                code(&std::fs::read_to_string(f).unwrap()),
+            )
+        })
         .collect();
     let deepest = |segs: &[String]| -> Option<String> {
         (1..=segs.len())
@@ -109,7 +114,8 @@ fn edges(depth: usize) -> BTreeMap<String, BTreeSet<String>> {
         }
         for t in targets {
             let to = truncate(&t, depth);
-            let nested = to.starts_with(&format!("{from}::")) || from.starts_with(&format!("{to}::"));
+            let nested =
+                to.starts_with(&format!("{from}::")) || from.starts_with(&format!("{to}::"));
             if !to.is_empty() && to != from && !nested {
                 g.entry(from.clone()).or_default().insert(to);
             }

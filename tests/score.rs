@@ -717,12 +717,13 @@ fn csv_folder_scores_like_the_same_rows_in_parquet() {
         ..o.clone()
     };
     match score_files(&model, &text, &comma, &Quiet) {
-        Err(Error::Column { path, column, .. }) => {
-            // With ',' the header is one column named "id;tag;AT;…": AT is missing.
+        Err(Error::File { path, message }) => {
+            // With ',' the header is one column named "id;tag;AT;…": the file is named
+            // and the delimiter suggested.
             assert!(path.ends_with("site=1/part-0.csv"), "{path:?}");
-            assert_eq!(column, "AT");
+            assert!(message.contains("--delimiter ';'"), "{message}");
         }
-        other => panic!("expected a column error, got {other:?}"),
+        other => panic!("expected a file error suggesting the delimiter, got {other:?}"),
     }
 
     // The command line: --delimiter, a CSV folder in, Parquet out.
@@ -781,7 +782,13 @@ fn csv_contract_failures_name_file_and_column() {
     lines[31] = fields.join(",");
     std::fs::write(&bad, lines.join("\n") + "\n").unwrap();
     let file = SourceFile::open(bad).unwrap();
-    match score_files(&model, &[file], &opts(&out, 1, 16), &Quiet) {
+    // A text cell in a numeric column is a missing value (common practice: one bad cell
+    // does not drop a column); under the fail policy it is named by row and column.
+    let fail = ScoreOptions {
+        missing: MissingRows::Fail,
+        ..opts(&out, 1, 16)
+    };
+    match score_files(&model, &[file], &fail, &Quiet) {
         Err(Error::Cell { row, column, .. }) => assert_eq!((row, column.as_str()), (31, "V")),
         other => panic!("expected a cell error, got {other:?}"),
     }

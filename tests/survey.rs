@@ -145,7 +145,10 @@ fn sample_is_deterministic_and_independent_of_split_and_batch_size() {
     // The sample comes in the order of its keys, so any prefix is a uniform sample
     // (bottom-k sketches: Cohen & Kaplan, PODC 2007).
     let key = |id: u64| (sample_key(42, id), id);
-    assert!(base.sample_row_ids.windows(2).all(|w| key(w[0]) < key(w[1])));
+    assert!(base
+        .sample_row_ids
+        .windows(2)
+        .all(|w| key(w[0]) < key(w[1])));
     for (input, batch, threads) in [
         (&ten, 333, 1),
         (&three, 65_536, 2),

@@ -1,9 +1,7 @@
-//! Keyword arguments from Python into the library's settings. The defaults of a fit are
-//! the command line's (read from its declarations, never written here a second time);
-//! those of audit and tune are the library's, which the command line shares.
+//! Keyword arguments from Python into the library's settings. The defaults are the
+//! library's (`kernlake::settings::defaults`, written once), which the command line
+//! shares.
 
-use clap::Parser;
-use kernlake::cli::{Cli, Command};
 use kernlake::data::{ColumnSelection, CsvOptions, MissingPolicy};
 use kernlake::features::{FourierVariant, Landmarks, MapKind};
 use kernlake::fit::FitOptions;
@@ -16,17 +14,10 @@ use serde::de::DeserializeOwned;
 
 use crate::errors::input;
 
-/// `kernlake fit`'s options with no setting typed: the command line's defaults.
+/// `kernlake fit`'s options with no setting typed: the library's one settings model,
+/// whose defaults the command line's help shows too.
 pub fn fit_defaults_options() -> FitOptions {
-    let cli = Cli::try_parse_from(["kernlake", "fit", "-", "--target", "-"])
-        .expect("kernlake fit parses with a source and a target");
-    match cli.command {
-        Command::Fit(f) => f
-            .model
-            .options()
-            .expect("the command line's defaults are valid"),
-        _ => unreachable!("the command parsed above is a fit"),
-    }
+    FitOptions::default()
 }
 
 /// Parses one of the library's named choices (kernel, map, solver, loss) by its name.

@@ -1,8 +1,8 @@
 //! `kernlake inspect`: a model's contract, parameters and training report.
 
 use crate::error::{Error, Result};
-use crate::model::Model;
 use crate::inspect::render_model;
+use crate::model::Model;
 
 use super::args::InspectArgs;
 

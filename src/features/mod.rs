@@ -94,7 +94,10 @@ impl MapSpec {
     /// and the Nyström eigenvalue threshold in [0, 1).
     pub fn validate(&self, kernel: KernelKind) -> Result<()> {
         if self.components == 0 {
-            return Err(Error::invalid("dim", "the feature dimension D must be at least 1"));
+            return Err(Error::invalid(
+                "dim",
+                "the feature dimension D must be at least 1",
+            ));
         }
         let fourier = matches!(self.kind, MapKind::Fourier | MapKind::Orthogonal);
         if fourier && self.variant == FourierVariant::SinCos && self.components % 2 == 1 {

@@ -15,8 +15,7 @@ use crate::model::Model;
 use crate::report::{Choice, TrainingReport};
 use crate::settings::thread_pool;
 use crate::solver::blocks::{
-    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings,
-    Trainer,
+    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings, Trainer,
 };
 use crate::solver::dcd::{DcdSettings, Loss};
 
@@ -324,4 +323,3 @@ impl Fitter {
         Ok(model)
     }
 }
-

@@ -70,7 +70,9 @@ pub struct FitOptions {
 /// feature, at least 16,384. The sampled Gram matrix's error shrinks like √(D/m), so the
 /// sample must grow with D; its cost per pass is m·D² multiply-adds.
 pub fn hessian_rows_for(features: usize) -> usize {
-    32usize.saturating_mul(features.saturating_add(1)).max(16_384)
+    32usize
+        .saturating_mul(features.saturating_add(1))
+        .max(16_384)
 }
 
 impl Default for FitOptions {

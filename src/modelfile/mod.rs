@@ -36,7 +36,6 @@ use ndarray::Array2;
 
 use crate::atomic::write_atomic;
 use crate::error::{Error, Result};
-use crate::model::brief;
 
 mod framing;
 use framing::check_framing;
@@ -337,4 +336,16 @@ fn arrays_from_batch(batch: &RecordBatch) -> Option<Vec<(String, Array2<f64>)>> 
         out.push((names.value(i).to_string(), array));
     }
     Some(out)
+}
+
+/// The first line of an error's text, at most 80 characters: a cause for a one-sentence
+/// message, never a decoder trace.
+pub(crate) fn brief(e: &dyn std::fmt::Display) -> String {
+    let text = e.to_string();
+    let line = text.lines().next().unwrap_or("").trim();
+    if line.chars().count() <= 80 {
+        line.to_string()
+    } else {
+        format!("{}…", line.chars().take(80).collect::<String>())
+    }
 }

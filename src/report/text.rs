@@ -2,7 +2,6 @@
 
 use std::fmt::Write;
 
-
 use super::TrainingReport;
 
 pub(crate) fn line(out: &mut String, key: &str, value: impl std::fmt::Display) {

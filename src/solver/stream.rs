@@ -24,8 +24,8 @@ use crate::metrics::{Metrics, MetricsAccumulator};
 use crate::scale::Standardizer;
 
 use super::cache::{HoldoutRows, PassCache};
-use super::rows::{piece_rows, MappedBlock, TrainRows};
 pub(crate) use super::rows::BlockRows;
+use super::rows::{piece_rows, MappedBlock, TrainRows};
 pub(crate) use super::source::row_unit;
 use super::source::{is_holdout, BlockSource, Flow};
 

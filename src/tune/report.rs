@@ -6,8 +6,8 @@ use std::fmt::Write;
 
 use serde::{Deserialize, Serialize};
 
-use crate::heuristics::Defaults;
 use super::options::Validation;
+use crate::heuristics::Defaults;
 
 /// One candidate's outcome on the exact kernel machine.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]

@@ -7,10 +7,10 @@ use std::collections::HashMap;
 use crate::error::{Error, Result};
 use crate::kernel::Kernel;
 
-use super::defaults::Defaults;
 use super::grid::{key, score_gamma, Axis3, ExactFold, Scored, Table};
 use super::options::TuneOptions;
 use super::report::CandidateResult;
+use crate::heuristics::Defaults;
 
 /// What the grid search found.
 pub(crate) struct Search {

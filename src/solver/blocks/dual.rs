@@ -131,7 +131,10 @@ impl Group<'_> {
             return 0;
         }
         // The dual solver's stream is not lazy, so these borrow the mapped rows.
-        let mapped: Vec<_> = group.iter().map(|mb| mb.mapped(streamer.map, streamer.pool)).collect();
+        let mapped: Vec<_> = group
+            .iter()
+            .map(|mb| mb.mapped(streamer.map, streamer.pool))
+            .collect();
         for (mb, z) in group.iter().zip(&mapped) {
             *loss_start += loss_sum(w_start.view(), z.view(), mb.y.view(), dcd);
         }

@@ -10,7 +10,7 @@ use super::strategy::{PassContext, Strategy};
 use super::{objective, EpochRecord, Method, StopReason, TrainObserver, TrainOutcome, Trainer};
 use crate::error::Result;
 use crate::solver::cache::{PassCache, HOLDOUT_KEPT};
-use crate::solver::dcd::{DcdSettings, Objective};
+use crate::solver::dcd::Objective;
 use crate::solver::source::BlockSource;
 use crate::solver::stream::Streamer;
 
@@ -172,7 +172,12 @@ fn evaluate(
     ctx.streamer
         .pass(ctx.source, &ctx.all_units(), cache, &|_| {}, &mut |mb| {
             ctx.check_stop()?;
-            loss += super::loss_sum(w, mb.mapped(streamer.map, streamer.pool).view(), mb.y.view(), ctx.dcd);
+            loss += super::loss_sum(
+                w,
+                mb.mapped(streamer.map, streamer.pool).view(),
+                mb.y.view(),
+                ctx.dcd,
+            );
             Ok(())
         })?;
     let dual = strategy.dual_bound(ctx.dcd);

@@ -38,8 +38,8 @@ mod epochs;
 mod newton;
 mod strategy;
 
-pub use crate::solver::source::{is_holdout, ArraySource, BlockSource, Flow, TargetScale};
 pub use crate::solver::rows::piece_rows;
+pub use crate::solver::source::{is_holdout, ArraySource, BlockSource, Flow, TargetScale};
 
 /// Which solver trains the linear model.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
@@ -269,4 +269,3 @@ pub fn loss_sum(
     }
     total
 }
-

@@ -61,4 +61,3 @@ pub(super) trait Strategy {
     /// Share of the training rows that are support vectors.
     fn support_share(&self, rows_trained: u64) -> f64;
 }
-
