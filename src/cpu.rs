@@ -5,8 +5,8 @@
 //! A [`Cpu`] is a capability: its fields are private and the only ways to obtain one are
 //! [`Cpu::detect`] (run-time detection, cached) and [`Cpu::capped`] on one already held,
 //! which can only lower its level. So holding a `Cpu` of some [`Level`] proves that the
-//! CPU runs that level, and [`Cpu::run`] can call the matching build of a [`Kernel`]
-//! safely. A kernel states its builds as the methods of [`Kernel`]; a build for a level
+//! CPU runs that level, and `Cpu::run` can call the matching build of a `Kernel`
+//! safely. A kernel states its builds as the methods of `Kernel`; a build for a level
 //! it does not provide falls back to the level below, down to the generic build.
 
 use std::sync::atomic::{AtomicU8, Ordering};

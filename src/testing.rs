@@ -5,7 +5,7 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
 /// Friedman #1 (published: Friedman, Annals of Statistics 19 (1991), eq. for "#1"):
-/// x ~ U[0,1]^10, f = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5, y = f + N(0,1).
+/// x ~ U(0, 1)^10, f = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5, y = f + N(0,1).
 /// All inputs are drawn first, then the noise, from one ChaCha8 stream seeded by `seed`.
 /// Returns (x, noisy y, noise-free f).
 pub fn friedman1(n: usize, seed: u64) -> (Array2<f64>, Array1<f64>, Array1<f64>) {

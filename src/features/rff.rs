@@ -18,7 +18,7 @@
 //! `z ~ N(0, I)`, `u ~ χ²(2ν)`.
 //!
 //! The transform works on blocks of a row chunk times a panel of output columns (see
-//! [`super::panel_layout`]): the matrix product of the chunk with that panel of W is
+//! `panel_layout`): the matrix product of the chunk with that panel of W is
 //! written straight into the output block, then one in-place pass of the vectorised
 //! kernel of [`super::fastcos`] runs over the block while it is still in the level-2
 //! cache, adding the phase and applying the scale `√(2/D)` as it goes. The cos + phase

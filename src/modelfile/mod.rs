@@ -8,7 +8,7 @@
 //! | `name` | Utf8 | the array's name |
 //! | `rows` | UInt64 | number of rows |
 //! | `cols` | UInt64 | number of columns |
-//! | `values` | List<Float64> | the values, row-major |
+//! | `values` | `List<Float64>` | the values, row-major |
 //!
 //! The schema's metadata holds three keys:
 //! - `kernlake.format`: the format version as a decimal integer ([`FORMAT_VERSION`]);

@@ -1,10 +1,10 @@
 //! Out-of-core training of linear epsilon-SVR on mapped features, with two solvers that
-//! share the streaming pass of [`crate::solver::stream`]:
+//! share the streaming pass of `crate::solver::stream`:
 //!
 //! * **dual** — block minimization (Yu, Hsieh, Chang & Lin, "Large linear classification
 //!   when data cannot fit in memory", KDD 2010) with dual coordinate descent on each block
 //!   (Ho & Lin, JMLR 2012). One dual variable per row (8 bytes a row) lives in
-//!   [`DcdState`] for the whole run; units are visited in a seeded random order each
+//!   `DcdState` for the whole run; units are visited in a seeded random order each
 //!   epoch, and blocks (or whole small files) are gathered into sub-problems of
 //!   `block_rows` rows that are swept several times before the next arrives. Works for
 //!   both losses.
