@@ -375,10 +375,9 @@ def tune(
     gamma_factors: Sequence[float] = (0.25, 0.5, 1.0, 2.0, 4.0),
     c_factors: Sequence[float] = (0.1, 0.316, 1.0, 3.16, 10.0),
     epsilon_factors: Sequence[float] = (0.25, 1.0, 4.0),
-    halving: bool = True,
-    eta: int = 3,
-    warm_start: bool = True,
-    epochs: int = 27,
+    exact_rows: int = 1000,
+    max_fits: int = 150,
+    epochs: int = 50,
     sweeps: int = 10,
     tol: float = 1e-3,
     dim: int = 256,
@@ -401,14 +400,14 @@ def tune(
     Returns the record ``kernlake tune --json`` writes, as a dict; with ``heatmap=True``
     a pair ``(record, svg_text)`` with the heat map of validation error over gamma x C.
     Fit with the chosen values: ``kernlake.fit(source, target, gamma=r["best"]["gamma"],
-    c=r["best"]["c"], epsilon=r["best"]["epsilon"], dim=r["chosen_components"])``.
+    c=r["best"]["c"], epsilon=r["best"]["epsilon"], dim=r["chosen_dim"])``.
     """
     if not _is_paths(source):
         raise InputError("tune reads files: give a path, folder or glob pattern")
     settings = dict(
         sample=sample, folds=folds, holdout=holdout, gamma_factors=list(gamma_factors),
         c_factors=list(c_factors), epsilon_factors=list(epsilon_factors),
-        halving=halving, eta=eta, warm_start=warm_start, epochs=epochs, sweeps=sweeps,
+        exact_rows=exact_rows, max_fits=max_fits, epochs=epochs, sweeps=sweeps,
         tol=tol, dim=dim, max_dim=max_dim, dim_tol=dim_tol, kernel=kernel, map=map,
         phase=phase, kmeans=kmeans, loss=loss, seed=seed, threads=threads,
     )

@@ -280,7 +280,7 @@ impl PyModel {
 
     /// The model as `kernlake inspect` prints it.
     fn describe(&self) -> String {
-        kernlake::report::render_model(&self.inner)
+        kernlake::inspect::render_model(&self.inner)
     }
 
     fn __repr__(&self) -> String {

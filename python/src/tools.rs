@@ -88,7 +88,7 @@ pub fn audit_files<'py>(
     o.gamma = get(settings, "gamma")?.or(o.gamma);
     o.c = get(settings, "c")?.or(o.c);
     o.epsilon = get(settings, "epsilon")?.or(o.epsilon);
-    o.components = get(settings, "dim")?.unwrap_or(o.components);
+    o.dims = get(settings, "dim")?.unwrap_or(o.dims);
     if get::<bool>(settings, "phase")?.unwrap_or(false) {
         o.variant = FourierVariant::CosPhase;
     }
@@ -186,9 +186,8 @@ const TUNE_KEYS: &[&str] = &[
     "gamma_factors",
     "c_factors",
     "epsilon_factors",
-    "halving",
-    "eta",
-    "warm_start",
+    "exact_rows",
+    "max_fits",
     "epochs",
     "sweeps",
     "tol",
@@ -243,16 +242,15 @@ pub fn tune_files<'py>(
         Some(h) => Validation::Holdout(h),
         None => Validation::KFold(get(settings, "folds")?.unwrap_or(3)),
     };
-    o.halving = get(settings, "halving")?.unwrap_or(o.halving);
-    o.eta = get(settings, "eta")?.unwrap_or(o.eta);
-    o.warm_start = get(settings, "warm_start")?.unwrap_or(o.warm_start);
+    o.exact_rows = get(settings, "exact_rows")?.unwrap_or(o.exact_rows);
+    o.max_fits = get(settings, "max_fits")?.unwrap_or(o.max_fits);
     o.max_epochs = get(settings, "epochs")?.unwrap_or(o.max_epochs);
     o.sweeps_per_epoch = get(settings, "sweeps")?.unwrap_or(o.sweeps_per_epoch);
     o.tol = get(settings, "tol")?.unwrap_or(o.tol);
-    o.components = get(settings, "dim")?.unwrap_or(o.components);
-    o.map.components = o.components;
-    o.max_components = get(settings, "max_dim")?.unwrap_or(o.max_components);
-    o.components_tol = get(settings, "dim_tol")?.unwrap_or(o.components_tol);
+    o.dim = get(settings, "dim")?.unwrap_or(o.dim);
+    o.map.components = o.dim;
+    o.max_dim = get(settings, "max_dim")?.unwrap_or(o.max_dim);
+    o.dim_tol = get(settings, "dim_tol")?.unwrap_or(o.dim_tol);
     o.seed = get(settings, "seed")?.unwrap_or(o.seed);
     o.map.seed = o.seed;
     let threads: usize = get(settings, "threads")?.unwrap_or(0);

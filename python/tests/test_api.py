@@ -69,7 +69,7 @@ def test_audit_returns_the_clis_json_record(cli, ccpp_lake, tmp_path):
 def test_tune_returns_the_clis_json_record(cli, ccpp_lake, tmp_path):
     out = tmp_path / "tune.json"
     cli("tune", ccpp_lake, "--target", "PE", "--sample", "800", "--seed", "2", "--threads", "1",
-        "-D", "64", "--max-components", "64", "--gamma-factors", "0.5,1", "--c-factors", "1,10",
+        "-D", "64", "--max-dim", "64", "--gamma-factors", "0.5,1", "--c-factors", "1,10",
         "--epsilon-factors", "1", "--json", out)
     expected = json.loads(out.read_text())
     got = kernlake.tune(str(ccpp_lake), "PE", sample=800, seed=2, threads=1, dim=64, max_dim=64,
