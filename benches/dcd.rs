@@ -22,24 +22,12 @@ use std::time::Instant;
 
 /// CCPP inputs (standardized) and the standardized target.
 fn ccpp() -> (Array2<f64>, Array1<f64>) {
-    let path = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/data/ccpp_folds5x2_sheet1.csv"
-    );
-    let text = std::fs::read_to_string(path).expect("CCPP file");
-    let rows: Vec<Vec<f64>> = text
-        .lines()
-        .skip(1)
-        .filter(|l| !l.trim().is_empty())
-        .map(|l| l.split(',').map(|t| t.trim().parse().unwrap()).collect())
-        .collect();
-    let t = Array2::from_shape_fn((rows.len(), 5), |(i, j)| rows[i][j]);
-    let mut x = t.slice(s![.., ..4]).to_owned();
+    let (mut x, y_raw) = kernlake::testing::ccpp();
     for mut c in x.axis_iter_mut(Axis(1)) {
         let (m, sd) = (c.mean().unwrap(), c.std(0.0));
         c.mapv_inplace(|v| (v - m) / sd);
     }
-    let y = t.column(4).to_owned();
+    let y = y_raw;
     let (m, sd) = (y.mean().unwrap(), y.std(0.0));
     (x, y.mapv(|v| (v - m) / sd))
 }

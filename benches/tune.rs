@@ -8,28 +8,10 @@
 use std::time::Instant;
 
 use kernlake::tune::{tune, TuneOptions};
-use ndarray::{Array1, Array2};
-
-fn ccpp() -> (Array2<f64>, Array1<f64>) {
-    let path = concat!(
-        env!("CARGO_MANIFEST_DIR"),
-        "/tests/data/ccpp_folds5x2_sheet1.csv"
-    );
-    let text = std::fs::read_to_string(path).expect("CCPP file");
-    let rows: Vec<Vec<f64>> = text
-        .lines()
-        .skip(1)
-        .filter(|l| !l.trim().is_empty())
-        .map(|l| l.split(',').map(|v| v.trim().parse().unwrap()).collect())
-        .collect();
-    let x = Array2::from_shape_fn((rows.len(), 4), |(i, j)| rows[i][j]);
-    let y = Array1::from_shape_fn(rows.len(), |i| rows[i][4]);
-    (x, y)
-}
 
 fn main() {
     let full = std::env::args().any(|a| a == "--bench");
-    let (x, y) = ccpp();
+    let (x, y) = kernlake::testing::ccpp();
     let n = if full { x.nrows() } else { 1_000 };
     let (x, y) = (x.slice(ndarray::s![..n, ..]), y.slice(ndarray::s![..n]));
     let opts = TuneOptions {

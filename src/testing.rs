@@ -23,3 +23,22 @@ pub fn friedman1(n: usize, seed: u64) -> (Array2<f64>, Array1<f64>, Array1<f64>)
     let y = &f + &noise;
     (x, y, f)
 }
+
+/// CCPP (dataset: Tüfekci, Int. J. Electrical Power & Energy Systems 60 (2014) 126–140;
+/// tests/data, CC BY 4.0): raw inputs AT, V, AP, RH and the target PE (MW).
+pub fn ccpp() -> (Array2<f64>, Array1<f64>) {
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/data/ccpp_folds5x2_sheet1.csv"
+    );
+    let text = std::fs::read_to_string(path).expect("the CCPP file in tests/data");
+    let rows: Vec<Vec<f64>> = text
+        .lines()
+        .skip(1)
+        .filter(|l| !l.trim().is_empty())
+        .map(|l| l.split(',').map(|v| v.trim().parse().unwrap()).collect())
+        .collect();
+    let x = Array2::from_shape_fn((rows.len(), 4), |(i, j)| rows[i][j]);
+    let y = Array1::from_shape_fn(rows.len(), |i| rows[i][4]);
+    (x, y)
+}
