@@ -58,6 +58,8 @@
 #[doc(hidden)]
 pub mod atomic;
 pub mod audit;
+#[cfg(feature = "cli")]
+#[doc(hidden)]
 pub mod cli;
 #[doc(hidden)]
 pub mod coverage;

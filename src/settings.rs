@@ -31,6 +31,12 @@ pub mod defaults {
     pub const SAMPLE: usize = 10_000;
 }
 
+/// The caution every front door shows (`--help`, the README, the Python package):
+/// predictions can feed decisions about equipment.
+pub const SAFETY: &str = "Predictions from a fitted model are an aid for monitoring and planning. \
+They are no substitute for protective systems, alarms or interlocks; follow your site's \
+procedures and defer to qualified engineers for any decision about equipment.";
+
 /// Fewest sample rows: the median heuristic, the noise estimate and the coverage
 /// threshold each need a handful of rows.
 pub const MIN_SAMPLE: usize = 10;

@@ -26,7 +26,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(tools::tune_files, m)?)?;
     m.add_function(wrap_pyfunction!(options::fit_defaults, m)?)?;
     m.add_function(wrap_pyfunction!(model::_score_in_rust, m)?)?;
-    m.add("SAFETY", kernlake::cli::SAFETY)?;
+    m.add("SAFETY", kernlake::settings::SAFETY)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())
 }

@@ -13,10 +13,7 @@ use crate::settings::defaults;
 use crate::solver::blocks::Method;
 use crate::solver::dcd::Loss;
 
-/// The caution printed in `--help` and the README.
-pub const SAFETY: &str = "Predictions from a fitted model are an aid for monitoring and planning. \
-They are no substitute for protective systems, alarms or interlocks; follow your site's \
-procedures and defer to qualified engineers for any decision about equipment.";
+pub use crate::settings::SAFETY;
 
 /// Kernel families on the command line.
 #[derive(Debug, Clone, Copy, ValueEnum)]

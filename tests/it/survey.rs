@@ -1,8 +1,6 @@
 //! The survey pass and the standardizer, checked against two-pass statistics computed
 //! directly from the CCPP dataset, and the seeded sample for determinism and uniformity.
 
-mod common;
-
 use std::cell::Cell;
 use std::fs::{self, File};
 use std::path::Path;
@@ -19,7 +17,7 @@ use parquet::arrow::ArrowWriter;
 
 const NAMES: [&str; 5] = ["AT", "V", "AP", "RH", "PE"];
 
-use common::{ccpp_path, ccpp_rows as ccpp};
+use crate::common::{ccpp_path, ccpp_rows as ccpp};
 
 fn write_parquet(path: &Path, rows: &[[f64; 5]], constant: bool) {
     fs::create_dir_all(path.parent().unwrap()).unwrap();

@@ -2,7 +2,7 @@
 //! bit for bit, outputs mirror the inputs, coverage behaves as a Gaussian kernel must,
 //! reruns skip complete outputs, and bad input fails with a clear error.
 
-mod common;
+use crate::common;
 
 use std::path::{Path, PathBuf};
 use std::process::Command;

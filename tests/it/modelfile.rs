@@ -1,7 +1,7 @@
 //! The model-file container: round trip, layout as seen by a plain Arrow reader, and
 //! clean errors on damaged, foreign, truncated and newer files.
 
-mod common;
+use crate::common;
 
 use std::collections::HashMap;
 use std::io::{Cursor, Write};

@@ -1,11 +1,9 @@
 //! Data-driven defaults and the validation search (issues 6 and 14), each check naming
 //! its source.
 
-#[path = "tune/accuracy.rs"]
 mod accuracy;
-mod common;
 
-use common::{ccpp, friedman1, rmse};
+use crate::common::{self, ccpp, friedman1, rmse};
 use kernlake::fit::Fitter;
 use kernlake::tune::{
     cherkassky_ma, heatmap_svg, median_gamma, tune, Defaults, TuneOptions, TuneReport, Validation,

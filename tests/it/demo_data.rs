@@ -309,7 +309,7 @@ fn invalid_specs_are_typed_errors() {
 }
 
 /// Generates the full one-million-row demo and prints the time taken (no assertion on
-/// speed; run with `cargo test --release --test demo_data -- --ignored --nocapture`).
+/// speed; run with `cargo test --release --test it demo_data:: -- --ignored --nocapture`).
 #[test]
 #[ignore = "writes about 60 MB; run by hand to measure generation speed"]
 fn one_million_rows_generation_speed() {

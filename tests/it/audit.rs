@@ -1,8 +1,6 @@
 //! The audit: exact kernel machine (SMO) against approximate ones, on open datasets.
 
-mod common;
-
-use common::{ccpp, write_parts};
+use crate::common::{self, ccpp, write_parts};
 use kernlake::audit::plot::render_svg;
 use kernlake::audit::{audit, audit_with_progress, map_name, AuditOptions, AuditReport};
 use kernlake::features::{FeatureMap, Landmarks, MapKind, NystromMap};

@@ -1,8 +1,6 @@
 //! End-to-end accuracy of the approximate kernel machine on published and open data.
 
-mod common;
-
-use common::{ccpp, friedman1, rmse};
+use crate::common::{ccpp, friedman1, rmse};
 use kernlake::fit::Fitter;
 use kernlake::Error;
 use ndarray::{concatenate, s, Array1, Array2, Axis};

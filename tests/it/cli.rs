@@ -1,11 +1,9 @@
 //! The real `kernlake` binary on temporary folders: happy paths and bad input.
 
-mod common;
-
 use std::path::Path;
 use std::process::{Command, Output};
 
-use common::{ccpp, write_parquet, write_parts};
+use crate::common::{ccpp, write_parquet, write_parts};
 use ndarray::s;
 
 fn kernlake(args: &[&str]) -> Output {

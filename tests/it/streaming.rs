@@ -1,8 +1,6 @@
 //! The streamed fit over Parquet files against the in-memory fit of the same rows.
 
-mod common;
-
-use common::{ccpp, friedman1, write_parts};
+use crate::common::{self, ccpp, friedman1, write_parts};
 use kernlake::data::{discover, resolve_columns, ColumnSelection, CsvOptions, TableReader};
 use kernlake::fit::Fitter;
 use kernlake::model::Model;

@@ -1,8 +1,6 @@
 //! Data sources: discovery, partitions, column choice, block reading, missing values and
 //! bad input, on Parquet and CSV fixtures written from the CCPP dataset.
 
-mod common;
-
 use std::fs::{self, File};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
@@ -23,7 +21,7 @@ use parquet::arrow::ArrowWriter;
 
 const NAMES: [&str; 5] = ["AT", "V", "AP", "RH", "PE"];
 
-use common::{ccpp_path, ccpp_rows as ccpp};
+use crate::common::{ccpp_path, ccpp_rows as ccpp};
 
 fn write_batch(path: &Path, batch: &RecordBatch) {
     fs::create_dir_all(path.parent().unwrap()).unwrap();

@@ -11,7 +11,7 @@ use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
-use super::common::{self, ccpp, rmse};
+use crate::common::{self, ccpp, rmse};
 
 /// Airfoil self-noise (dataset: Brooks, Pope & Marcolini, NASA RP-1218, 1989): five
 /// inputs, sound pressure level (dB) last; tab separated, no header.

@@ -2,11 +2,9 @@
 //! target, a bounded holdout, settings checked before any data is read, errors in the
 //! right variant, and one set of defaults.
 
-mod common;
-
 use std::process::Command;
 
-use common::{ccpp, friedman1, write_parts};
+use crate::common::{ccpp, friedman1, write_parts};
 use kernlake::data::{discover, resolve_columns, ColumnSelection, CsvOptions, TableReader};
 use kernlake::features::MapSpec;
 use kernlake::fit::{FitOptions, Fitter};

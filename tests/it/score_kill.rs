@@ -3,7 +3,7 @@
 //! the job with outputs identical byte for byte to an uninterrupted run, leaving no
 //! temporary files (common practice: write to a temporary name, rename when complete).
 
-mod common;
+use crate::common;
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};

@@ -1,0 +1,22 @@
+//! Integration tests: one binary (so the large dependencies link once), one module per
+//! area of the job; every check names its outside source beside it.
+
+mod accuracy;
+mod audit;
+mod cli;
+mod common;
+mod data_sources;
+mod dcd;
+mod demo_data;
+mod features;
+mod foundation;
+mod kernel;
+mod layers;
+mod metrics;
+mod modelfile;
+mod score;
+mod score_kill;
+mod smo;
+mod streaming;
+mod survey;
+mod tune;
