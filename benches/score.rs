@@ -85,7 +85,7 @@ fn model() -> Model {
     let x = rows(u64::MAX, 4000);
     let y = Array1::from_shape_fn(4000, |i| x.row(i).iter().map(|v| v.sin()).sum::<f64>());
     let mut m = Fitter::new()
-        .with_components(1024)
+        .with_dim(1024)
         .with_gamma(1.0 / D_IN as f64)
         .with_c(10.0)
         .with_epsilon(0.1)

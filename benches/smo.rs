@@ -151,7 +151,7 @@ fn approx_seconds(p: &Problem) -> f64 {
     let t = Instant::now();
     let spec = MapSpec {
         kind: MapKind::Fourier,
-        components: 2048,
+        dim: 2048,
         seed: 0,
         ..MapSpec::default()
     };

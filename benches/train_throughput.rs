@@ -10,7 +10,7 @@
 //! and prints rows/s for each, the ratio of one training epoch to the bare pass, the
 //! epochs and wall time to the gap tolerance, and the peak resident set size.
 //!
-//! `cargo bench --bench train_throughput -- [--rows N] [--components D] [--epochs E]
+//! `cargo bench --bench train_throughput -- [--rows N] [--dim D] [--epochs E]
 //! [--tol T] [--memory BYTES] [--dir PATH] [--solver auto|dual|newton] [--hessian-rows N]`.
 //! Without `--bench` (as under `cargo test`) it
 //! runs a tiny smoke configuration.
@@ -58,7 +58,7 @@ fn main() {
     let args: Vec<String> = std::env::args().collect();
     let bench = args.iter().any(|a| a == "--bench");
     let rows: u64 = arg(&args, "--rows", if bench { 10_000_000 } else { 20_000 });
-    let d_out: usize = arg(&args, "--components", if bench { 1024 } else { 64 });
+    let d_out: usize = arg(&args, "--dim", if bench { 1024 } else { 64 });
     let epochs: usize = arg(&args, "--epochs", if bench { 10 } else { 2 });
     let tol: f64 = arg(&args, "--tol", 1e-3);
     let memory: usize = arg(&args, "--memory", 64 << 20);
@@ -116,7 +116,7 @@ fn main() {
     let scaler = Standardizer::from_survey(&s);
     let kernel = Kernel::gaussian(0.1).expect("kernel");
     let spec = MapSpec {
-        components: d_out,
+        dim: d_out,
         ..MapSpec::default()
     };
     let map = build_map(&spec, kernel, FEATURES.len(), None).expect("map");

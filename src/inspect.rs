@@ -36,7 +36,7 @@ pub fn render_model(m: &Model) -> String {
     line(
         &mut s,
         "loss",
-        format!("{:?}", m.solver.loss).to_lowercase(),
+        format!("{:?}", m.problem.loss).to_lowercase(),
     );
     line(&mut s, "intercept", format!("{:.6}", m.intercept));
     s.push_str(&render_training(&m.report));

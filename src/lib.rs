@@ -23,6 +23,7 @@
 //! * [`features`] — the feature maps.
 //! * [`solver`] — dual coordinate descent, primal Newton, the streaming trainer, exact SMO.
 //! * [`heuristics`] — data-driven defaults (median heuristic, Cherkassky & Ma).
+//! * [`scale`], [`coverage`] — the model's standardizer and its coverage landmarks.
 //! * [`metrics`], [`report`], [`inspect`] — figures, the training report, a model as text.
 //!
 //! Modules marked hidden in the documentation are internals that the project's own
@@ -37,7 +38,7 @@
 //! let x = Array2::from_shape_fn((400, 1), |(i, _)| i as f64 / 40.0);
 //! let y: Array1<f64> = x.column(0).mapv(|v| (v).sin() * 10.0);
 //! let model = Fitter::new()
-//!     .with_components(128)
+//!     .with_dim(128)
 //!     .with_c(100.0)
 //!     .with_epsilon(0.05)
 //!     .with_seed(3)
@@ -61,7 +62,6 @@ pub mod audit;
 #[cfg(feature = "cli")]
 #[doc(hidden)]
 pub mod cli;
-#[doc(hidden)]
 pub mod coverage;
 pub mod cpu;
 pub mod data;
@@ -78,7 +78,6 @@ pub mod model;
 #[doc(hidden)]
 pub mod modelfile;
 pub mod report;
-#[doc(hidden)]
 pub mod scale;
 pub mod score;
 pub mod settings;

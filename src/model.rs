@@ -40,8 +40,9 @@ pub struct Model {
     pub weights: Array1<f64>,
     /// Constant term in target units.
     pub intercept: f64,
-    /// Solver settings used (C and epsilon in target units).
-    pub solver: DcdSettings,
+    /// The problem solved: C, epsilon and the loss (C and epsilon in target units), with
+    /// the stopping settings the fit used.
+    pub problem: DcdSettings,
     /// What happened during training.
     pub report: TrainingReport,
     /// Coverage landmarks and flag threshold (see [`crate::coverage`]), if computed.
@@ -59,7 +60,9 @@ struct Meta {
     map_spec: MapSpec,
     map_kind: String,
     map_meta: serde_json::Value,
-    solver: DcdSettings,
+    /// Files written before this field had its name call it `solver`.
+    #[serde(alias = "solver")]
+    problem: DcdSettings,
     report: TrainingReport,
 }
 
@@ -77,7 +80,7 @@ impl Model {
         map: Box<dyn FeatureMap>,
         weights: Array1<f64>,
         intercept: f64,
-        solver: DcdSettings,
+        problem: DcdSettings,
         report: TrainingReport,
     ) -> Self {
         assert_eq!(
@@ -102,7 +105,7 @@ impl Model {
             map_spec,
             weights,
             intercept,
-            solver,
+            problem,
             report,
             coverage: None,
             map,
@@ -172,11 +175,13 @@ impl Model {
             map_spec: self.map_spec.clone(),
             map_kind: parts.kind.clone(),
             map_meta: parts.meta.clone(),
-            solver: self.solver.clone(),
+            problem: self.problem.clone(),
             report: self.report.clone(),
         };
-        let meta = serde_json::to_value(&meta)
-            .map_err(|e| Error::Numerical(format!("could not encode the model: {e}")))?;
+        let meta = serde_json::to_value(&meta).map_err(|source| Error::Encode {
+            what: "the model",
+            source,
+        })?;
         let row = |v: &[f64]| Array2::from_shape_vec((1, v.len()), v.to_vec()).expect("1×n");
         let mut arrays = vec![
             ("scaler.mean".to_string(), row(&self.scaler.mean)),
@@ -280,7 +285,7 @@ impl Model {
             map_spec: meta.map_spec,
             weights,
             intercept,
-            solver: meta.solver,
+            problem: meta.problem,
             report: meta.report,
             map,
         })
@@ -353,7 +358,7 @@ fn check_meaning(
             "its kernel's gamma is {gamma}, not a positive number"
         ));
     }
-    let (c, eps) = (meta.solver.c, meta.solver.epsilon);
+    let (c, eps) = (meta.problem.c, meta.problem.epsilon);
     if !(c.is_finite() && c > 0.0 && eps.is_finite() && eps >= 0.0) {
         return Err(format!("its C ({c}) or epsilon ({eps}) is out of range"));
     }

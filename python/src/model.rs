@@ -265,7 +265,7 @@ impl PyModel {
             "kernel": m.kernel,
             "map": m.map_spec,
             "features": m.weights.len(),
-            "solver": m.solver,
+            "problem": m.problem,
             "intercept": m.intercept,
             "coverage": m.coverage.is_some(),
         });
@@ -292,7 +292,7 @@ impl PyModel {
             json_name(&m.kernel.kind),
             json_name(&m.map_spec.kind),
             m.weights.len(),
-            json_name(&m.solver.loss),
+            json_name(&m.problem.loss),
         )
     }
 }

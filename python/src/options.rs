@@ -161,7 +161,7 @@ pub fn fit_options(kw: &Bound<'_, PyDict>) -> PyResult<FitOptions> {
     o.c = get(kw, "c")?.or(o.c);
     o.epsilon = get(kw, "epsilon")?.or(o.epsilon);
     o.hessian_rows = get(kw, "hessian_rows")?.or(o.hessian_rows);
-    o.map.components = get(kw, "dim")?.unwrap_or(o.map.components);
+    o.map.dim = get(kw, "dim")?.unwrap_or(o.map.dim);
     if let Some(p) = get::<bool>(kw, "phase")? {
         o.map.variant = if p {
             FourierVariant::CosPhase
@@ -267,7 +267,7 @@ pub fn fit_defaults(py: Python<'_>) -> PyResult<Bound<'_, PyDict>> {
     d.set_item("c", o.c)?;
     d.set_item("epsilon", o.epsilon)?;
     d.set_item("map", name(serde_json::json!(o.map.kind)))?;
-    d.set_item("dim", o.map.components)?;
+    d.set_item("dim", o.map.dim)?;
     d.set_item("phase", o.map.variant == FourierVariant::CosPhase)?;
     d.set_item("kmeans", o.map.landmarks == Landmarks::KMeans)?;
     d.set_item("loss", name(serde_json::json!(o.loss)))?;

@@ -248,7 +248,7 @@ pub fn tune_files<'py>(
     o.sweeps_per_epoch = get(settings, "sweeps")?.unwrap_or(o.sweeps_per_epoch);
     o.tol = get(settings, "tol")?.unwrap_or(o.tol);
     o.dim = get(settings, "dim")?.unwrap_or(o.dim);
-    o.map.components = o.dim;
+    o.map.dim = o.dim;
     o.max_dim = get(settings, "max_dim")?.unwrap_or(o.max_dim);
     o.dim_tol = get(settings, "dim_tol")?.unwrap_or(o.dim_tol);
     o.seed = get(settings, "seed")?.unwrap_or(o.seed);

@@ -47,7 +47,7 @@ def test_properties_are_plain_values(small_model, cli):
     json.dumps(p)
     inspected = json.loads(cli("inspect", path, "--json").stdout)
     assert model.report == json.loads(json.dumps(inspected["report"]))
-    assert p["solver"] == inspected["solver"]
+    assert p["problem"] == inspected["problem"]
     r = repr(model)
     assert r.startswith("kernlake.Model(") and "dim=256" in r
     assert "Gaussian" in model.describe() or "gaussian" in model.describe()

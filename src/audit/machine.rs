@@ -46,7 +46,7 @@ impl Machine<'_> {
         let (parts, opts) = (self.parts, self.opts);
         let spec = MapSpec {
             kind,
-            components: d,
+            dim: d,
             variant: opts.variant,
             seed: opts.seed,
             ..MapSpec::default()

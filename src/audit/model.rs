@@ -125,9 +125,9 @@ pub fn audit_model(
         .map_err(|e| Error::invalid("threads", format!("no thread pool could start: {e}")))?;
     let kernel = model.kernel;
     let exact_settings = ExactSettings {
-        loss: model.solver.loss,
-        c: model.solver.c,
-        epsilon: model.solver.epsilon,
+        loss: model.problem.loss,
+        c: model.problem.c,
+        epsilon: model.problem.epsilon,
         tol: opts.smo_tol,
         cache_bytes: opts.cache_bytes,
     };
@@ -142,9 +142,9 @@ pub fn audit_model(
         kernel,
         map: model.map_spec.clone(),
         features: model.map().output_dim(),
-        c: model.solver.c,
-        epsilon: model.solver.epsilon,
-        loss: model.solver.loss,
+        c: model.problem.c,
+        epsilon: model.problem.epsilon,
+        loss: model.problem.loss,
         rows_fit: parts.y_fit.len(),
         rows_check: parts.y_check.len(),
         target_sd: y_sd,

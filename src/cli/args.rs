@@ -88,7 +88,7 @@ impl From<MapArg> for MapKind {
 pub fn map_spec(map: MapArg, components: usize, phase: bool, kmeans: bool, seed: u64) -> MapSpec {
     MapSpec {
         kind: map.into(),
-        components,
+        dim: components,
         variant: if phase {
             FourierVariant::CosPhase
         } else {
@@ -165,7 +165,7 @@ pub struct ModelArgs {
     pub map: MapArg,
     /// The map's dimension D: mapped features (landmarks for Nyström).
     #[arg(long = "dim", short = 'D', default_value_t = defaults::DIM)]
-    pub components: usize,
+    pub dim: usize,
     /// Old spelling of --dim, refused with a pointer.
     #[arg(long = "components", hide = true, value_parser = renamed("--components", "--dim"))]
     pub old_components: Option<usize>,
@@ -262,7 +262,7 @@ pub struct DemoArgs {
     pub seed: u64,
     /// The map's dimension D.
     #[arg(long = "dim", short = 'D', default_value_t = 512)]
-    pub components: usize,
+    pub dim: usize,
     /// Largest number of passes over the data.
     #[arg(long, default_value_t = 30)]
     pub epochs: usize,
@@ -330,13 +330,7 @@ impl ModelArgs {
     /// Resolves the flags into validated fit options (before any data is read).
     pub fn options(&self) -> Result<FitOptions> {
         let kernel: KernelKind = self.kernel.into();
-        let map = map_spec(
-            self.map,
-            self.components,
-            self.phase,
-            self.kmeans,
-            self.seed,
-        );
+        let map = map_spec(self.map, self.dim, self.phase, self.kmeans, self.seed);
         FitOptions {
             kernel,
             gamma: self.gamma,

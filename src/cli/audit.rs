@@ -119,6 +119,9 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
             "does not apply with --model: the exact machine uses the model's own loss",
         ));
     }
+    for path in [&a.json, &a.plot].into_iter().flatten() {
+        crate::atomic::check_writable(path)?;
+    }
     let model = a.model.as_deref().map(Model::load).transpose()?;
     let target = match (&a.target, &model) {
         (Some(t), _) => t.clone(),
@@ -253,8 +256,10 @@ fn sample_arrays(
 }
 
 fn to_json<T: serde::Serialize>(v: &T) -> Result<String> {
-    serde_json::to_string_pretty(v)
-        .map_err(|e| Error::Numerical(format!("could not encode the report: {e}")))
+    serde_json::to_string_pretty(v).map_err(|source| Error::Encode {
+        what: "the audit report",
+        source,
+    })
 }
 
 fn write_file(path: &Path, bytes: &[u8]) -> Result<()> {

@@ -62,7 +62,7 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         seed: a.seed,
         threads: a.threads,
         map: crate::features::MapSpec {
-            components: a.components,
+            dim: a.dim,
             seed: a.seed,
             ..Default::default()
         },
@@ -93,7 +93,7 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     let scored = score_files(&model, &test_files, &score_opts, &Quiet)?;
     let hot = summary.hot_site.to_string();
     let test = TableReader::new(test_files, columns);
-    let mut acc = MetricsAccumulator::new(model.solver.epsilon);
+    let mut acc = MetricsAccumulator::new(model.problem.epsilon);
     let (mut hot_rows, mut hot_flagged) = (0u64, 0u64);
     for block in test.blocks()? {
         let block = block?;

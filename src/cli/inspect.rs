@@ -15,12 +15,14 @@ pub fn run(a: InspectArgs) -> Result<i32> {
             "kernel": model.kernel,
             "map": model.map_spec,
             "features": model.weights.len(),
-            "solver": model.solver,
+            "problem": model.problem,
             "intercept": model.intercept,
             "report": model.report,
         });
-        let text = serde_json::to_string_pretty(&doc)
-            .map_err(|e| Error::Numerical(format!("could not encode the model: {e}")))?;
+        let text = serde_json::to_string_pretty(&doc).map_err(|source| Error::Encode {
+            what: "the model",
+            source,
+        })?;
         println!("{text}");
     } else {
         print!("{}", render_model(&model));

@@ -266,6 +266,9 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
     // Settings are checked before any data is read.
     a.check_names()?;
     a.options(None).validate()?;
+    for path in [&a.json, &a.heatmap, &a.fit].into_iter().flatten() {
+        crate::atomic::check_writable(path)?;
+    }
     let csv = a.src.csv()?;
     let files = discover(&a.src.sources)?;
     let columns = resolve_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;
@@ -309,8 +312,10 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
 
     print!("{}", render_tune(&report, a.top));
     if let Some(path) = &a.json {
-        let json = serde_json::to_vec_pretty(&report)
-            .map_err(|e| Error::Numerical(format!("could not encode the tuning report: {e}")))?;
+        let json = serde_json::to_vec_pretty(&report).map_err(|source| Error::Encode {
+            what: "the tuning report",
+            source,
+        })?;
         write_text(path, &json)?;
     }
     if let Some(path) = &a.heatmap {

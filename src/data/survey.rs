@@ -261,13 +261,10 @@ pub fn survey(
         worker.join().expect("a survey worker panicked")
     });
     let total = total?;
-    if total.used == 0 {
-        return Err(Error::NoRows(format!(
-            "none of the {} rows read has a value in every chosen column",
-            total.rows
-        )));
-    }
     let columns = reader.columns().clone();
+    if total.used == 0 {
+        return Err(Error::NoRows(no_rows_reason(&columns, &total)));
+    }
     let stats: Vec<ColumnStats> = columns
         .all()
         .zip(total.moments.iter().zip(&total.missing))
@@ -317,6 +314,38 @@ pub fn survey(
         sample_y,
         sample_row_ids,
     })
+}
+
+/// Why no row survived: the columns with no value at all (every cell empty, null or
+/// NaN) are named, else the column with the most missing cells.
+fn no_rows_reason(columns: &ResolvedColumns, total: &Part) -> String {
+    let names: Vec<&str> = columns.all().collect();
+    let empty: Vec<&str> = names
+        .iter()
+        .zip(&total.missing)
+        .filter(|&(_, &m)| total.rows > 0 && m == total.rows)
+        .map(|(n, _)| *n)
+        .collect();
+    if !empty.is_empty() {
+        let list = empty.iter().map(|n| format!("'{n}'")).collect::<Vec<_>>();
+        return format!(
+            "column(s) {} have no value in any of the {} rows read (every cell is empty, null \
+             or NaN); leave them out of the chosen columns",
+            list.join(", "),
+            total.rows
+        );
+    }
+    match names.iter().zip(&total.missing).max_by_key(|&(_, &m)| m) {
+        Some((name, &m)) if m > 0 => format!(
+            "none of the {} rows read has a value in every chosen column (column '{name}' \
+             misses {m} of them)",
+            total.rows
+        ),
+        _ => format!(
+            "none of the {} rows read has a value in every chosen column",
+            total.rows
+        ),
+    }
 }
 
 #[cfg(test)]

@@ -62,8 +62,10 @@ pub struct MapSpec {
     /// The map family.
     pub kind: MapKind,
     /// Output dimension D (for Nyström: the number of landmarks asked for; the output
-    /// may be smaller, see [`NystromMap`]).
-    pub components: usize,
+    /// may be smaller, see [`NystromMap`]). Files written before it had this name call it
+    /// `components`.
+    #[serde(alias = "components")]
+    pub dim: usize,
     /// Fourier and orthogonal maps: cos + phase or sin/cos pairs.
     pub variant: FourierVariant,
     /// Nyström: how landmarks are chosen.
@@ -79,7 +81,7 @@ impl Default for MapSpec {
     fn default() -> Self {
         MapSpec {
             kind: MapKind::Fourier,
-            components: 1024,
+            dim: 1024,
             variant: FourierVariant::SinCos,
             landmarks: Landmarks::Uniform,
             eig_threshold: 1e-10,
@@ -93,19 +95,19 @@ impl MapSpec {
     /// 1, an even D for sin/cos pairs, orthogonal features only for the Gaussian kernel,
     /// and the Nyström eigenvalue threshold in [0, 1).
     pub fn validate(&self, kernel: KernelKind) -> Result<()> {
-        if self.components == 0 {
+        if self.dim == 0 {
             return Err(Error::invalid(
                 "dim",
                 "the feature dimension D must be at least 1",
             ));
         }
         let fourier = matches!(self.kind, MapKind::Fourier | MapKind::Orthogonal);
-        if fourier && self.variant == FourierVariant::SinCos && self.components % 2 == 1 {
+        if fourier && self.variant == FourierVariant::SinCos && self.dim % 2 == 1 {
             return Err(Error::invalid(
                 "dim",
                 format!(
                     "sin/cos pairs need an even feature dimension D, got {}",
-                    self.components
+                    self.dim
                 ),
             ));
         }
@@ -189,14 +191,14 @@ pub fn build_map(
         MapKind::Fourier => Box::new(FourierMap::new(
             kernel,
             input_dim,
-            spec.components,
+            spec.dim,
             spec.variant,
             spec.seed,
         )?),
         MapKind::Orthogonal => Box::new(OrthogonalMap::orthogonal(
             kernel,
             input_dim,
-            spec.components,
+            spec.dim,
             spec.variant,
             spec.seed,
         )?),
@@ -216,7 +218,7 @@ pub fn build_map(
             Box::new(NystromMap::new(
                 kernel,
                 sample,
-                spec.components,
+                spec.dim,
                 spec.landmarks,
                 spec.eig_threshold,
                 spec.seed,

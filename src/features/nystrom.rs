@@ -73,7 +73,7 @@ impl NystromMap {
         let kernel = check_kernel(kernel)?;
         if landmarks == 0 {
             return Err(Error::invalid(
-                "components",
+                "dim",
                 "a Nyström map needs at least 1 landmark",
             ));
         }

@@ -84,7 +84,7 @@ pub(crate) fn frequency_count(
     }
     if components == 0 {
         return Err(Error::invalid(
-            "components",
+            "dim",
             "the feature dimension D must be at least 1",
         ));
     }
@@ -92,7 +92,7 @@ pub(crate) fn frequency_count(
         FourierVariant::CosPhase => Ok(components),
         FourierVariant::SinCos if components.is_multiple_of(2) => Ok(components / 2),
         FourierVariant::SinCos => Err(Error::invalid(
-            "components",
+            "dim",
             format!("sin/cos pairs need an even feature dimension D, got {components}"),
         )),
     }

@@ -30,7 +30,7 @@ pub use options::{hessian_rows_for, FitOptions};
 /// ```no_run
 /// # use kernlake::fit::Fitter;
 /// # let (x, y) = (ndarray::Array2::<f64>::zeros((10, 2)), ndarray::Array1::<f64>::zeros(10));
-/// let model = Fitter::new().with_components(512).with_seed(7).fit(x.view(), y.view())?;
+/// let model = Fitter::new().with_dim(512).with_seed(7).fit(x.view(), y.view())?;
 /// # Ok::<(), kernlake::Error>(())
 /// ```
 #[derive(Clone, Debug, Default)]
@@ -106,8 +106,8 @@ impl Fitter {
     }
 
     /// Number of mapped features D.
-    pub fn with_components(mut self, d: usize) -> Self {
-        self.opts.map.components = d;
+    pub fn with_dim(mut self, d: usize) -> Self {
+        self.opts.map.dim = d;
         self
     }
 

@@ -188,7 +188,7 @@ impl FitOptions {
     /// Nyström its landmark kernel matrix and eigenvectors), the mapped pieces in flight
     /// on each thread, and the budget for resident blocks.
     pub fn memory_estimate(&self, inputs: usize) -> u64 {
-        let d = self.map.components as u64;
+        let d = self.map.dim as u64;
         let per_d2 = d.saturating_mul(d).saturating_mul(8);
         let square = match self.map.kind {
             MapKind::Nystrom => per_d2.saturating_mul(6),
@@ -196,7 +196,7 @@ impl FitOptions {
         };
         let hessian = self
             .hessian_rows
-            .unwrap_or_else(|| hessian_rows_for(self.map.components)) as u64;
+            .unwrap_or_else(|| hessian_rows_for(self.map.dim)) as u64;
         let sample = hessian.saturating_mul(d).saturating_mul(8);
         let map = d.saturating_mul(inputs as u64 + 2).saturating_mul(8);
         let pieces = (self.effective_threads() as u64 + 3).saturating_mul(32 << 20);
@@ -218,7 +218,7 @@ impl FitOptions {
                 "dim",
                 format!(
                     "a fit with D = {} needs about {} of memory (its D × D matrices and Hessian sample), more than this machine's {}; lower -D (or --hessian-rows, --memory)",
-                    self.map.components,
+                    self.map.dim,
                     gib(need),
                     gib(total)
                 ),

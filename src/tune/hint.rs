@@ -107,7 +107,7 @@ pub fn gamma_hint(
 pub fn gamma_hint_for_model(reader: &TableReader, model: &Model) -> Result<Option<GammaHint>> {
     let settings = SurveySettings {
         sample_rows: HINT_ROWS,
-        seed: model.solver.seed,
+        seed: model.problem.seed,
         threads: 0,
     };
     let s = survey(reader, &settings, &|_| {})?;
@@ -129,9 +129,9 @@ pub fn gamma_hint_for_model(reader: &TableReader, model: &Model) -> Result<Optio
         x.view(),
         y.view(),
         model.kernel,
-        model.solver.c,
-        model.solver.epsilon,
-        model.solver.loss,
-        model.solver.seed,
+        model.problem.c,
+        model.problem.epsilon,
+        model.problem.loss,
+        model.problem.seed,
     )
 }

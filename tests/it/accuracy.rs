@@ -26,7 +26,7 @@ fn friedman1_random_features_beat_the_linear_fit() {
     let (xtr, ytr, _) = friedman1(5_000, 11);
     let (xte, yte, _) = friedman1(10_000, 12);
     let model = Fitter::new()
-        .with_components(2_000)
+        .with_dim(2_000)
         .with_seed(5)
         .with_tol(1e-4)
         .fit(xtr.view(), ytr.view())
@@ -60,7 +60,7 @@ fn ccpp_heldout_rmse_within_published_range() {
     // median heuristic's default (≈ 0.16 here) smooths too much for this dataset, which
     // is what validation search is for. C and epsilon are the documented defaults.
     let model = Fitter::new()
-        .with_components(2_000)
+        .with_dim(2_000)
         .with_gamma(1.0)
         .with_seed(1)
         .with_tol(5e-3)
@@ -82,7 +82,7 @@ fn same_seed_same_weights_whatever_the_thread_count() {
     let (x, y, _) = friedman1(3_000, 21);
     let fit = |t| {
         Fitter::new()
-            .with_components(256)
+            .with_dim(256)
             .with_seed(9)
             .with_threads(t)
             .with_block_rows(700)
@@ -101,7 +101,7 @@ fn same_seed_same_weights_whatever_the_thread_count() {
 fn bad_parameters_and_data_are_typed_errors() {
     // common practice: data problems are errors, never panics.
     let (x, y, _) = friedman1(50, 3);
-    let f = || Fitter::new().with_components(16).with_gamma(0.1);
+    let f = || Fitter::new().with_dim(16).with_gamma(0.1);
     assert!(matches!(
         f().with_c(0.0).fit(x.view(), y.view()),
         Err(Error::InvalidParameter { .. })
@@ -115,7 +115,7 @@ fn bad_parameters_and_data_are_typed_errors() {
         Err(Error::InvalidParameter { .. })
     ));
     assert!(matches!(
-        f().with_components(0).fit(x.view(), y.view()),
+        f().with_dim(0).fit(x.view(), y.view()),
         Err(Error::InvalidParameter { .. })
     ));
     assert!(matches!(

@@ -334,3 +334,39 @@ fn fit_names_left_out_columns_and_clears_stale_temporaries() {
     args.extend(["--missing", "fail"]);
     fails_with(&args, &["plant.csv", "row 42", "'V'", "abc"]);
 }
+
+#[test]
+fn outputs_that_cannot_be_written_are_refused_before_any_data_is_read() {
+    // The source does not exist: if the output were checked after discovery, the error
+    // would name the source. Each case names the output path instead.
+    let dir = tempfile::tempdir().unwrap();
+    let missing_src = dir.path().join("no-such-lake");
+    let src = missing_src.to_str().unwrap();
+    let in_missing_folder = dir.path().join("no-such-folder").join("m.klm");
+    let a_folder = dir.path().to_path_buf();
+    for out in [&in_missing_folder, &a_folder] {
+        let o = kernlake(&fit_args(src, out.to_str().unwrap()));
+        let err = stderr(&o);
+        assert!(!o.status.success(), "fit --out {} succeeded", out.display());
+        assert!(
+            err.contains(out.to_str().unwrap()) && !err.contains("no-such-lake"),
+            "fit --out {}: {err}",
+            out.display()
+        );
+    }
+    let report = dir.path().join("no-such-folder").join("r.json");
+    let model = dir.path().join("m.klm");
+    let mut args = fit_args(src, model.to_str().unwrap());
+    args.extend(["--report", report.to_str().unwrap()]);
+    let err = stderr(&kernlake(&args));
+    assert!(err.contains(report.to_str().unwrap()), "{err}");
+    for (cmd, flag) in [("tune", "--json"), ("audit", "--json")] {
+        let o = kernlake(&[cmd, src, "--target", "PE", flag, report.to_str().unwrap()]);
+        let err = stderr(&o);
+        assert!(
+            !o.status.success() && err.contains(report.to_str().unwrap()),
+            "{cmd} {flag}: {err}"
+        );
+    }
+    no_temp_files(dir.path());
+}

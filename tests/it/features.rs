@@ -482,7 +482,7 @@ fn all_maps(pool: &rayon::ThreadPool) -> Vec<Box<dyn FeatureMap>> {
     let k = Kernel::gaussian(0.2).unwrap();
     let mk = |kind, variant, landmarks| MapSpec {
         kind,
-        components: 96,
+        dim: 96,
         variant,
         landmarks,
         eig_threshold: 1e-10,
@@ -651,7 +651,7 @@ fn bad_settings_are_typed_errors() {
     let sample = normal_rows(10, 3, 3);
     let spec = |kind, components, variant| MapSpec {
         kind,
-        components,
+        dim: components,
         variant,
         ..MapSpec::default()
     };
@@ -742,7 +742,7 @@ fn spec_defaults_and_names() {
     assert_eq!(
         (
             d.kind,
-            d.components,
+            d.dim,
             d.variant,
             d.landmarks,
             d.eig_threshold,

@@ -67,7 +67,7 @@ fn assert_unbiased(model: &Model, x: &Array2<f64>) {
 fn in_memory_sample_is_uniform_whatever_the_row_order() {
     let (_, x, y) = ccpp_sorted_by_at();
     let model = Fitter::new()
-        .with_components(128)
+        .with_dim(128)
         .with_holdout(0.0)
         .with_max_epochs(3)
         .fit(x.view(), y.view())
@@ -89,7 +89,7 @@ fn file_sample_is_uniform_whatever_the_file_order() {
     let columns = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
     let reader = TableReader::new(files, columns);
     let model = Fitter::new()
-        .with_components(128)
+        .with_dim(128)
         .with_max_epochs(3)
         .fit_files(&reader, &Silent, &|_| {})
         .unwrap();
@@ -104,11 +104,11 @@ fn a_constant_target_gives_the_constant_model() {
     let x = x.slice(s![..300, ..]).to_owned();
     let y = Array1::from_elem(300, 450.0);
     let given = Fitter::new()
-        .with_components(64)
+        .with_dim(64)
         .with_gamma(0.5)
         .with_c(10.0)
         .with_epsilon(0.1);
-    for fitter in [given, Fitter::new().with_components(64)] {
+    for fitter in [given, Fitter::new().with_dim(64)] {
         let model = fitter.fit(x.view(), y.view()).unwrap();
         let p = model.predict(x.view());
         assert!(
@@ -125,7 +125,7 @@ fn a_constant_target_gives_the_constant_model() {
 fn the_kept_holdout_is_bounded() {
     let (x, y, _) = friedman1(240_000, 5);
     let model = Fitter::new()
-        .with_components(16)
+        .with_dim(16)
         .with_holdout(0.5)
         .with_max_epochs(1)
         .fit(x.view(), y.view())
@@ -193,14 +193,14 @@ fn settings_are_checked_before_any_file_is_opened() {
 fn errors_come_in_the_right_variant() {
     let (_, x, mut y) = ccpp();
     y[17] = f64::NAN;
-    match Fitter::new().with_components(16).fit(x.view(), y.view()) {
+    match Fitter::new().with_dim(16).fit(x.view(), y.view()) {
         Err(Error::NonFiniteTarget { row: 17 }) => {}
         other => panic!("expected a non-finite target in row 17, got {other:?}"),
     }
     let (_, x, mut y) = ccpp();
     y[3] = 1e300;
     y[4] = -1e300;
-    match Fitter::new().with_components(16).fit(x.view(), y.view()) {
+    match Fitter::new().with_dim(16).fit(x.view(), y.view()) {
         Err(Error::Overflow { column }) => assert_eq!(column, "y"),
         other => panic!("expected an overflowing target, got {other:?}"),
     }
@@ -220,7 +220,7 @@ fn the_defaults_are_written_once() {
     assert_eq!(o.holdout, defaults::HOLDOUT);
     assert_eq!(t.holdout, defaults::HOLDOUT);
     assert_eq!(o.max_epochs, d.max_epochs);
-    assert_eq!(o.map.components, defaults::DIM);
+    assert_eq!(o.map.dim, defaults::DIM);
     let help = Command::new(env!("CARGO_BIN_EXE_kernlake"))
         .args(["fit", "--help"])
         .output()
@@ -252,7 +252,7 @@ fn with_map_keeps_the_seed() {
     let (_, x, y) = ccpp();
     let (x, y) = (x.slice(s![..500, ..]), y.slice(s![..500]));
     let spec = MapSpec {
-        components: 64,
+        dim: 64,
         ..MapSpec::default()
     };
     let a = Fitter::new()

@@ -370,7 +370,7 @@ fn save_leaves_no_temporary_file_and_interrupted_writes_leave_nothing() {
 fn fitted() -> kernlake::model::Model {
     let (x, y, _) = common::friedman1(300, 3);
     kernlake::fit::Fitter::new()
-        .with_components(32)
+        .with_dim(32)
         .with_gamma(0.1)
         .with_c(10.0)
         .with_epsilon(0.1)
@@ -491,4 +491,28 @@ fn output_folders_are_created_whole_or_refused_naming_the_file_in_the_way() {
     std::fs::write(&stale, b"half").unwrap();
     sample_model().save(&deep.join("m.klm")).unwrap();
     assert!(!stale.exists());
+}
+
+#[test]
+fn a_file_written_before_the_problem_was_named_so_still_loads() {
+    // Compatibility: `fixtures/model_before_problem_rename.klm` was written by kernlake
+    // 0.1.0 before the model's C, epsilon and loss were stored as `problem` (they were
+    // under `solver`): `fit` on the first 399 rows of CCPP (dataset: Tüfekci 2014,
+    // tests/data) with -D 8 and every other setting at its default.
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/it/fixtures/model_before_problem_rename.klm");
+    let model = kernlake::Model::load(&path).expect("an older model file loads");
+    assert_eq!(model.weights.len(), 8);
+    assert!(model.problem.c > 0.0 && model.problem.epsilon >= 0.0);
+    assert_eq!(model.problem.loss, kernlake::Loss::L2);
+    // Saved again, the file names the field `problem` and loads back to the same model.
+    let dir = tempfile::tempdir().unwrap();
+    let again = dir.path().join("again.klm");
+    model.save(&again).unwrap();
+    let back = kernlake::Model::load(&again).unwrap();
+    assert_eq!(back.problem, model.problem);
+    assert_eq!(back.weights, model.weights);
+    let bytes = std::fs::read(&again).unwrap();
+    let text = String::from_utf8_lossy(&bytes);
+    assert!(text.contains("\"problem\"") && !text.contains("\"solver\""));
 }

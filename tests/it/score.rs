@@ -29,7 +29,7 @@ const NAMES: [&str; 4] = ["AT", "V", "AP", "RH"];
 fn ccpp_model() -> Model {
     let (_, x, y) = common::ccpp();
     let mut m = Fitter::new()
-        .with_components(128)
+        .with_dim(128)
         .with_gamma(0.5)
         .with_c(50.0)
         .with_epsilon(1.0)

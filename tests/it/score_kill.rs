@@ -62,7 +62,7 @@ fn killed_runs_leave_no_partial_outputs_and_rerun_matches() {
     // Model and data: CCPP (dataset: Tüfekci 2014), rows repeated over 16 files.
     let (names, x, y) = common::ccpp();
     let mut model = Fitter::new()
-        .with_components(256)
+        .with_dim(256)
         .with_gamma(0.5)
         .with_c(50.0)
         .with_epsilon(1.0)

@@ -9,30 +9,13 @@ use kernlake::kernel::Kernel;
 use kernlake::solver::smo::{fit, Loss, Selection, SmoFit, SmoSettings};
 use kernlake::Error;
 use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2, Axis};
-use rand::{Rng, SeedableRng};
-use rand_chacha::ChaCha8Rng;
-use rand_distr::StandardNormal;
 
 // ---------------------------------------------------------------- data
 
 /// Friedman #1 (Friedman, Annals of Statistics 1991): x ~ U[0,1]^10,
-/// y = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5 + N(0,1).
+/// y = 10 sin(π x1 x2) + 20 (x3 − ½)² + 10 x4 + 5 x5 + N(0,1); the shared generator.
 fn friedman1(n: usize, seed: u64) -> (Array2<f64>, Array1<f64>) {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let mut x = Array2::zeros((n, 10));
-    let mut y = Array1::zeros(n);
-    for i in 0..n {
-        for j in 0..10 {
-            x[[i, j]] = rng.random::<f64>();
-        }
-        let r = x.row(i);
-        let noise: f64 = rng.sample(StandardNormal);
-        y[i] = 10.0 * (std::f64::consts::PI * r[0] * r[1]).sin()
-            + 20.0 * (r[2] - 0.5).powi(2)
-            + 10.0 * r[3]
-            + 5.0 * r[4]
-            + noise;
-    }
+    let (x, y, _) = kernlake::testing::friedman1(n, seed);
     (x, y)
 }
 

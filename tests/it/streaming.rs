@@ -25,7 +25,7 @@ fn reader_for(dir: &std::path::Path, block_rows: usize) -> TableReader {
 
 fn fitter() -> Fitter {
     Fitter::new()
-        .with_components(128)
+        .with_dim(128)
         .with_gamma(0.08)
         .with_c(10.0)
         .with_epsilon(0.1)
@@ -114,7 +114,7 @@ fn ccpp_streamed_holdout_matches_the_in_memory_fit() {
     // gamma = 1 as in tests/accuracy.rs; C = 3 (squared loss) so that both fits reach
     // the gap tolerance and are compared at their optimum, not mid-way.
     let f = Fitter::new()
-        .with_components(1_000)
+        .with_dim(1_000)
         .with_gamma(1.0)
         .with_c(3.0)
         .with_seed(2)

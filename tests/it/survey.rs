@@ -307,3 +307,36 @@ fn sample_key_is_splitmix64() {
     assert_eq!(kernlake::data::splitmix64(0, 1), 0x6E78_9E6A_A1B9_65F4);
     assert_eq!(kernlake::data::sample_key(0, 2), 0x06C4_5D18_8009_454F);
 }
+
+#[test]
+fn a_column_with_no_value_at_all_is_named() {
+    // Issue 20: an all-NaN input chosen by the default input set must be named, not
+    // reported as "no row has a value in every chosen column". Data: CCPP (dataset:
+    // Tüfekci 2014) with a fifth input that is NaN in every row.
+    let dir = tempfile::tempdir().unwrap();
+    let rows = ccpp();
+    let names: Vec<String> = ["AT", "V", "AP", "RH", "dead", "PE"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+    let mut cols: Vec<Vec<f64>> = (0..5)
+        .map(|j| rows[..300].iter().map(|r| r[j]).collect())
+        .collect();
+    cols.insert(4, vec![f64::NAN; 300]);
+    let path = dir.path().join("part.parquet");
+    crate::common::write_parquet(&path, &names, &cols);
+    let files = discover(&[path.to_string_lossy().into_owned()]).unwrap();
+    let sel = ColumnSelection {
+        target: Some("PE".into()),
+        ..Default::default()
+    };
+    let columns = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
+    let reader = TableReader::new(files, columns);
+    let settings = SurveySettings {
+        sample_rows: 100,
+        seed: 0,
+        threads: 1,
+    };
+    let err = survey(&reader, &settings, &|_| {}).unwrap_err().to_string();
+    assert!(err.contains("'dead'") && err.contains("300"), "{err}");
+}

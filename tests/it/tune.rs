@@ -87,7 +87,7 @@ fn test_rmse(
         .with_gamma(gamma)
         .with_c(c)
         .with_epsilon(epsilon)
-        .with_components(d)
+        .with_dim(d)
         .with_seed(4)
         .fit(train.0.view(), train.1.view())
         .unwrap();

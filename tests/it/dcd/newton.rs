@@ -44,8 +44,8 @@ fn newton_with_a_sampled_hessian_reaches_the_same_optimum() {
 #[test]
 fn newton_and_coordinate_descent_agree_on_ccpp_with_weak_duality_throughout() {
     // dataset: CCPP (Tüfekci, 2014), 2,000 rows, Gaussian random Fourier features
-    // (Rahimi & Recht 2007), D = 300; the setting of ../shared/CHECKS.md (squared loss,
-    // C = 10, epsilon = 0.05 on the standardized target).
+    // (Rahimi & Recht 2007), D = 300; squared loss,
+    // C = 10, epsilon = 0.05 on the standardized target.
     let (x, y) = ccpp(2_000);
     let z = rff(x.view(), 300, 3);
     let sd = super::support::sd(y.view());

@@ -76,7 +76,7 @@ impl OnMap {
         scaler.apply(xs.view_mut());
         scaler.apply(xt.view_mut());
         let spec = MapSpec {
-            components: d,
+            dim: d,
             seed: 4,
             ..MapSpec::default()
         };
