@@ -23,7 +23,7 @@ use super::search::{run_seed, FoldData, Folds, Run};
 fn map(opts: &TuneOptions, gamma: f64, dim: usize, folds: &Folds) -> Result<Box<dyn FeatureMap>> {
     let kernel = Kernel::new(opts.kernel, gamma)?;
     let spec = MapSpec {
-        dim: dim,
+        dim,
         seed: opts.seed,
         ..opts.map.clone()
     };
