@@ -15,7 +15,7 @@ use crate::common::{self, ccpp, rmse};
 
 /// Airfoil self-noise (dataset: Brooks, Pope & Marcolini, NASA RP-1218, 1989): five
 /// inputs, sound pressure level (dB) last; tab separated, no header.
-fn airfoil() -> (Array2<f64>, Array1<f64>) {
+pub(super) fn airfoil() -> (Array2<f64>, Array1<f64>) {
     table("airfoil_self_noise.tsv", '\t', false)
 }
 
@@ -40,7 +40,7 @@ fn table(name: &str, sep: char, header: bool) -> (Array2<f64>, Array1<f64>) {
 }
 
 /// A seeded 80/20 split: (train x, train y, test x, test y).
-fn split(
+pub(super) fn split(
     x: &Array2<f64>,
     y: &Array1<f64>,
     seed: u64,
@@ -61,7 +61,7 @@ fn split(
 /// standardized, the bias a constant regularised feature), solved through the Gram
 /// matrix of the mapped training rows, which is the same minimisation in n unknowns.
 /// One map per gamma serves every (C, epsilon) pair.
-struct OnMap {
+pub(super) struct OnMap {
     q: Array2<f64>,
     qt: Array2<f64>,
     y: Array1<f64>,
@@ -70,7 +70,12 @@ struct OnMap {
 }
 
 impl OnMap {
-    fn new(train: (&Array2<f64>, &Array1<f64>), test: &Array2<f64>, gamma: f64, d: usize) -> OnMap {
+    pub(super) fn new(
+        train: (&Array2<f64>, &Array1<f64>),
+        test: &Array2<f64>,
+        gamma: f64,
+        d: usize,
+    ) -> OnMap {
         let scaler = Standardizer::fit(train.0.view());
         let (mut xs, mut xt) = (train.0.clone(), test.clone());
         scaler.apply(xs.view_mut());
@@ -100,7 +105,7 @@ impl OnMap {
         }
     }
 
-    fn rmse(&self, c: f64, epsilon: f64, yt: &Array1<f64>) -> f64 {
+    pub(super) fn rmse(&self, c: f64, epsilon: f64, yt: &Array1<f64>) -> f64 {
         let s = solve_l2(self.q.view(), self.y.view(), c, epsilon / self.sd, None).unwrap();
         let p = self.qt.dot(&s.beta).mapv(|f| self.mean + self.sd * f);
         rmse(&p, yt)
@@ -160,14 +165,17 @@ fn tuned_never_worse_than_defaults_beyond_the_folds_standard_error() {
     // Issue 14 check (common practice: a validated choice must not lose to the values it
     // was centred on by more than the validation's own uncertainty): ten seeded 80/20
     // splits of each dataset (Brooks et al. 1989; Yeh 1998); the defaults fitted as a
-    // plain fit does (D = 1,024), the tuned values at the chosen D. To keep the suite's
-    // time, the exact machine validates on 400 rows here and D doubles up to 2,048.
+    // plain fit does (D = 1,024), the tuned values at the chosen D; the standard error is
+    // that of the defaults on the folds that made the choice (the second stage's when it
+    // ran). To keep the suite's time, the exact machine validates on 400 rows here, the
+    // second stage on 800, and D doubles up to 2,048.
     for (name, (x, y)) in [("airfoil", airfoil()), ("concrete", concrete())] {
         for seed in 0..10 {
             let (xtr, ytr, xte, yte) = split(&x, &y, 100 + seed);
             let opts = TuneOptions {
                 seed,
                 exact_rows: 400,
+                refine_rows: 800,
                 max_dim: 2_048,
                 ..TuneOptions::default()
             };
@@ -175,14 +183,14 @@ fn tuned_never_worse_than_defaults_beyond_the_folds_standard_error() {
             let tuned = tuned_rmse(&r, (&xtr, &ytr), (&xte, &yte));
             let d = r.defaults;
             let def = OnMap::new((&xtr, &ytr), &xte, d.gamma, 1_024).rmse(d.c, d.epsilon, &yte);
+            let se = r.refinement.as_ref().map_or(r.default.se, |f| f.default.se);
             eprintln!(
-                "{name} split {seed}: tuned {tuned:.4}, defaults {def:.4} (folds' s.e. {:.4})",
-                r.default.se
+                "{name} split {seed}: tuned {tuned:.4} (gamma ×{:.3}, C ×{:.3}, D = {}), defaults {def:.4} (folds' s.e. {se:.4})",
+                r.best.factors[0], r.best.factors[1], r.chosen_dim
             );
             assert!(
-                tuned <= def + r.default.se,
-                "{name} split {seed}: tuned {tuned} worse than defaults {def} by more than {}",
-                r.default.se
+                tuned <= def + se,
+                "{name} split {seed}: tuned {tuned} worse than defaults {def} by more than {se}"
             );
         }
     }
