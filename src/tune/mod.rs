@@ -30,7 +30,7 @@
 //! budget).
 //!
 //! **The second stage** (squared loss, when the sample has more rows than the exact
-//! stage used; [`refine`]) starts from the exact stage's lowest candidate and scores
+//! stage used; `refine.rs`) starts from the exact stage's lowest candidate and scores
 //! gamma × {1, 2, 4}, C × {1, √10, 10} around it, and the defaults, on up to
 //! `refine_rows` sample rows with the same validation scheme: on the exact machine when
 //! a fold's training rows are at most `refine_dim`, else on the map with D =
