@@ -188,6 +188,9 @@ const TUNE_KEYS: &[&str] = &[
     "epsilon_factors",
     "exact_rows",
     "max_fits",
+    "refine_fits",
+    "refine_rows",
+    "refine_dim",
     "epochs",
     "sweeps",
     "tol",
@@ -244,6 +247,9 @@ pub fn tune_files<'py>(
     };
     o.exact_rows = get(settings, "exact_rows")?.unwrap_or(o.exact_rows);
     o.max_fits = get(settings, "max_fits")?.unwrap_or(o.max_fits);
+    o.refine_fits = get(settings, "refine_fits")?.unwrap_or(o.refine_fits);
+    o.refine_rows = get(settings, "refine_rows")?.unwrap_or(o.refine_rows);
+    o.refine_dim = get(settings, "refine_dim")?.unwrap_or(o.refine_dim);
     o.max_epochs = get(settings, "epochs")?.unwrap_or(o.max_epochs);
     o.sweeps_per_epoch = get(settings, "sweeps")?.unwrap_or(o.sweeps_per_epoch);
     o.tol = get(settings, "tol")?.unwrap_or(o.tol);

@@ -69,6 +69,17 @@ pub struct TuneArgs {
     /// lowest error only within this budget.
     #[arg(long, default_value_t = 150)]
     pub max_fits: usize,
+    /// Candidates of the second stage, cross-validated on every sample row around the
+    /// exact stage's lowest (squared loss; 0 skips it).
+    #[arg(long, default_value_t = 21)]
+    pub refine_fits: usize,
+    /// Rows of the sample the second stage validates on.
+    #[arg(long, default_value_t = 10_000)]
+    pub refine_rows: usize,
+    /// D of the map the second stage scores on when a fold's training rows exceed it
+    /// (else the exact machine; its cost grows like rows × D²).
+    #[arg(long, default_value_t = 1024)]
+    pub refine_dim: usize,
     /// Epoch limit of the linear-loss fits on the map when choosing D.
     #[arg(long, default_value_t = 50)]
     pub epochs: usize,
@@ -182,6 +193,9 @@ impl TuneArgs {
             },
             exact_rows: self.exact_rows,
             max_fits: self.max_fits,
+            refine_fits: self.refine_fits,
+            refine_rows: self.refine_rows,
+            refine_dim: self.refine_dim,
             max_epochs: self.epochs,
             sweeps_per_epoch: self.sweeps,
             tol: self.tol,

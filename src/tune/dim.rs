@@ -1,21 +1,21 @@
 //! The choice of D: the chosen gamma, C and epsilon on the feature map at D = `dim`,
-//! 2·`dim`, … until the map's validation RMSE agrees with the exact machine's.
+//! 2·`dim`, … until the map's validation RMSE agrees with the reference machine's (the
+//! exact machine, or the map the second stage scored on), on the folds that made the
+//! choice.
 //!
 //! For the squared loss the fit on D mapped features is solved through the Gram matrix
-//! of the mapped rows ([`super::exact::solve_l2`]): the same problem as the linear fit
-//! on the features, in n instead of D unknowns. For the linear loss the fold's mapped
+//! of the mapped rows or in the primal, whichever is smaller
+//! ([`super::refine::score_on_map`]). For the linear loss the fold's mapped
 //! rows are trained by dual coordinate descent (Ho & Lin, JMLR 2012).
-
-use ndarray::Array2;
 
 use crate::error::Result;
 use crate::features::{build_map, FeatureMap, MapSpec};
 use crate::kernel::Kernel;
 use crate::solver::dcd::{DcdSettings, Loss};
 
-use super::exact::solve_l2;
 use super::grid::ExactFold;
 use super::options::TuneOptions;
+use super::refine::score_on_map;
 use super::report::DimStep;
 use super::search::{run_seed, FoldData, Folds, Run};
 
@@ -38,21 +38,24 @@ fn map_error(
     (gamma, c, epsilon): (f64, f64, f64),
     dim: usize,
 ) -> Result<f64> {
-    let map = map(opts, gamma, dim, folds)?;
     let (mut sse, mut rows) = (0.0, 0usize);
     match opts.loss {
         Loss::L2 => {
-            for fold in exact {
-                let z = map.transform(fold.x_train.view());
-                let zv = map.transform(fold.x_val.view());
-                let q: Array2<f64> = z.dot(&z.t()).mapv(|v| v + 1.0);
-                let qv: Array2<f64> = zv.dot(&z.t()).mapv(|v| v + 1.0);
-                let sol = solve_l2(q.view(), fold.y_train.view(), c, epsilon / fold.sd, None)?;
-                sse += fold.sse(&qv.dot(&sol.beta));
-                rows += fold.y_val.len();
-            }
+            let s = score_on_map(
+                opts,
+                folds,
+                exact,
+                gamma,
+                dim,
+                &[(1.0, c)],
+                &[(1.0, epsilon)],
+                1.0,
+            )?;
+            sse = s[0].sse.iter().sum();
+            rows = exact.iter().map(|f| f.y_val.len()).sum();
         }
         Loss::L1 => {
+            let map = map(opts, gamma, dim, folds)?;
             let settings = DcdSettings {
                 c,
                 epsilon,
@@ -77,17 +80,21 @@ fn map_error(
 
 /// Tries D on the ladder until one agrees with `exact_error` (within `dim_tol`); returns
 /// the steps tried and the index of the chosen one (the first agreeing, else the
-/// largest tried).
+/// largest tried). `known` is a D whose error on these folds is already measured.
 pub(crate) fn choose_dim(
     opts: &TuneOptions,
     folds: &Folds,
     exact: &[ExactFold],
     params: (f64, f64, f64),
     exact_error: f64,
+    known: Option<(usize, f64)>,
 ) -> Result<(Vec<DimStep>, usize)> {
     let mut steps = Vec::new();
     for d in opts.dim_ladder() {
-        let error = map_error(opts, folds, exact, params, d)?;
+        let error = match known {
+            Some((k, e)) if k == d => e,
+            _ => map_error(opts, folds, exact, params, d)?,
+        };
         let agrees = error.is_finite() && error <= exact_error * (1.0 + opts.dim_tol);
         steps.push(DimStep {
             dim: d,

@@ -38,10 +38,17 @@ fn escape(s: &str) -> String {
         .replace('>', "&gt;")
 }
 
-/// The heat map as an SVG document: rows are gamma factors, columns C factors, at the
-/// epsilon factor of the chosen candidate (factor 1 when the choice is off the grid).
+/// The heat map of the exact stage as an SVG document: rows are gamma factors, columns
+/// C factors, at the epsilon factor of the chosen candidate (of the exact stage's
+/// lowest when a second stage chose; the outline then marks no cell).
 pub fn heatmap_svg(r: &TuneReport) -> String {
-    let eps_index = r.best.grid[2];
+    // The exact stage's grid: at the chosen candidate's epsilon, or the exact stage's
+    // lowest's when a second stage made the choice (its grid indices are its own).
+    let eps_index = if r.refinement.is_some() {
+        r.lowest.grid[2]
+    } else {
+        r.best.grid[2]
+    };
     let (ng, nc) = (r.gamma_factors.len(), r.c_factors.len());
     let mut cells = vec![None; ng * nc];
     for c in &r.candidates {

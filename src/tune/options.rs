@@ -44,6 +44,15 @@ pub struct TuneOptions {
     /// Candidates (each one cross-validated exact fit) the search may evaluate; the grid
     /// grows past an edge holding the lowest error only while this allows.
     pub max_fits: usize,
+    /// Candidates of the second stage (squared loss, when the sample has more rows than
+    /// `exact_rows`): the exact stage's lowest candidate and its neighbours toward
+    /// narrower kernels and larger C, cross-validated on every sample row; 0 skips it.
+    pub refine_fits: usize,
+    /// Rows of the sample the second stage validates on (a seeded random subset).
+    pub refine_rows: usize,
+    /// D of the map the second stage scores on when a fold has more training rows than
+    /// this (else it uses the exact machine); its cost grows like rows × D².
+    pub refine_dim: usize,
     /// Epoch limit of the linear-loss fits on the map when choosing D.
     pub max_epochs: usize,
     /// Coordinate-descent sweeps per epoch (linear loss, when choosing D).
@@ -76,6 +85,9 @@ impl Default for TuneOptions {
             validation: Validation::KFold(3),
             exact_rows: 1_000,
             max_fits: 150,
+            refine_fits: 21,
+            refine_rows: 10_000,
+            refine_dim: 1024,
             max_epochs: 50,
             sweeps_per_epoch: 10,
             tol: 1e-3,
@@ -137,6 +149,9 @@ impl TuneOptions {
         }
         if self.max_fits == 0 {
             return Err(Error::invalid("max fits", "must be at least 1"));
+        }
+        if self.refine_dim == 0 {
+            return Err(Error::invalid("refine dim", "must be at least 1"));
         }
         if self.max_epochs == 0 {
             return Err(Error::invalid("epochs", "must be at least 1"));

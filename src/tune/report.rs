@@ -54,6 +54,32 @@ pub struct DimStep {
     pub agrees: bool,
 }
 
+/// The second stage: the exact stage's best region scored again on every sample row.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Refinement {
+    /// Sample rows it validated on.
+    pub rows: usize,
+    /// D of the map it scored on; `None` when it used the exact machine (a fold's
+    /// training rows at most `refine_dim`).
+    pub dim: Option<usize>,
+    /// Its gamma factors (of the defaults' gamma), after any extension.
+    pub gamma_factors: Vec<f64>,
+    /// Its C factors, after any extension.
+    pub c_factors: Vec<f64>,
+    /// Every candidate, lowest validation RMSE first.
+    pub candidates: Vec<CandidateResult>,
+    /// The candidate with the lowest validation RMSE.
+    pub lowest: CandidateResult,
+    /// The defaults, scored on the same folds.
+    pub default: CandidateResult,
+    /// Candidates it may evaluate.
+    pub max_fits: usize,
+    /// Its grid edges moved this many times.
+    pub extensions: usize,
+    /// The budget ran out with the lowest candidate on an edge.
+    pub budget_reached: bool,
+}
+
 /// The outcome of [`crate::tune::tune`].
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct TuneReport {
@@ -78,7 +104,8 @@ pub struct TuneReport {
     pub lowest: CandidateResult,
     /// The chosen candidate: the simplest (smallest gamma, then smallest C, then largest
     /// epsilon) within one standard error of the lowest (the standard error of its
-    /// per-fold differences to the lowest).
+    /// per-fold differences to the lowest), of the second stage when it ran, else of
+    /// the exact stage.
     pub best: CandidateResult,
     /// Every candidate, lowest validation RMSE first.
     pub candidates: Vec<CandidateResult>,
@@ -96,8 +123,13 @@ pub struct TuneReport {
     pub chosen_error: f64,
     /// Relative tolerance of the agreement with the exact machine.
     pub dim_tol: f64,
+    /// The second stage on every sample row (squared loss, when the sample has more
+    /// rows than the exact stage used).
+    pub refinement: Option<Refinement>,
     /// Wall time of the search on the exact machine (defaults and grid).
     pub grid_seconds: f64,
+    /// Wall time of the second stage and the search over D.
+    pub refine_seconds: f64,
     /// Wall time of the whole search.
     pub seconds: f64,
 }
@@ -114,52 +146,31 @@ fn trim(v: f64) -> String {
     s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
 
-/// The report as text: the ranked table (at most `top` rows), the choice by the
-/// one-standard-error rule, the defaults against it, and the search over D.
-pub fn render_tune(r: &TuneReport, top: usize) -> String {
-    let mut s = String::new();
-    let _ = writeln!(
-        s,
-        "validation search on the exact kernel machine: {} of {} sample rows, {}",
-        r.exact_rows,
-        r.rows,
-        scheme(r.validation)
-    );
-    let _ = writeln!(
-        s,
-        "  {} candidates (budget {}), grid edges moved {} time(s){}, {:.1} s ({:.1} s on the grid)",
-        r.candidates.len(),
-        r.max_fits,
-        r.extensions,
-        if r.budget_reached {
-            "; the budget ran out with the lowest candidate on an edge"
-        } else {
-            ""
-        },
-        r.seconds,
-        r.grid_seconds
-    );
+/// A ranked table of `cands` (at most `top` rows, plus the chosen and the defaults).
+fn candidate_table(
+    s: &mut String,
+    cands: &[CandidateResult],
+    best: &CandidateResult,
+    default: &CandidateResult,
+    top: usize,
+) {
     let _ = writeln!(
         s,
         "\n{:>4}  {:>20}  {:>20}  {:>20}  {:>10}  {:>9}  {:>9}",
         "rank", "gamma", "C", "epsilon", "val. RMSE", "± s.e.", "diff s.e."
     );
-    let shown: Vec<&CandidateResult> = r.candidates.iter().take(top).collect();
+    let shown: Vec<&CandidateResult> = cands.iter().take(top).collect();
     let mut lines: Vec<&CandidateResult> = shown.clone();
-    if !shown.contains(&&r.best) {
-        lines.push(&r.best);
+    if !shown.contains(&best) && cands.contains(best) {
+        lines.push(best);
     }
     if !lines.iter().any(|c| c.is_default) {
-        lines.push(&r.default);
+        lines.push(default);
     }
     for c in lines {
-        let rank = r
-            .candidates
-            .iter()
-            .position(|x| x == c)
-            .map_or(0, |i| i + 1);
+        let rank = cands.iter().position(|x| x == c).map_or(0, |i| i + 1);
         let mut marks = Vec::new();
-        if c == &r.best {
+        if c == best {
             marks.push("chosen");
         } else if c.within_one_se {
             marks.push("within 1 s.e.");
@@ -190,19 +201,75 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
             }
         );
     }
-    if r.candidates.len() > top {
-        let _ = writeln!(s, "   … {} more", r.candidates.len() - top);
+    if cands.len() > top {
+        let _ = writeln!(s, "   … {} more", cands.len() - top);
     }
+}
+
+/// The report as text: the ranked table (at most `top` rows), the choice by the
+/// one-standard-error rule, the defaults against it, and the search over D.
+pub fn render_tune(r: &TuneReport, top: usize) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "validation search on the exact kernel machine: {} of {} sample rows, {}",
+        r.exact_rows,
+        r.rows,
+        scheme(r.validation)
+    );
+    let _ = writeln!(
+        s,
+        "  {} candidates (budget {}), grid edges moved {} time(s){}, {:.1} s ({:.1} s on the grid)",
+        r.candidates.len(),
+        r.max_fits,
+        r.extensions,
+        if r.budget_reached {
+            "; the budget ran out with the lowest candidate on an edge"
+        } else {
+            ""
+        },
+        r.seconds,
+        r.grid_seconds
+    );
+    candidate_table(&mut s, &r.candidates, &r.best, &r.default, top);
     let _ = writeln!(
         s,
         "\nchosen: the simplest candidate (smallest gamma, then smallest C, then largest epsilon) within one standard error of the lowest ({:.5}), the one-standard-error rule of cross-validation (common practice), with the standard error of each candidate's per-fold differences to the lowest (diff s.e.)",
         r.lowest.error
     );
-    let gain = 100.0 * (r.default.error - r.best.error) / r.default.error;
+    let default = r.refinement.as_ref().map_or(&r.default, |f| &f.default);
+    if let Some(f) = &r.refinement {
+        let _ = writeln!(
+            s,
+            "\nsecond stage on {} sample rows ({}, {}), around the lowest candidate above: gamma ×{{1, 2, 4}}, C ×{{1, √10, 10}}, and the defaults; {} candidates (budget {}), grid edges moved {} time(s){}, {:.1} s with the search over D",
+            f.rows,
+            scheme(r.validation),
+            match f.dim {
+                Some(d) => format!("the map with D = {d}"),
+                None => "the exact machine".to_string(),
+            },
+            f.candidates.len(),
+            f.max_fits,
+            f.extensions,
+            if f.budget_reached {
+                "; the budget ran out with the lowest candidate on an edge"
+            } else {
+                ""
+            },
+            r.refine_seconds
+        );
+        candidate_table(&mut s, &f.candidates, &r.best, &f.default, top);
+        let _ = writeln!(
+            s,
+            "\nchosen: the simplest candidate within one standard error of the second stage's lowest ({:.5}), by the same rule",
+            f.lowest.error
+        );
+    }
+    let gain = 100.0 * (default.error - r.best.error) / default.error;
     let _ = writeln!(
         s,
         "defaults (median heuristic; Cherkassky & Ma 2004): val. RMSE {:.5} ± {:.5}; chosen {:.5} ({:.1}% lower)",
-        r.default.error, r.default.se, r.best.error, gain
+        default.error, default.se, r.best.error, gain
     );
     let steps: Vec<String> = r
         .dims
@@ -218,15 +285,19 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
         .collect();
     let _ = writeln!(
         s,
-        "features (agreement: within {:.1}% of the exact machine's {:.5}): {}",
+        "features (agreement: within {:.1}% of the {} {:.5}): {}",
         100.0 * r.dim_tol,
+        match r.refinement.as_ref().and_then(|f| f.dim) {
+            Some(d) => format!("second stage's map (D = {d}),"),
+            None => "exact machine's".to_string(),
+        },
         r.best.error,
         steps.join(", ")
     );
     if !r.dims.iter().any(|d| d.agrees) {
         let _ = writeln!(
             s,
-            "no D tried agrees with the exact machine; the largest is chosen (raise --max-dim)"
+            "no D tried agrees with the reference machine; the largest is chosen (raise --max-dim)"
         );
     }
     let _ = writeln!(

@@ -1,16 +1,18 @@
-//! The grid loop: score every candidate of the current grid on the exact machine, move
-//! any edge that holds the lowest error (within the budget of fits), then choose by the
-//! one-standard-error rule.
+//! The grid loop: score every candidate of the current grid, move any edge that holds a
+//! clearly lowest error (within the budget of fits), then choose by the
+//! one-standard-error rule. The same loop serves both stages: the exact machine on a
+//! sample ([`super::grid`]) and the refinement on every sample row ([`super::refine`]).
 
 use std::collections::HashMap;
 
 use crate::error::{Error, Result};
-use crate::kernel::Kernel;
 
-use super::grid::{key, score_gamma, Axis3, ExactFold, Scored, Table};
-use super::options::TuneOptions;
+use super::grid::{key, Axis3, Scored, Table};
 use super::report::CandidateResult;
 use crate::heuristics::Defaults;
+
+/// Scores every (C, epsilon) pair given (factor, value) at one gamma factor.
+pub(crate) type Scorer<'a> = dyn Fn(f64, &[(f64, f64)], &[(f64, f64)]) -> Result<Vec<Scored>> + 'a;
 
 /// What the grid search found.
 pub(crate) struct Search {
@@ -24,12 +26,12 @@ pub(crate) struct Search {
     pub budget_reached: bool,
 }
 
-/// Scores every grid point of `axes` not yet in `table`.
+/// Scores every grid point of `axes` (and every point of `extra`) not yet in `table`.
 fn fill(
-    opts: &TuneOptions,
-    folds: &[ExactFold],
     d: &Defaults,
     axes: &[Axis3; 3],
+    extra: &[[f64; 3]],
+    score: &Scorer,
     table: &mut Table,
 ) -> Result<()> {
     for &gf in &axes[0].values {
@@ -49,25 +51,42 @@ fn fill(
         if cs.is_empty() {
             continue;
         }
-        let kernel = Kernel::new(opts.kernel, d.gamma * gf)?;
-        for s in score_gamma(folds, &kernel, opts.loss, &cs, &eps, gf)? {
+        for s in score(gf, &cs, &eps)? {
             table.entry(key(s.factors)).or_insert(s);
+        }
+    }
+    for &[gf, cf, ef] in extra {
+        if !table.contains_key(&key([gf, cf, ef])) {
+            for s in score(gf, &[(cf, d.c * cf)], &[(ef, d.epsilon * ef)])? {
+                table.entry(key(s.factors)).or_insert(s);
+            }
         }
     }
     Ok(())
 }
 
 /// Pooled RMSE and the standard error of the per-fold RMSEs.
-fn summary(s: &Scored, folds: &[ExactFold]) -> (f64, f64, Vec<f64>) {
-    let rows: usize = folds.iter().map(|f| f.y_val.len()).sum();
-    let pooled = (s.sse.iter().sum::<f64>() / rows as f64).sqrt();
+fn summary(s: &Scored, rows: &[usize]) -> (f64, f64, Vec<f64>) {
+    let total: usize = rows.iter().sum();
+    let pooled = (s.sse.iter().sum::<f64>() / total as f64).sqrt();
     let per: Vec<f64> = s
         .sse
         .iter()
-        .zip(folds)
-        .map(|(e, f)| (e / f.y_val.len() as f64).sqrt())
+        .zip(rows)
+        .map(|(e, r)| (e / *r as f64).sqrt())
         .collect();
     (pooled, standard_error(&per), per)
+}
+
+/// `a` is lower than its neighbour `b` by more than the standard error of their
+/// per-fold differences (paired over folds); an unscored neighbour counts as higher.
+fn clearly_lower(a: &Scored, b: Option<&Scored>, rows: &[usize]) -> bool {
+    let Some(b) = b else { return true };
+    let (_, _, pa) = summary(a, rows);
+    let (_, _, pb) = summary(b, rows);
+    let diff: Vec<f64> = pb.iter().zip(&pa).map(|(b, a)| b - a).collect();
+    let mean = diff.iter().sum::<f64>() / diff.len().max(1) as f64;
+    mean.is_nan() || mean > standard_error(&diff)
 }
 
 /// Sample standard deviation over √count (0 for fewer than two values).
@@ -97,67 +116,76 @@ fn by_simplicity(a: &CandidateResult, b: &CandidateResult) -> std::cmp::Ordering
         .then(b.factors[2].total_cmp(&a.factors[2]))
 }
 
-/// Runs the grid search on the exact machine's folds around `d`.
-pub(crate) fn search(opts: &TuneOptions, folds: &[ExactFold], d: &Defaults) -> Result<Search> {
-    let mut axes = [
-        Axis3::new(opts.gamma_factors.clone()),
-        Axis3::new(opts.c_factors.clone()),
-        Axis3::new(opts.epsilon_factors.clone()),
-    ];
-    // The defaults are always a candidate.
-    for a in axes.iter_mut() {
-        if !a.values.contains(&1.0) {
-            a.values.push(1.0);
-            a.values.sort_by(f64::total_cmp);
-        }
-    }
+/// Runs the grid search from `axes` within `max_fits` grid points, with validation
+/// folds of `rows` rows each, scoring by `score`; the points of `extra` (such as the
+/// defaults, [1, 1, 1]) are scored too.
+pub(crate) fn search(
+    mut axes: [Axis3; 3],
+    max_fits: usize,
+    rows: &[usize],
+    extra: &[[f64; 3]],
+    d: &Defaults,
+    score: &Scorer,
+) -> Result<Search> {
     let mut table: Table = HashMap::new();
-    let (mut extensions, mut budget_reached) = (0, false);
+    let mut extensions = 0;
+    let mut budget_reached;
     loop {
-        fill(opts, folds, d, &axes, &mut table)?;
+        fill(d, &axes, extra, score, &mut table)?;
+        budget_reached = false;
         let lowest = table
             .values()
-            .filter(|s| {
-                let (e, _, _) = summary(s, folds);
-                e.is_finite()
-            })
+            .filter(|s| summary(s, rows).0.is_finite())
             .min_by(|a, b| {
-                summary(a, folds)
+                summary(a, rows)
                     .0
-                    .total_cmp(&summary(b, folds).0)
+                    .total_cmp(&summary(b, rows).0)
                     .then(a.factors[0].total_cmp(&b.factors[0]))
                     .then(a.factors[1].total_cmp(&b.factors[1]))
                     .then(b.factors[2].total_cmp(&a.factors[2]))
             });
         let Some(lowest) = lowest else { break };
-        let mut next = axes.clone();
+        // An edge moves only when the lowest candidate lies on it and is clearly lower
+        // than its inner neighbour on that axis: a flat axis (epsilon under the squared
+        // loss, typically) does not spend the budget. Axes move one at a time, gamma
+        // first, each while the grid stays within the budget.
         let mut moved = false;
-        for (i, a) in next.iter_mut().enumerate() {
+        for i in 0..3 {
             let v = lowest.factors[i];
             for up in [false, true] {
-                let edge = if up {
-                    a.values.last()
+                let a = &axes[i].values;
+                let (edge, inner) = if up {
+                    (a.last(), a.len().checked_sub(2).map(|k| a[k]))
                 } else {
-                    a.values.first()
+                    (a.first(), a.get(1).copied())
                 };
-                if edge == Some(&v) {
-                    if let Some(f) = a.beyond(up) {
-                        a.values.push(f);
-                        a.values.sort_by(f64::total_cmp);
-                        moved = true;
-                    }
+                if edge != Some(&v) {
+                    continue;
                 }
+                let Some(inner) = inner else { continue };
+                let mut nf = lowest.factors;
+                nf[i] = inner;
+                if !clearly_lower(lowest, table.get(&key(nf)), rows) {
+                    continue;
+                }
+                let Some(f) = axes[i].beyond(up) else {
+                    continue;
+                };
+                let size: usize = (0..3)
+                    .map(|k| axes[k].values.len() + usize::from(k == i))
+                    .product();
+                if size > max_fits {
+                    budget_reached = true;
+                    continue;
+                }
+                axes[i].values.push(f);
+                axes[i].values.sort_by(f64::total_cmp);
+                moved = true;
             }
         }
         if !moved {
             break;
         }
-        let size: usize = next.iter().map(|a| a.values.len()).product();
-        if size > opts.max_fits {
-            budget_reached = true;
-            break;
-        }
-        axes = next;
         extensions += 1;
     }
 
@@ -170,7 +198,7 @@ pub(crate) fn search(opts: &TuneOptions, folds: &[ExactFold], d: &Defaults) -> R
     let mut cands: Vec<CandidateResult> = table
         .values()
         .map(|s| {
-            let (error, se, fold_errors) = summary(s, folds);
+            let (error, se, fold_errors) = summary(s, rows);
             let f = s.factors;
             CandidateResult {
                 gamma: d.gamma * f[0],
@@ -219,7 +247,7 @@ pub(crate) fn search(opts: &TuneOptions, folds: &[ExactFold], d: &Defaults) -> R
         .iter()
         .find(|c| c.is_default)
         .cloned()
-        .expect("the defaults are a candidate");
+        .ok_or_else(|| Error::TuneFailed("the defaults were not scored".into()))?;
     Ok(Search {
         axes: axes_v,
         candidates: cands,

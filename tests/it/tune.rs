@@ -2,6 +2,7 @@
 //! its source.
 
 mod accuracy;
+mod hint;
 
 use crate::common::{self, ccpp, friedman1, rmse};
 use kernlake::fit::Fitter;
@@ -153,11 +154,15 @@ fn friedman1_tuned_no_worse_than_defaults() {
 #[test]
 fn same_seed_same_report_whatever_the_thread_count() {
     // common practice (our determinism contract): one seed, one answer, 1 or 2 threads.
+    // With 200 exact rows of 500 the second stage runs, on the map (D = 64 < its folds'
+    // training rows), whose folds run in parallel.
     let (x, y, _) = friedman1(500, 21);
     let opts = TuneOptions {
         gamma_factors: vec![0.5, 1.0, 2.0],
         c_factors: vec![0.3, 1.0, 3.0],
         epsilon_factors: vec![1.0],
+        exact_rows: 200,
+        refine_dim: 64,
         dim: 64,
         max_dim: 128,
         seed: 5,
@@ -169,8 +174,10 @@ fn same_seed_same_report_whatever_the_thread_count() {
             .build()
             .unwrap();
         let mut r = pool.install(|| tune(x.view(), y.view(), &opts)).unwrap();
+        assert_eq!(r.refinement.as_ref().and_then(|f| f.dim), Some(64));
         r.seconds = 0.0;
         r.grid_seconds = 0.0;
+        r.refine_seconds = 0.0;
         r
     };
     assert_eq!(run(1), run(2));

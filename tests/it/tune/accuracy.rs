@@ -15,7 +15,7 @@ use crate::common::{self, ccpp, rmse};
 
 /// Airfoil self-noise (dataset: Brooks, Pope & Marcolini, NASA RP-1218, 1989): five
 /// inputs, sound pressure level (dB) last; tab separated, no header.
-fn airfoil() -> (Array2<f64>, Array1<f64>) {
+pub(super) fn airfoil() -> (Array2<f64>, Array1<f64>) {
     table("airfoil_self_noise.tsv", '\t', false)
 }
 
@@ -40,7 +40,7 @@ fn table(name: &str, sep: char, header: bool) -> (Array2<f64>, Array1<f64>) {
 }
 
 /// A seeded 80/20 split: (train x, train y, test x, test y).
-fn split(
+pub(super) fn split(
     x: &Array2<f64>,
     y: &Array1<f64>,
     seed: u64,
@@ -61,7 +61,7 @@ fn split(
 /// standardized, the bias a constant regularised feature), solved through the Gram
 /// matrix of the mapped training rows, which is the same minimisation in n unknowns.
 /// One map per gamma serves every (C, epsilon) pair.
-struct OnMap {
+pub(super) struct OnMap {
     q: Array2<f64>,
     qt: Array2<f64>,
     y: Array1<f64>,
@@ -70,7 +70,12 @@ struct OnMap {
 }
 
 impl OnMap {
-    fn new(train: (&Array2<f64>, &Array1<f64>), test: &Array2<f64>, gamma: f64, d: usize) -> OnMap {
+    pub(super) fn new(
+        train: (&Array2<f64>, &Array1<f64>),
+        test: &Array2<f64>,
+        gamma: f64,
+        d: usize,
+    ) -> OnMap {
         let scaler = Standardizer::fit(train.0.view());
         let (mut xs, mut xt) = (train.0.clone(), test.clone());
         scaler.apply(xs.view_mut());
@@ -100,7 +105,7 @@ impl OnMap {
         }
     }
 
-    fn rmse(&self, c: f64, epsilon: f64, yt: &Array1<f64>) -> f64 {
+    pub(super) fn rmse(&self, c: f64, epsilon: f64, yt: &Array1<f64>) -> f64 {
         let s = solve_l2(self.q.view(), self.y.view(), c, epsilon / self.sd, None).unwrap();
         let p = self.qt.dot(&s.beta).mapv(|f| self.mean + self.sd * f);
         rmse(&p, yt)
@@ -116,7 +121,7 @@ fn tuned_rmse(
 }
 
 #[test]
-#[ignore = "issue 14: does not hold yet; airfoil measured 2.545 against the dense grid's 2.377 (the exact machine on 1,000 sample rows picks gamma ×4, the dense grid ×8)"]
+#[ignore = "issue 14: does not hold yet; airfoil measured 2.491 (second stage on all rows: gamma ×4, C ×3.16, D = 4,096) against the dense grid's 2.377 (gamma ×8, picked on the test rows themselves); was 2.545 with the exact stage alone. At D = 4,096 the map on 1,203 rows still differs from the exact machine by 7% (2.53 against 2.37 on validation)"]
 fn airfoil_and_concrete_tuned_within_two_percent_of_a_dense_grid() {
     // Issue 14 check: the smart search must find what a brute-force search finds. The
     // dense grid (gamma × 2^k, k = −3…5; C × 10^k, k = −2…2; epsilon × {¼, 1, 4}; D =
@@ -160,14 +165,17 @@ fn tuned_never_worse_than_defaults_beyond_the_folds_standard_error() {
     // Issue 14 check (common practice: a validated choice must not lose to the values it
     // was centred on by more than the validation's own uncertainty): ten seeded 80/20
     // splits of each dataset (Brooks et al. 1989; Yeh 1998); the defaults fitted as a
-    // plain fit does (D = 1,024), the tuned values at the chosen D. To keep the suite's
-    // time, the exact machine validates on 400 rows here and D doubles up to 2,048.
+    // plain fit does (D = 1,024), the tuned values at the chosen D; the standard error is
+    // that of the defaults on the folds that made the choice (the second stage's when it
+    // ran). To keep the suite's time, the exact machine validates on 400 rows here, the
+    // second stage on 800, and D doubles up to 2,048.
     for (name, (x, y)) in [("airfoil", airfoil()), ("concrete", concrete())] {
         for seed in 0..10 {
             let (xtr, ytr, xte, yte) = split(&x, &y, 100 + seed);
             let opts = TuneOptions {
                 seed,
                 exact_rows: 400,
+                refine_rows: 800,
                 max_dim: 2_048,
                 ..TuneOptions::default()
             };
@@ -175,14 +183,14 @@ fn tuned_never_worse_than_defaults_beyond_the_folds_standard_error() {
             let tuned = tuned_rmse(&r, (&xtr, &ytr), (&xte, &yte));
             let d = r.defaults;
             let def = OnMap::new((&xtr, &ytr), &xte, d.gamma, 1_024).rmse(d.c, d.epsilon, &yte);
+            let se = r.refinement.as_ref().map_or(r.default.se, |f| f.default.se);
             eprintln!(
-                "{name} split {seed}: tuned {tuned:.4}, defaults {def:.4} (folds' s.e. {:.4})",
-                r.default.se
+                "{name} split {seed}: tuned {tuned:.4} (gamma ×{:.3}, C ×{:.3}, D = {}), defaults {def:.4} (folds' s.e. {se:.4})",
+                r.best.factors[0], r.best.factors[1], r.chosen_dim
             );
             assert!(
-                tuned <= def + r.default.se,
-                "{name} split {seed}: tuned {tuned} worse than defaults {def} by more than {}",
-                r.default.se
+                tuned <= def + se,
+                "{name} split {seed}: tuned {tuned} worse than defaults {def} by more than {se}"
             );
         }
     }
@@ -215,7 +223,7 @@ fn ccpp_no_candidate_is_compared_before_it_is_trained() {
 }
 
 #[test]
-#[ignore = "issue 14: does not hold yet; 4.16 MW measured (exact machine on 2,000 sample rows picks a wider kernel than the full data wants)"]
+#[ignore = "issue 14: does not hold on this split; 4.108 MW measured (was 4.163), gamma ×8, D = 1,024; on this split no gamma × {1…16}, C × {0.1…100} at D = 1,024 fits below 4.107 and gamma ×8 at D = 4,096 gives 4.055, so 3.85 is out of reach by the choice of parameters here"]
 fn ccpp_tune_fit_scores_within_the_published_range() {
     // dataset: Tüfekci (2014), CCPP; the paper's best RMSE is about 3.79 MW (from
     // memory), issue 14 asks ≤ 3.85 MW for `tune --fit` on a seeded 80/20 split.
