@@ -188,7 +188,7 @@ pub(crate) fn score_on_map(
 ) -> Result<Vec<Scored>> {
     let kernel = Kernel::new(opts.kernel, gamma)?;
     let spec = MapSpec {
-        components: dim,
+        dim,
         seed: opts.seed,
         ..opts.map.clone()
     };
