@@ -9,7 +9,6 @@
 
 use std::path::PathBuf;
 
-
 use super::csv;
 use super::kind::{kind_of, Kind};
 use super::sources::{CsvOptions, Format, SourceFile};

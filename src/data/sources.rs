@@ -207,7 +207,10 @@ fn remote_objects(input: &str, paths: &mut Vec<PathBuf>) -> Result<()> {
     };
     let found = match remote {
         (r, Some(key)) => {
-            let r = crate::store::Remote { url: input.to_string(), ..r };
+            let r = crate::store::Remote {
+                url: input.to_string(),
+                ..r
+            };
             let found = list::objects_matching(&r, key, is_data)?;
             if found.is_empty() {
                 return Err(Error::invalid(

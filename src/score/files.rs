@@ -80,7 +80,14 @@ pub(crate) fn open_checked(
     match file.format {
         Format::Parquet => {
             let footer = crate::store::parquet::footer(path)?;
-            let plan = Plan::new(model, footer.meta.schema(), &file.partitions, opts, path, false)?;
+            let plan = Plan::new(
+                model,
+                footer.meta.schema(),
+                &file.partitions,
+                opts,
+                path,
+                false,
+            )?;
             let rows = footer.rows().unwrap_or(0);
             let needed = plan.needed();
             let mask = ProjectionMask::roots(footer.meta.parquet_schema(), needed.iter().copied());

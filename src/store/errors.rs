@@ -30,9 +30,7 @@ pub(crate) fn store_error(url: &str, e: object_store::Error) -> Error {
                 "the credentials were refused (check AWS_ACCESS_KEY_ID and AWS_SECRET_ACCESS_KEY)"
                     .into()
             }
-            _ if text.contains("InvalidAccessKeyId")
-                || text.contains("SignatureDoesNotMatch") =>
-            {
+            _ if text.contains("InvalidAccessKeyId") || text.contains("SignatureDoesNotMatch") => {
                 "the credentials were refused (check AWS_ACCESS_KEY_ID and AWS_SECRET_ACCESS_KEY)"
                     .into()
             }

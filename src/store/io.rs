@@ -103,7 +103,9 @@ pub(crate) fn write_all(path: &Path, bytes: &[u8]) -> Result<()> {
 /// upload (parts of 16 MiB, two in flight) that is completed only after every part
 /// went up, and aborted on any failure, so the final key never holds a partial object.
 pub(crate) fn upload_file(from: &Path, to: &Remote) -> Result<()> {
-    let size = std::fs::metadata(from).map_err(|e| Error::io(from, e))?.len();
+    let size = std::fs::metadata(from)
+        .map_err(|e| Error::io(from, e))?
+        .len();
     if size <= PART_BYTES as u64 {
         let bytes = std::fs::read(from).map_err(|e| Error::io(from, e))?;
         return block_on(to.store.put(&to.key, PutPayload::from(bytes)))
@@ -111,8 +113,7 @@ pub(crate) fn upload_file(from: &Path, to: &Remote) -> Result<()> {
             .map_err(|e| store_error(&to.url, e));
     }
     let mut file = std::fs::File::open(from).map_err(|e| Error::io(from, e))?;
-    let upload =
-        block_on(to.store.put_multipart(&to.key)).map_err(|e| store_error(&to.url, e))?;
+    let upload = block_on(to.store.put_multipart(&to.key)).map_err(|e| store_error(&to.url, e))?;
     let mut writer = WriteMultipart::new_with_chunk_size(upload, PART_BYTES);
     let mut buf = vec![0u8; 1 << 20];
     let step = loop {

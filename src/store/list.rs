@@ -4,6 +4,7 @@
 
 use futures_util::stream::TryStreamExt;
 use object_store::path::Path as ObjectPath;
+use object_store::ObjectStoreExt;
 
 use super::{block_on, store_error, Remote};
 use crate::error::{Error, Result};
@@ -29,16 +30,28 @@ fn list_keys(remote: &Remote, prefix: &ObjectPath) -> Result<Vec<ObjectPath>> {
 /// The URLs of the data objects `remote` names, with `is_data` telling data names:
 /// the object itself when it exists, otherwise every data object below it as a folder.
 /// An empty result means the prefix holds no data object.
-pub(crate) fn objects_under(remote: &Remote, is_data: impl Fn(&str) -> bool) -> Result<Vec<String>> {
-    let keys = list_keys(remote, &remote.key)?;
-    if keys.iter().any(|k| *k == remote.key) {
-        return Ok(vec![remote.url.clone()]);
+pub(crate) fn objects_under(
+    remote: &Remote,
+    is_data: impl Fn(&str) -> bool,
+) -> Result<Vec<String>> {
+    // An object named directly (a listing treats the key as a folder).
+    if remote.key.filename().is_some_and(&is_data) {
+        match block_on(remote.store.head(&remote.key)) {
+            Ok(_) => return Ok(vec![remote.url.clone()]),
+            Err(object_store::Error::NotFound { .. }) => {}
+            Err(e) => return Err(store_error(&remote.url, e)),
+        }
     }
+    let keys = list_keys(remote, &remote.key)?;
     let depth = remote.key.parts().count();
     Ok(keys
         .iter()
         .filter(|k| {
-            let parts: Vec<String> = k.parts().skip(depth).map(|p| p.as_ref().to_string()).collect();
+            let parts: Vec<String> = k
+                .parts()
+                .skip(depth)
+                .map(|p| p.as_ref().to_string())
+                .collect();
             !parts.iter().any(|p| hidden(p)) && parts.last().is_some_and(|n| is_data(n))
         })
         .map(|k| remote.url_of(k))
@@ -48,7 +61,11 @@ pub(crate) fn objects_under(remote: &Remote, is_data: impl Fn(&str) -> bool) -> 
 /// The URLs of the data objects matching the glob pattern in `remote`'s key (`*`, `?`,
 /// `[...]` within one level; a pattern matching a folder takes every data object below
 /// it). The listing starts at the pattern's literal leading folders.
-pub(crate) fn objects_matching(remote: &Remote, pattern: &str, is_data: impl Fn(&str) -> bool) -> Result<Vec<String>> {
+pub(crate) fn objects_matching(
+    remote: &Remote,
+    pattern: &str,
+    is_data: impl Fn(&str) -> bool,
+) -> Result<Vec<String>> {
     let parts: Vec<&str> = pattern.trim_end_matches('/').split('/').collect();
     let literal = parts
         .iter()
@@ -71,7 +88,8 @@ pub(crate) fn objects_matching(remote: &Remote, pattern: &str, is_data: impl Fn(
     for k in keys {
         let all: Vec<String> = k.parts().map(|p| p.as_ref().to_string()).collect();
         // The key itself or a folder above it matches the pattern.
-        let hit = (literal + 1..=all.len()).any(|n| glob.matches_with(&all[..n].join("/"), options));
+        let hit =
+            (literal + 1..=all.len()).any(|n| glob.matches_with(&all[..n].join("/"), options));
         if !hit {
             continue;
         }

@@ -88,7 +88,9 @@ pub(crate) fn locate(path: &Path) -> Result<Location> {
     let Some(text) = path.to_str().filter(|s| is_url(s)) else {
         return Ok(Location::Local(path.to_path_buf()));
     };
-    let (scheme, rest) = text.split_once("://").expect("is_url checked the separator");
+    let (scheme, rest) = text
+        .split_once("://")
+        .expect("is_url checked the separator");
     match scheme.to_ascii_lowercase().as_str() {
         "file" => Ok(Location::Local(PathBuf::from(rest))),
         "s3" | "s3a" => {

@@ -106,11 +106,12 @@ impl Footer {
             }
             Bytes::Remote(r, head) => {
                 let reader = ObjectReader::new(&r, head.size);
-                let mut stream = ParquetRecordBatchStreamBuilder::new_with_metadata(reader, self.meta)
-                    .with_projection(mask)
-                    .with_batch_size(batch_rows)
-                    .build()
-                    .map_err(|e| corrupt(&path, e))?;
+                let mut stream =
+                    ParquetRecordBatchStreamBuilder::new_with_metadata(reader, self.meta)
+                        .with_projection(mask)
+                        .with_batch_size(batch_rows)
+                        .build()
+                        .map_err(|e| corrupt(&path, e))?;
                 let (tx, rx) = tokio::sync::mpsc::channel(AHEAD);
                 handle().spawn(async move {
                     while let Some(item) = stream.next().await {
@@ -169,15 +170,30 @@ fn external(e: object_store::Error) -> ParquetError {
 }
 
 impl AsyncFileReader for ObjectReader {
-    fn get_bytes(&mut self, range: Range<u64>) -> BoxFuture<'_, parquet::errors::Result<bytes::Bytes>> {
-        async move { self.store.get_range(&self.key, range).await.map_err(external) }.boxed()
+    fn get_bytes(
+        &mut self,
+        range: Range<u64>,
+    ) -> BoxFuture<'_, parquet::errors::Result<bytes::Bytes>> {
+        async move {
+            self.store
+                .get_range(&self.key, range)
+                .await
+                .map_err(external)
+        }
+        .boxed()
     }
 
     fn get_byte_ranges(
         &mut self,
         ranges: Vec<Range<u64>>,
     ) -> BoxFuture<'_, parquet::errors::Result<Vec<bytes::Bytes>>> {
-        async move { self.store.get_ranges(&self.key, &ranges).await.map_err(external) }.boxed()
+        async move {
+            self.store
+                .get_ranges(&self.key, &ranges)
+                .await
+                .map_err(external)
+        }
+        .boxed()
     }
 
     fn get_metadata<'a>(
