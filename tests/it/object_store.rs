@@ -142,7 +142,10 @@ fn upload_tree(port: u16, bucket: &str, dir: &Path, prefix: &str) {
 
 fn walk(dir: &Path) -> Vec<PathBuf> {
     let mut out = Vec::new();
-    for e in std::fs::read_dir(dir).unwrap() {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return out;
+    };
+    for e in entries {
         let p = e.unwrap().path();
         if p.is_dir() {
             out.extend(walk(&p));
@@ -208,8 +211,8 @@ fn listing_finds_the_same_files_and_partitions_as_a_local_folder() {
             "s3://listing/lake/site=0/day=2/part.parquet".to_string(),
         ),
     ] {
-        let a = discover(&[local.clone()]).unwrap();
-        let b = discover(&[remote.clone()]).unwrap();
+        let a = discover(std::slice::from_ref(&local)).unwrap();
+        let b = discover(std::slice::from_ref(&remote)).unwrap();
         let tail =
             |p: &Path, root: &str| p.to_str().unwrap().strip_prefix(root).unwrap().to_string();
         let la: Vec<_> = a
@@ -498,4 +501,184 @@ fn scoring_a_wide_object_with_a_narrow_model_fetches_only_its_columns() {
         "fetched {fetched} bytes of a {size}-byte object"
     );
     assert!(fetched > 0);
+}
+
+/// A proxy in front of the server that answers the first `fail` connections with
+/// `503 Slow Down` (S3's throttling answer) and forwards the rest unchanged.
+fn throttling_proxy(port: u16, fail: u64) -> u16 {
+    let listener = std::net::TcpListener::bind("127.0.0.1:0").unwrap();
+    let local = listener.local_addr().unwrap().port();
+    std::thread::spawn(move || {
+        let mut seen = 0u64;
+        for client in listener.incoming() {
+            let Ok(mut client) = client else { continue };
+            seen += 1;
+            if seen <= fail {
+                std::thread::spawn(move || {
+                    let mut buf = [0u8; 4096];
+                    let _ = client.read(&mut buf);
+                    let _ = client.write_all(
+                        b"HTTP/1.1 503 Slow Down\r\nContent-Length: 0\r\nConnection: close\r\n\r\n",
+                    );
+                });
+                continue;
+            }
+            let Ok(server) = TcpStream::connect(("127.0.0.1", port)) else {
+                continue;
+            };
+            let (mut c_in, mut s_out) = (client.try_clone().unwrap(), server.try_clone().unwrap());
+            std::thread::spawn(move || {
+                let _ = std::io::copy(&mut c_in, &mut s_out);
+                let _ = s_out.shutdown(std::net::Shutdown::Write);
+            });
+            let (mut s_in, mut c_out) = (server, client);
+            std::thread::spawn(move || {
+                let _ = std::io::copy(&mut s_in, &mut c_out);
+                let _ = c_out.shutdown(std::net::Shutdown::Write);
+            });
+        }
+    });
+    local
+}
+
+#[test]
+fn throttled_requests_are_retried_and_endless_throttling_fails_in_one_sentence() {
+    let Some(s) = server() else { return };
+    let tmp = tempfile::tempdir().unwrap();
+    let lake = tmp.path().join("lake");
+    ccpp_lake(&lake);
+    upload_tree(s.port, "throttled", &lake, "in");
+    let args = ["--target", "PE", "--dim", "64", "--seed", "3", "-q"];
+    let local = tmp.path().join("local.klm");
+    let o = cli(
+        s.port,
+        &[
+            &["fit", lake.to_str().unwrap(), "-o", local.to_str().unwrap()],
+            &args[..],
+        ]
+        .concat(),
+    );
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    // Two refusals: within the two retries the tests allow (common practice: S3 clients
+    // retry 503 Slow Down with backoff).
+    for (fail, ok) in [(2u64, true), (u64::MAX, false)] {
+        let proxy = throttling_proxy(s.port, fail);
+        let remote = tmp.path().join(format!("remote-{ok}.klm"));
+        let o = Command::new(env!("CARGO_BIN_EXE_kernlake"))
+            .args(["fit", "s3://throttled/in/", "-o", remote.to_str().unwrap()])
+            .args(args)
+            .envs(env(s.port))
+            .env("AWS_ENDPOINT_URL", format!("http://127.0.0.1:{proxy}"))
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&o.stderr);
+        if ok {
+            assert!(o.status.success(), "{err}");
+            assert_eq!(
+                std::fs::read(&local).unwrap(),
+                std::fs::read(&remote).unwrap()
+            );
+        } else {
+            assert!(!o.status.success());
+            let lines: Vec<&str> = err.lines().filter(|l| !l.trim().is_empty()).collect();
+            assert_eq!(lines.len(), 1, "{err}");
+            assert!(
+                lines[0].contains("s3://throttled/in") && lines[0].contains("after retries"),
+                "{err}"
+            );
+            assert!(!remote.exists());
+        }
+    }
+}
+
+#[test]
+fn killed_scoring_to_s3_leaves_no_partial_object_and_a_rerun_completes() {
+    let Some(s) = server() else { return };
+    let tmp = tempfile::tempdir().unwrap();
+    let lake = tmp.path().join("lake");
+    ccpp_lake(&lake);
+    upload_tree(s.port, "killing", &lake, "in");
+    let model = tmp.path().join("m.klm");
+    let o = cli(
+        s.port,
+        &[
+            "fit",
+            lake.to_str().unwrap(),
+            "--target",
+            "PE",
+            "--dim",
+            "64",
+            "-q",
+            "-o",
+            model.to_str().unwrap(),
+        ],
+    );
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let reference = tmp.path().join("ref");
+    let o = cli(
+        s.port,
+        &[
+            "score",
+            "-q",
+            model.to_str().unwrap(),
+            lake.to_str().unwrap(),
+            "--out",
+            reference.to_str().unwrap(),
+            "--batch-rows",
+            "500",
+        ],
+    );
+    assert!(o.status.success());
+    let rels: Vec<String> = walk(&reference)
+        .iter()
+        .map(|p| {
+            p.strip_prefix(&reference)
+                .unwrap()
+                .to_str()
+                .unwrap()
+                .to_string()
+        })
+        .collect();
+    let score = || {
+        let mut c = Command::new(env!("CARGO_BIN_EXE_kernlake"));
+        c.args([
+            "score",
+            "-q",
+            model.to_str().unwrap(),
+            "s3://killing/in/",
+            "--out",
+            "s3://killing/out/",
+        ])
+        .args(["--threads", "1", "--batch-rows", "500"])
+        .envs(env(s.port))
+        .stdout(Stdio::null())
+        .stderr(Stdio::null());
+        c
+    };
+    // Every object under a final key, at any moment, is a whole output.
+    let check = |dir: &Path| {
+        for rel in &rels {
+            if let Some(bytes) = fetch("killing", &format!("out/{rel}")) {
+                let to = dir.join(rel);
+                std::fs::create_dir_all(to.parent().unwrap()).unwrap();
+                std::fs::write(to, bytes).unwrap();
+            }
+        }
+        let got = scored_rows(dir);
+        let want: Vec<_> = scored_rows(&reference)
+            .into_iter()
+            .filter(|(r, _)| got.iter().any(|(g, _)| g == r))
+            .collect();
+        assert_eq!(got, want);
+        got.len()
+    };
+    for (k, ms) in [30u64, 150, 400].into_iter().enumerate() {
+        let mut child = score().spawn().unwrap();
+        std::thread::sleep(Duration::from_millis(ms));
+        let _ = child.kill(); // SIGKILL
+        let _ = child.wait();
+        check(&tmp.path().join(format!("after-kill-{k}")));
+    }
+    assert!(score().status().unwrap().success());
+    assert_eq!(check(&tmp.path().join("final")), rels.len());
 }
