@@ -2,11 +2,11 @@
 //! file, and the small asynchronous runtime that talks to the store.
 //!
 //! The rest of the library stays synchronous: every call here blocks on a process-wide
-//! tokio runtime of two worker threads that this module owns ([`block_on`]); Parquet
+//! tokio runtime of two worker threads that this module owns (`block_on`); Parquet
 //! reading spawns its range requests there so that decoding overlaps the network
-//! ([`parquet`]). Object keys travel through the library as `PathBuf`s holding the URL
+//! (`parquet`). Object keys travel through the library as `PathBuf`s holding the URL
 //! text (`s3://bucket/a=1/x.parquet`), so partition folders, file names and messages
-//! work as for local paths; [`locate`] tells the two apart wherever bytes are read or
+//! work as for local paths; `locate` tells the two apart wherever bytes are read or
 //! written.
 //!
 //! S3 (and S3-compatible stores) are configured from the standard environment variables
@@ -15,7 +15,7 @@
 //! `AWS_ALLOW_HTTP`, and `AWS_SKIP_SIGNATURE=true` for anonymous access to a public
 //! bucket. Secrets are never part of a message: errors name the URL and the reason.
 //! Transient failures (throttling, 5xx, timeouts, dropped connections) are retried with
-//! exponential backoff ([`retry_config`]).
+//! exponential backoff (`retry_config`).
 
 mod errors;
 pub(crate) mod io;
