@@ -59,6 +59,8 @@ fn server() -> Option<&'static Server> {
                 .port();
             let child = Command::new(&program)
                 .args(["-H", "127.0.0.1", "-p", &port.to_string()])
+                // Small multipart parts accepted, so that tests exercise multipart uploads.
+                .env("S3_UPLOAD_PART_MIN_SIZE", "16384")
                 .stdout(Stdio::null())
                 .stderr(Stdio::null())
                 .spawn()
@@ -88,6 +90,8 @@ fn env(port: u16) -> Vec<(&'static str, String)> {
         ("AWS_SECRET_ACCESS_KEY", "testing".into()),
         ("AWS_REGION", "us-east-1".into()),
         ("KERNLAKE_STORE_RETRIES", "2".into()),
+        // Outputs above 16 KiB go up as multipart uploads.
+        ("KERNLAKE_STORE_PART_BYTES", "16384".into()),
     ]
 }
 
@@ -344,6 +348,10 @@ fn scoring_to_s3_equals_local_scoring_and_a_rerun_skips() {
         std::fs::create_dir_all(to.parent().unwrap()).unwrap();
         std::fs::write(to, bytes).unwrap();
     }
+    // Each output is larger than one 16 KiB part: every upload above was multipart.
+    assert!(walk(&local_out)
+        .iter()
+        .all(|f| std::fs::metadata(f).unwrap().len() > 16384));
     let (a, b) = (scored_rows(&local_out), scored_rows(&fetched));
     assert_eq!(a.len(), 6);
     assert_eq!(a, b);
