@@ -24,6 +24,7 @@ use kernlake::model::Model;
 /// The running server: its port (the process lives as long as the test binary).
 struct Server {
     port: u16,
+    _stdin: Option<std::process::ChildStdin>,
     _child: Child,
 }
 
@@ -57,8 +58,16 @@ fn server() -> Option<&'static Server> {
                 .local_addr()
                 .unwrap()
                 .port();
-            let child = Command::new(&program)
-                .args(["-H", "127.0.0.1", "-p", &port.to_string()])
+            // The server runs under a shell that stops it when this process's end of
+            // its standard input closes (when the test binary exits, however it exits).
+            let mut child = Command::new("sh")
+                .args([
+                    "-c",
+                    "\"$0\" -H 127.0.0.1 -p \"$1\" & pid=$!; cat >/dev/null; kill $pid",
+                ])
+                .arg(&program)
+                .arg(port.to_string())
+                .stdin(Stdio::piped())
                 // Small multipart parts accepted, so that tests exercise multipart uploads.
                 .env("S3_UPLOAD_PART_MIN_SIZE", "16384")
                 .stdout(Stdio::null())
@@ -73,8 +82,10 @@ fn server() -> Option<&'static Server> {
             for (k, v) in env(port) {
                 std::env::set_var(k, v);
             }
+            let stdin = child.stdin.take();
             Some(Server {
                 port,
+                _stdin: stdin,
                 _child: child,
             })
         })
