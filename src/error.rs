@@ -150,6 +150,18 @@ pub enum Error {
     #[error("the run was interrupted; nothing was written")]
     Interrupted,
 
+    /// A request to an object store failed for good (missing bucket or object, access
+    /// denied, refused credentials, or a transient failure that outlasted the retries).
+    #[error("{url}: {message}")]
+    Store {
+        /// The object or prefix as the user named it (never credentials).
+        url: String,
+        /// The reason, as a clause.
+        message: String,
+        /// The store client's error.
+        source: Box<dyn std::error::Error + Send + Sync>,
+    },
+
     // --- score: batch scoring ---
     /// Scoring of a file stopped part-way because another file failed (its temporary
     /// output was removed; the other file's error is the one reported).

@@ -82,6 +82,7 @@ pub mod scale;
 pub mod score;
 pub mod settings;
 pub mod solver;
+pub mod store;
 #[doc(hidden)]
 pub mod testing;
 pub mod tune;

@@ -108,6 +108,10 @@ pub fn map_spec(map: MapArg, components: usize, phase: bool, kmeans: bool, seed:
 #[derive(Debug, Args, Clone)]
 pub struct SourceArgs {
     /// Parquet or CSV files, folders (searched recursively) or glob patterns.
+    ///
+    /// Object stores: `s3://bucket/prefix/` URLs work the same way (credentials and
+    /// endpoint from AWS_ACCESS_KEY_ID, AWS_SECRET_ACCESS_KEY, AWS_REGION,
+    /// AWS_ENDPOINT_URL, AWS_ALLOW_HTTP; AWS_SKIP_SIGNATURE=true for anonymous access).
     #[arg(required = true, value_name = "SOURCE")]
     pub sources: Vec<String>,
     /// Input columns, comma separated (default: every numeric column but the target).
@@ -141,7 +145,7 @@ pub struct FitArgs {
     /// The column to predict.
     #[arg(long, value_name = "COL")]
     pub target: String,
-    /// Where to write the model.
+    /// Where to write the model (a path or an `s3://bucket/key` URL).
     #[arg(long, short = 'o', value_name = "FILE", default_value = "model.klm")]
     pub out: PathBuf,
     /// Also write the training report as JSON here.

@@ -18,16 +18,22 @@ use crate::score::{
 /// `kernlake score`.
 #[derive(Debug, Args)]
 pub struct ScoreArgs {
-    /// The model file.
+    /// The model file (a path or an `s3://bucket/key` URL).
     #[arg(value_name = "MODEL")]
     pub model: PathBuf,
     /// Parquet or CSV files, folders (searched recursively) or glob patterns; `-` reads
     /// an Arrow IPC stream from standard input.
+    ///
+    /// Object stores: `s3://bucket/prefix/` URLs work the same way (credentials and
+    /// endpoint from AWS_ACCESS_KEY_ID, AWS_SECRET_ACCESS_KEY, AWS_REGION,
+    /// AWS_ENDPOINT_URL, AWS_ALLOW_HTTP; AWS_SKIP_SIGNATURE=true for anonymous access).
+
     #[arg(required = true, value_name = "SOURCE")]
     pub sources: Vec<String>,
     /// Output folder (one Parquet file per input, mirroring the input folders; a CSV
-    /// input's output ends in .parquet), or `-` for an Arrow IPC stream on standard
-    /// output.
+    /// input's output ends in .parquet), an `s3://bucket/prefix/` URL (each object
+    /// uploaded whole, so it appears only complete), or `-` for an Arrow IPC stream on
+    /// standard output.
     #[arg(long, short = 'o', value_name = "DIR")]
     pub out: String,
     /// Input columns copied to the output, comma separated (default: every column that

@@ -9,11 +9,9 @@
 
 use std::path::PathBuf;
 
-use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
-
 use super::csv;
 use super::kind::{kind_of, Kind};
-use super::sources::{corrupt, CsvOptions, Format, SourceFile};
+use super::sources::{CsvOptions, Format, SourceFile};
 use crate::error::{Error, Result};
 
 /// Which columns to use; by default every numeric column but the target.
@@ -75,13 +73,11 @@ pub(crate) fn file_schema(file: &SourceFile, csv_opts: &CsvOptions) -> Result<Op
             }
         })),
         Format::Parquet => {
-            let f = std::fs::File::open(&file.path).map_err(|e| Error::io(&file.path, e))?;
-            let builder =
-                ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| corrupt(&file.path, e))?;
-            let meta = builder.metadata();
+            let footer = crate::store::parquet::footer(&file.path)?;
+            let meta = footer.meta.metadata();
             let rows = meta.file_metadata().num_rows();
-            let fields = builder.schema().fields();
-            let flat = builder.parquet_schema().num_columns() == fields.len();
+            let fields = footer.meta.schema().fields();
+            let flat = footer.meta.parquet_schema().num_columns() == fields.len();
             let all_null = |j: usize| -> bool {
                 flat && rows > 0 && {
                     let nulls: Option<i64> = meta.row_groups().iter().try_fold(0i64, |acc, rg| {

@@ -11,7 +11,6 @@
 //! the missing-value policy (skipped and counted, or an error naming file, row and
 //! column), so that one stray cell never drops a whole column.
 
-use std::fs::File;
 use std::path::Path;
 use std::sync::Arc;
 
@@ -28,11 +27,11 @@ use crate::error::{Error, Result};
 pub(crate) const INFER_RECORDS: usize = 1_000;
 
 /// A CSV reader yielding Arrow batches of text columns.
-pub(crate) type CsvBatches = arrow_csv::Reader<File>;
+pub(crate) type CsvBatches = arrow_csv::Reader<Box<dyn std::io::Read + Send>>;
 
 /// Column names from the header row (empty for an empty file).
 pub(crate) fn header(path: &Path, opts: &CsvOptions) -> Result<Vec<String>> {
-    let file = File::open(path).map_err(|e| Error::io(path, e))?;
+    let file = crate::store::io::open_read(path)?;
     let (schema, _) = CsvFormat::default()
         .with_header(true)
         .with_delimiter(opts.delimiter)
@@ -58,7 +57,7 @@ pub(crate) fn open(
             .map(|n| Field::new(n, DataType::Utf8, true))
             .collect::<Vec<_>>(),
     );
-    let file = File::open(path).map_err(|e| Error::io(path, e))?;
+    let file = crate::store::io::open_read(path)?;
     arrow_csv::ReaderBuilder::new(Arc::new(schema))
         .with_header(true)
         .with_delimiter(opts.delimiter)

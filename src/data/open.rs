@@ -8,12 +8,11 @@ use arrow_array::cast::AsArray;
 use arrow_array::types::Float64Type;
 use arrow_array::{Array, Float64Array, RecordBatch};
 use arrow_schema::DataType;
-use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
 
 use super::csv::{self, CsvBatches};
 use super::kind::is_numeric;
-use super::sources::{corrupt, CsvOptions, Format, SourceFile};
+use super::sources::{CsvOptions, Format, SourceFile};
 use crate::error::{Error, Result};
 
 /// Where a chosen column's values come from in one open file.
@@ -26,7 +25,7 @@ pub(crate) enum Source {
 
 /// The batches of one open file.
 pub(crate) enum Batches {
-    Parquet(ParquetRecordBatchReader),
+    Parquet(crate::store::parquet::Batches),
     Csv(Box<CsvBatches>),
 }
 
@@ -117,9 +116,8 @@ pub(crate) fn open_parquet(
     batch_rows: usize,
 ) -> Result<Option<(Batches, Vec<Source>)>> {
     let path: &Path = &file.path;
-    let f = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
-    let builder = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| corrupt(path, e))?;
-    let schema = builder.schema().clone();
+    let footer = crate::store::parquet::footer(path)?;
+    let schema = footer.meta.schema().clone();
     let file_columns: Vec<String> = schema.fields().iter().map(|f| f.name().clone()).collect();
     let (present, sources) = place_columns(file, &file_columns, names, |i| {
         let dt = schema.field(i).data_type();
@@ -133,12 +131,8 @@ pub(crate) fn open_parquet(
             })
         }
     })?;
-    let mask = ProjectionMask::roots(builder.parquet_schema(), present);
-    let reader = builder
-        .with_projection(mask)
-        .with_batch_size(batch_rows)
-        .build()
-        .map_err(|e| corrupt(path, e))?;
+    let mask = ProjectionMask::roots(footer.meta.parquet_schema(), present);
+    let reader = footer.batches(mask, batch_rows)?;
     Ok(Some((Batches::Parquet(reader), sources)))
 }
 

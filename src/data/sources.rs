@@ -8,10 +8,7 @@
 //! files, `_SUCCESS` markers, hidden folders); a file named directly is always used.
 
 use std::collections::HashSet;
-use std::fs::File;
 use std::path::{Component, Path, PathBuf};
-
-use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 
 use crate::error::{Error, Result};
 
@@ -105,15 +102,9 @@ pub(crate) fn corrupt(path: &Path, e: impl std::fmt::Display) -> Error {
     }
 }
 
-/// Row count of a Parquet file from its footer.
+/// Row count of a Parquet file or object from its footer.
 fn parquet_rows(path: &Path) -> Result<u64> {
-    let file = File::open(path).map_err(|e| Error::io(path, e))?;
-    let builder = ParquetRecordBatchReaderBuilder::try_new(file).map_err(|e| corrupt(path, e))?;
-    let rows = builder.metadata().file_metadata().num_rows();
-    u64::try_from(rows).map_err(|_| Error::File {
-        path: path.to_path_buf(),
-        message: format!("has a negative row count ({rows}) in its footer"),
-    })
+    crate::store::parquet::footer(path)?.rows()
 }
 
 /// `key=value` components of the folders holding `path`, outermost first.
@@ -190,6 +181,60 @@ pub fn discover_lenient(inputs: &[String]) -> Result<Vec<SourceFile>> {
     discover_files(inputs, true)
 }
 
+/// The data objects an object-store URL names: the object itself, every data object
+/// below it as a folder, or those matching a glob pattern in its key.
+fn remote_objects(input: &str, paths: &mut Vec<PathBuf>) -> Result<()> {
+    use crate::store::{list, locate, Location};
+    let is_data = |name: &str| Format::from_path(Path::new(name)).is_some();
+    let pattern = input
+        .split_once("://")
+        .and_then(|(_, rest)| rest.split_once('/'))
+        .map(|(_, key)| key)
+        .filter(|key| is_pattern(key));
+    let remote = match pattern {
+        // The client is built from the pattern's bucket; the key is listed by pattern.
+        Some(key) => {
+            let bucket_url = &input[..input.len() - key.len()];
+            match locate(Path::new(bucket_url))? {
+                Location::Remote(r) => (r, Some(key)),
+                Location::Local(_) => unreachable!("is_remote checked the scheme"),
+            }
+        }
+        None => match locate(Path::new(input))? {
+            Location::Remote(r) => (r, None),
+            Location::Local(_) => unreachable!("is_remote checked the scheme"),
+        },
+    };
+    let found = match remote {
+        (r, Some(key)) => {
+            let r = crate::store::Remote {
+                url: input.to_string(),
+                ..r
+            };
+            let found = list::objects_matching(&r, key, is_data)?;
+            if found.is_empty() {
+                return Err(Error::invalid(
+                    "inputs",
+                    format!("the pattern '{input}' matches no data object"),
+                ));
+            }
+            found
+        }
+        (r, None) => {
+            let found = list::objects_under(&r, is_data)?;
+            if found.is_empty() {
+                return Err(Error::File {
+                    path: PathBuf::from(input),
+                    message: "holds no data objects (.parquet, .parq or .csv)".into(),
+                });
+            }
+            found
+        }
+    };
+    paths.extend(found.into_iter().map(PathBuf::from));
+    Ok(())
+}
+
 fn discover_files(inputs: &[String], lenient: bool) -> Result<Vec<SourceFile>> {
     if inputs.is_empty() {
         return Err(Error::invalid(
@@ -199,8 +244,12 @@ fn discover_files(inputs: &[String], lenient: bool) -> Result<Vec<SourceFile>> {
     }
     let mut paths = Vec::new();
     for input in inputs {
+        // `file://` URLs are local paths.
+        let input = input.strip_prefix("file://").unwrap_or(input);
         let path = Path::new(input);
-        if path.exists() {
+        if crate::store::is_remote(path) {
+            remote_objects(input, &mut paths)?;
+        } else if path.exists() {
             if path.is_dir() {
                 let before = paths.len();
                 walk(path, &mut paths)?;

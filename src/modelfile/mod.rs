@@ -151,25 +151,30 @@ impl ModelFile {
     }
 
     /// Writes the model to `path` atomically: the file appears complete under its name or
-    /// not at all.
+    /// not at all. An object-store URL (`s3://bucket/key`) is written by one request, so
+    /// the object too appears only complete.
     ///
     /// # Errors
-    /// [`Error::Io`] naming the path when the folder is missing or not writable, and those
-    /// of [`ModelFile::to_bytes`].
+    /// [`Error::Io`] naming the path when the folder is missing or not writable,
+    /// [`Error::Store`] for a refused upload, and those of [`ModelFile::to_bytes`].
     pub fn save(&self, path: &Path) -> Result<()> {
         let bytes = self.to_bytes()?;
+        if crate::store::is_remote(path) {
+            return crate::store::io::write_all(path, &bytes);
+        }
         write_atomic(path, |file| {
             use std::io::Write;
             file.write_all(&bytes).map_err(|e| Error::io(path, e))
         })
     }
 
-    /// Reads a model from `path`.
+    /// Reads a model from `path` (a file, or an object-store URL).
     ///
     /// # Errors
-    /// [`Error::Io`] if the file cannot be read, and those of [`ModelFile::from_bytes`].
+    /// [`Error::Io`] if the file cannot be read, [`Error::Store`] if the object cannot,
+    /// and those of [`ModelFile::from_bytes`].
     pub fn load(path: &Path) -> Result<ModelFile> {
-        let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+        let bytes = crate::store::io::read_all(path)?;
         ModelFile::from_bytes(&bytes, path)
     }
 

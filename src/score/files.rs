@@ -1,7 +1,6 @@
 //! The file-by-file driver: workers take files in turn, check each against the contract,
 //! stream its batches through the model and write the output atomically.
 
-use std::fs::File;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::sync::Mutex;
@@ -9,7 +8,6 @@ use std::time::Instant;
 
 use arrow_array::RecordBatch;
 use arrow_schema::{DataType, Field, Schema};
-use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
 
 use super::batch::{score_planned, Plan};
@@ -45,7 +43,7 @@ pub(crate) struct SourceBatches {
 }
 
 enum Inner {
-    Parquet(ParquetRecordBatchReader),
+    Parquet(crate::store::parquet::Batches),
     Csv(Box<CsvBatches>),
 }
 
@@ -81,18 +79,19 @@ pub(crate) fn open_checked(
     let path = &file.path;
     match file.format {
         Format::Parquet => {
-            let f = File::open(path).map_err(|e| Error::io(path, e))?;
-            let builder =
-                ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(path, e))?;
-            let plan = Plan::new(model, builder.schema(), &file.partitions, opts, path, false)?;
-            let rows = u64::try_from(builder.metadata().file_metadata().num_rows()).unwrap_or(0);
+            let footer = crate::store::parquet::footer(path)?;
+            let plan = Plan::new(
+                model,
+                footer.meta.schema(),
+                &file.partitions,
+                opts,
+                path,
+                false,
+            )?;
+            let rows = footer.rows().unwrap_or(0);
             let needed = plan.needed();
-            let mask = ProjectionMask::roots(builder.parquet_schema(), needed.iter().copied());
-            let reader = builder
-                .with_projection(mask)
-                .with_batch_size(opts.batch_rows)
-                .build()
-                .map_err(|e| unreadable(path, e))?;
+            let mask = ProjectionMask::roots(footer.meta.parquet_schema(), needed.iter().copied());
+            let reader = footer.batches(mask, opts.batch_rows)?;
             let batches = SourceBatches {
                 inner: Inner::Parquet(reader),
                 path: path.clone(),

@@ -5,7 +5,6 @@ use std::collections::HashMap;
 use std::fs::File;
 use std::path::{Component, Path, PathBuf};
 
-use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 use parquet::arrow::ArrowWriter;
 use parquet::basic::Compression;
 use parquet::file::metadata::KeyValue;
@@ -32,6 +31,9 @@ pub(crate) struct Stamp {
     pub input_bytes: u64,
     /// Input modification time, nanoseconds since the Unix epoch.
     pub input_modified_ns: u64,
+    /// An object input's entity tag and version (`etag/version`); empty for a file.
+    #[serde(default)]
+    pub input_tag: String,
     /// Rows in the input file (from its footer).
     pub input_rows: u64,
     /// CRC-32 of the model's encoded bytes, 8 hex digits.
@@ -58,17 +60,33 @@ impl Stamp {
         model_crc32: &str,
         settings: &str,
     ) -> Result<Stamp> {
-        let meta = std::fs::metadata(input).map_err(|e| Error::io(input, e))?;
-        let modified = meta
-            .modified()
-            .ok()
-            .and_then(|t| t.duration_since(std::time::UNIX_EPOCH).ok())
-            .map(|d| d.as_nanos() as u64)
-            .unwrap_or(0);
+        let (bytes, modified, tag) = match crate::store::locate(input)? {
+            crate::store::Location::Local(p) => {
+                let meta = std::fs::metadata(&p).map_err(|e| Error::io(&p, e))?;
+                let modified = meta
+                    .modified()
+                    .ok()
+                    .and_then(|t| t.duration_since(std::time::UNIX_EPOCH).ok())
+                    .map(|d| d.as_nanos() as u64)
+                    .unwrap_or(0);
+                (meta.len(), modified, String::new())
+            }
+            crate::store::Location::Remote(r) => {
+                let meta = crate::store::io::head(&r)?;
+                let modified = meta.last_modified.timestamp_nanos_opt().unwrap_or(0) as u64;
+                let tag = format!(
+                    "{}/{}",
+                    meta.e_tag.as_deref().unwrap_or(""),
+                    meta.version.as_deref().unwrap_or("")
+                );
+                (meta.size, modified, tag)
+            }
+        };
         Ok(Stamp {
             version: STAMP_VERSION,
-            input_bytes: meta.len(),
+            input_bytes: bytes,
             input_modified_ns: modified,
+            input_tag: tag,
             input_rows: rows,
             model_crc32: model_crc32.to_string(),
             settings: settings.to_string(),
@@ -91,9 +109,9 @@ pub(crate) fn complete_stamp(
     expected: &Stamp,
     check_input_rows: bool,
 ) -> Option<Stamp> {
-    let file = File::open(output).ok()?;
-    let builder = ParquetRecordBatchReaderBuilder::try_new(file).ok()?;
-    let meta = builder.metadata().file_metadata();
+    let remote = crate::store::is_remote(output);
+    let footer = crate::store::parquet::footer(output).ok()?;
+    let meta = footer.meta.metadata().file_metadata();
     let stamp = meta
         .key_value_metadata()
         .and_then(|kv| kv.iter().find(|k| k.key == STAMP_KEY))
@@ -113,6 +131,11 @@ pub(crate) fn complete_stamp(
     };
     if stamp.output_rows != rows || comparable != *expected {
         return None;
+    }
+    if remote {
+        // An object appears only once its upload is complete (whole put or completed
+        // multipart upload), so its footer stands for its pages.
+        return Some(stamp);
     }
     (data_crc32(output, stamp.data_bytes).ok()? == stamp.data_crc32).then_some(stamp)
 }
@@ -172,6 +195,20 @@ impl std::io::Write for Summing {
 pub(crate) struct OutputFile {
     writer: ArrowWriter<Summing>,
     rows: u64,
+    /// For an object output: the object, and the local staging file uploaded whole
+    /// once complete.
+    upload: Option<(crate::store::Remote, PathBuf)>,
+}
+
+/// A local staging path for an object output (in the system's temporary folder).
+fn staging_path() -> Result<PathBuf> {
+    use std::sync::atomic::{AtomicU64, Ordering};
+    static NEXT: AtomicU64 = AtomicU64::new(0);
+    let dir = std::env::temp_dir().join("kernlake-upload");
+    std::fs::create_dir_all(&dir).map_err(|e| Error::io(&dir, e))?;
+    crate::atomic::remove_stale_temps(&dir)?;
+    let n = NEXT.fetch_add(1, Ordering::SeqCst);
+    Ok(dir.join(format!("{}-{n}.parquet", std::process::id())))
 }
 
 impl OutputFile {
@@ -182,17 +219,29 @@ impl OutputFile {
         schema: arrow_schema::SchemaRef,
         row_group_rows: usize,
     ) -> Result<OutputFile> {
-        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
+        let upload = match crate::store::locate(path)? {
+            crate::store::Location::Remote(r) => Some((r, staging_path()?)),
+            crate::store::Location::Local(_) => None,
+        };
+        let local = match &upload {
+            Some((_, staging)) => staging.as_path(),
+            None => path,
+        };
+        if let Some(dir) = local.parent().filter(|d| !d.as_os_str().is_empty()) {
             create_dir_durable(dir)?;
         }
-        let atomic = Summing::new(AtomicFile::create(path)?);
+        let atomic = Summing::new(AtomicFile::create(local)?);
         let props = WriterProperties::builder()
             .set_compression(Compression::SNAPPY)
             .set_max_row_group_row_count(Some(row_group_rows.max(1)))
             .build();
         let writer =
             ArrowWriter::try_new(atomic, schema, Some(props)).map_err(|e| write_error(path, e))?;
-        Ok(OutputFile { writer, rows: 0 })
+        Ok(OutputFile {
+            writer,
+            rows: 0,
+            upload,
+        })
     }
 
     /// Appends one batch.
@@ -216,6 +265,11 @@ impl OutputFile {
             .append_key_value_metadata(KeyValue::new(STAMP_KEY.to_string(), json));
         let sum = self.writer.into_inner().map_err(|e| write_error(path, e))?;
         sum.inner.commit()?;
+        if let Some((remote, staging)) = &self.upload {
+            let sent = crate::store::io::upload_file(staging, remote);
+            let _ = std::fs::remove_file(staging);
+            sent?;
+        }
         Ok(self.rows)
     }
 }
@@ -278,10 +332,19 @@ pub(crate) fn common_root(files: &[PathBuf]) -> PathBuf {
 pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<PathBuf>> {
     let mut abs = Vec::with_capacity(inputs.len());
     for p in inputs {
-        abs.push(p.canonicalize().map_err(|e| Error::io(p, e))?);
+        if crate::store::is_remote(p) {
+            abs.push(p.clone());
+        } else {
+            abs.push(p.canonicalize().map_err(|e| Error::io(p, e))?);
+        }
     }
     let root = common_root(&abs);
-    let out = absolute(out_dir)?;
+    let remote_out = crate::store::is_remote(out_dir);
+    let out = if remote_out {
+        out_dir.to_path_buf()
+    } else {
+        absolute(out_dir)?
+    };
     if out.starts_with(&root) {
         return Err(Error::invalid(
             "output folder",
@@ -317,6 +380,14 @@ pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<Pat
             });
         }
         seen.insert(o, i);
+    }
+    if remote_out {
+        // Reach the bucket before any data is read: a missing bucket or refused
+        // credentials fail here with one sentence naming the output URL.
+        if let crate::store::Location::Remote(r) = crate::store::locate(out_dir)? {
+            crate::store::list::objects_under(&r, |_| false)?;
+        }
+        return Ok(outputs);
     }
     create_dir_durable(out_dir)?;
     // Probe that the folder takes files (create then drop a temporary file).

@@ -14,6 +14,7 @@ mod kernel;
 mod layers;
 mod metrics;
 mod modelfile;
+mod object_store;
 mod score;
 mod score_kill;
 mod smo;
