@@ -95,7 +95,12 @@ mod tests {
     /// differences.
     #[test]
     fn side_matches_direct_minimisation_and_differences() {
-        for &(a, c, mu) in &[(0.3, 2.0, 0.05), (-0.7, 1.0, 0.01), (0.0, 5.0, 1e-3), (2.0, 0.5, 1e-6)] {
+        for &(a, c, mu) in &[
+            (0.3, 2.0, 0.05),
+            (-0.7, 1.0, 0.01),
+            (0.0, 5.0, 1e-3),
+            (2.0, 0.5, 1e-6),
+        ] {
             let g = |x: f64| c * x - mu * x.ln() - mu * (x + a).ln();
             let (mut lo, mut hi) = ((-a).max(0.0) + 1e-15, (-a).max(0.0) + 10.0);
             for _ in 0..300 {
@@ -108,7 +113,11 @@ mod tests {
                 }
             }
             let (v, alpha, theta) = side(a, c, mu);
-            assert!((v - g(lo)).abs() <= 1e-9 * (1.0 + v.abs()), "{a} {v} {}", g(lo));
+            assert!(
+                (v - g(lo)).abs() <= 1e-9 * (1.0 + v.abs()),
+                "{a} {v} {}",
+                g(lo)
+            );
             let h = 1e-6 * (1.0 + a.abs());
             let d1 = (side(a + h, c, mu).0 - side(a - h, c, mu).0) / (2.0 * h);
             assert!((d1 + alpha).abs() <= 1e-5 * (1.0 + alpha), "{d1} {alpha}");

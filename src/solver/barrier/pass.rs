@@ -156,12 +156,7 @@ impl BarrierPass {
                 .map(|(k, a)| {
                     let lo = k * CHUNK;
                     let hi = (lo + CHUNK).min(n);
-                    chunk(
-                        plan,
-                        z.slice(s![lo..hi, ..]),
-                        y.slice(s![lo..hi]),
-                        a,
-                    )
+                    chunk(plan, z.slice(s![lo..hi, ..]), y.slice(s![lo..hi]), a)
                 })
                 .collect::<Vec<Sums>>()
         };

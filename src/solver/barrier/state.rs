@@ -57,6 +57,11 @@ impl BarrierState {
         }
     }
 
+    /// The best dual value certified so far (a lower bound on the optimum).
+    pub fn dual(&self) -> f64 {
+        self.dual
+    }
+
     /// Empty statistics for the next pass.
     pub fn accumulator(&self) -> BarrierPass {
         let dim = self.w.len() - 1;
@@ -172,9 +177,6 @@ impl BarrierState {
         } else {
             self.mu
         };
-        if std::env::var_os("KL_BARRIER_DEBUG").is_some() {
-            eprintln!("t {t} mu {:.3e} lambda2 {:.3e} hess_at {} f0 {:.12e}", self.mu, self.decrement, plan.hess_at, self.f0);
-        }
         self.dir = Some(dir);
         self.w = w;
         Ok(Step::Certified {
@@ -189,9 +191,17 @@ impl BarrierState {
 /// β (cap = C / max|β_i| keeps |sβ_i| ≤ C; s = 1 is β itself), with a = ‖Σβ_i ẑ_i‖²
 /// and b = yᵀβ − ε‖β‖₁ (a standard dual scaling for duality-gap stopping rules).
 fn scaled_dual(a: f64, b: f64, cap: f64) -> f64 {
-    let s = if a > 0.0 { (b / a).clamp(0.0, cap) } else { 0.0 };
+    let s = if a > 0.0 {
+        (b / a).clamp(0.0, cap)
+    } else {
+        0.0
+    };
     let best = s * b - 0.5 * s * s * a;
-    best.max(if cap >= 1.0 { b - 0.5 * a } else { f64::NEG_INFINITY })
+    best.max(if cap >= 1.0 {
+        b - 0.5 * a
+    } else {
+        f64::NEG_INFINITY
+    })
 }
 
 fn certificate(primal: f64, dual: f64) -> Objective {
