@@ -38,7 +38,7 @@
 //! on a grid of steps (the line search), and at a few candidate steps the gradient of
 //! φ at the next barrier weight, the dual terms and the unsmoothed loss; the Hessian
 //! Σ θ_i ẑ_i ẑ_iᵀ at the step chosen in advance. The next barrier weight is chosen
-//! before the pass from the Newton decrement λ (μ ← μ/[`SHRINK`] when λ² is small).
+//! before the pass from the Newton decrement λ (μ falls tenfold when λ² is small).
 
 mod fit;
 mod pass;

@@ -46,7 +46,7 @@ pub(super) struct Sums {
     pub beta_max: Vec<f64>,
     /// Rows outside the tube.
     pub active: Vec<u64>,
-    /// yᵀβ̂ and ‖β̂‖₁ of the Newton-predicted duals at the full step (see [`chunk`]);
+    /// yᵀβ̂ and ‖β̂‖₁ of the Newton-predicted duals at the full step (see `chunk`);
     /// Σ β̂_i ẑ_i is the last row of `grad`.
     pub hat_y: CompensatedSum,
     pub hat_l1: CompensatedSum,
