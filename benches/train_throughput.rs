@@ -11,7 +11,7 @@
 //! epochs and wall time to the gap tolerance, and the peak resident set size.
 //!
 //! `cargo bench --bench train_throughput -- [--rows N] [--dim D] [--epochs E]
-//! [--tol T] [--memory BYTES] [--dir PATH] [--solver auto|dual|newton] [--hessian-rows N]`.
+//! [--tol T] [--memory BYTES] [--dir PATH] [--solver auto|dual|newton|barrier] [--hessian-rows N]`.
 //! Without `--bench` (as under `cargo test`) it
 //! runs a tiny smoke configuration.
 
@@ -66,6 +66,7 @@ fn main() {
     let method = match solver.as_str() {
         "dual" => Method::Dual,
         "newton" => Method::Newton,
+        "barrier" => Method::Barrier,
         _ => Method::Auto,
     };
     let hessian_rows: Option<usize> = args

@@ -152,7 +152,7 @@ pub fn fit_options(kw: &Bound<'_, PyDict>) -> PyResult<FitOptions> {
         o.map.kind = choice::<MapKind>(py, "map", &s, MAPS)?;
     }
     if let Some(s) = get::<String>(kw, "solver")? {
-        o.method = choice::<Method>(py, "solver", &s, &["auto", "dual", "newton"])?;
+        o.method = choice::<Method>(py, "solver", &s, &["auto", "dual", "newton", "barrier"])?;
     }
     if let Some(s) = get::<String>(kw, "loss")? {
         o.loss = choice::<Loss>(py, "loss", &s, &["l1", "l2"])?;

@@ -44,12 +44,14 @@ pub enum MapArg {
 /// Solvers on the command line.
 #[derive(Debug, Clone, Copy, ValueEnum)]
 pub enum SolverArg {
-    /// Newton passes for the squared loss, coordinate descent for the linear loss.
+    /// Newton passes for the squared loss, barrier passes for the linear loss.
     Auto,
     /// Block minimization with dual coordinate descent (Ho & Lin 2012; Yu et al. 2010).
     Dual,
     /// Primal Newton passes with a sampled Hessian (squared loss only).
     Newton,
+    /// Primal log-barrier Newton passes, exact Hessian (linear loss only).
+    Barrier,
 }
 
 impl From<SolverArg> for Method {
@@ -58,6 +60,7 @@ impl From<SolverArg> for Method {
             SolverArg::Auto => Method::Auto,
             SolverArg::Dual => Method::Dual,
             SolverArg::Newton => Method::Newton,
+            SolverArg::Barrier => Method::Barrier,
         }
     }
 }

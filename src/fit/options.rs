@@ -138,6 +138,12 @@ impl FitOptions {
                 "the Newton solver needs the squared loss (l2); use the dual solver for the linear loss",
             ));
         }
+        if self.method == Method::Barrier && self.loss == Loss::L2 {
+            return Err(Error::invalid(
+                "solver",
+                "the barrier solver needs the linear loss (l1); use the Newton solver for the squared loss",
+            ));
+        }
         if !(self.tol.is_finite() && self.tol >= 0.0) {
             return Err(Error::invalid(
                 "tol",

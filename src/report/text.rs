@@ -45,6 +45,7 @@ pub fn render_training(r: &TrainingReport) -> String {
             match r.method {
                 crate::solver::blocks::Method::Newton => "newton",
                 crate::solver::blocks::Method::Dual => "dual",
+                crate::solver::blocks::Method::Barrier => "barrier",
                 crate::solver::blocks::Method::Auto => "auto",
             },
             match r.stop {

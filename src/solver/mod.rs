@@ -4,6 +4,7 @@
 //! `stream` that reads and maps them, `cache` of what stays in memory); and exact kernel
 //! epsilon-SVR by SMO (`smo`).
 
+pub mod barrier;
 pub mod blocks;
 pub(crate) mod cache;
 pub mod dcd;

@@ -157,6 +157,7 @@ fn kernlake(args: &[&str]) -> (i32, String) {
 fn settings_are_checked_before_any_file_is_opened() {
     let cases: &[(&[&str], &str)] = &[
         (&["--loss", "l1", "--solver", "newton"], "solver"),
+        (&["--loss", "l2", "--solver", "barrier"], "solver"),
         (&["--c", "-1"], "C"),
         (&["--tol", "-1"], "tol"),
         (&["--epochs", "0"], "epochs"),

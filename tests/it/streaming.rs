@@ -209,3 +209,71 @@ fn newton_gives_identical_model_bytes_whether_rows_are_kept_mapped_or_mapped_on_
         );
     }
 }
+
+/// The linear loss with its default solver (the barrier method of
+/// `kernlake::solver::barrier`).
+fn barrier_fitter() -> Fitter {
+    fitter()
+        .with_loss(kernlake::solver::dcd::Loss::L1)
+        .with_tol(1e-6)
+        .with_max_epochs(200)
+}
+
+#[test]
+fn barrier_streams_ten_parquet_files_as_in_memory_and_thread_count_keeps_the_bytes() {
+    // common practice (our determinism contract): the barrier pass sums fixed chunks of
+    // rows in block order, so the streamed fit over ten files equals the in-memory fit
+    // of the same rows up to the rounding of regrouped sums (the in-memory blocks need
+    // not end where the files do), and the thread count and the memory budget (blocks
+    // kept mapped or mapped again each pass) change no bit of the model.
+    // Data: Friedman #1 (published: Friedman 1991).
+    let (x, y, _) = friedman1(2_000, 31);
+    let dir = tempfile::tempdir().unwrap();
+    write_parts(dir.path(), &names(10), &x, &y, 10);
+    let streamed = barrier_fitter()
+        .with_block_rows(200)
+        .fit_files(&reader_for(dir.path(), 200), &Silent, &|_| {})
+        .unwrap();
+    assert_eq!(
+        streamed.report.method,
+        kernlake::solver::blocks::Method::Barrier
+    );
+    assert!(
+        streamed.report.objective.gap <= 1e-6,
+        "{:?}",
+        streamed.report.objective
+    );
+    let memory = barrier_fitter()
+        .with_block_rows(200)
+        .fit(x.view(), y.view())
+        .unwrap();
+    let xs = x.slice(s![..500, ..]);
+    let diff = (&streamed.predict(xs) - &memory.predict(xs))
+        .mapv(f64::abs)
+        .fold(0.0f64, |a, &b| a.max(b));
+    assert!(diff <= 1e-9 * y.std(0.0), "predictions differ by {diff}");
+
+    let fit = |threads: usize, memory: usize| {
+        barrier_fitter()
+            .with_threads(threads)
+            .with_memory_bytes(memory)
+            .with_holdout(0.1)
+            .fit_files(&reader_for(dir.path(), 256), &Silent, &|_| {})
+            .unwrap()
+    };
+    let bytes = |mut m: Model| {
+        for h in &mut m.report.history {
+            h.resident_blocks = 0;
+        }
+        m.to_model_file().unwrap().to_bytes().unwrap()
+    };
+    let reference = bytes(fit(1, 1 << 30));
+    assert!(
+        bytes(fit(2, 1 << 30)) == reference,
+        "2 threads: the model differs"
+    );
+    assert!(
+        bytes(fit(2, 0)) == reference,
+        "mapped each pass: the model differs"
+    );
+}

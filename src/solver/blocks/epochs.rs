@@ -4,6 +4,7 @@
 
 use ndarray::{s, Array1, ArrayView1};
 
+use super::barrier::BarrierStrategy;
 use super::dual::DualStrategy;
 use super::newton::NewtonStrategy;
 use super::strategy::{PassContext, Strategy};
@@ -47,6 +48,7 @@ impl Trainer<'_> {
                     self.settings.dcd.seed,
                 ))
             }
+            Method::Barrier => Box::new(BarrierStrategy::new(dim, dcd.c, dcd.epsilon)),
             _ => Box::new(DualStrategy::new(
                 dim,
                 self.rows_total as usize,
@@ -60,6 +62,12 @@ impl Trainer<'_> {
             observer,
             dcd: &dcd,
             pool: self.pool,
+        };
+        // The barrier method's iterates follow the central path of a smoothed problem
+        // whose holdout error need not fall pass by pass; only its certificate stops it.
+        let patience = match method {
+            Method::Barrier => 0,
+            _ => self.settings.patience,
         };
         let mut cache = PassCache::new(source.units(), self.settings.memory_bytes);
         let mut history = Vec::new();
@@ -111,7 +119,7 @@ impl Trainer<'_> {
                     since_best = 0;
                 } else {
                     since_best += 1;
-                    if self.settings.patience > 0 && since_best >= self.settings.patience {
+                    if patience > 0 && since_best >= patience {
                         stop = StopReason::Holdout;
                         break;
                     }

@@ -17,7 +17,7 @@ use crate::error::{Error, Result};
 const PANEL_COLS: usize = 128;
 
 /// The Cholesky factor of a Newton matrix.
-pub(super) type Factor = CholeskyFactorized<ndarray::OwnedRepr<f64>>;
+pub(crate) type Factor = CholeskyFactorized<ndarray::OwnedRepr<f64>>;
 
 /// Row sampling by approximate ridge leverage scores for the Hessian (see the module
 /// docs of [`super`]): with H = UᵀU the last Newton matrix and G a K × (D + 1) Gaussian
@@ -35,7 +35,7 @@ pub(crate) struct Lever {
 
 /// The Cholesky factor U (upper) of the Newton matrix I + scale·S, reading S from its
 /// upper triangle only.
-pub(super) fn newton_matrix(mut s: Array2<f64>, scale: f64) -> Result<Factor> {
+pub(crate) fn newton_matrix(mut s: Array2<f64>, scale: f64) -> Result<Factor> {
     let n = s.nrows();
     for j in 0..n {
         for i in 0..j {
@@ -48,7 +48,7 @@ pub(super) fn newton_matrix(mut s: Array2<f64>, scale: f64) -> Result<Factor> {
 }
 
 /// Solves UᵀU d = −g.
-pub(super) fn newton_direction(factor: &Factor, g: &Array1<f64>) -> Result<Array1<f64>> {
+pub(crate) fn newton_direction(factor: &Factor, g: &Array1<f64>) -> Result<Array1<f64>> {
     let rhs = g.mapv(|v| -v);
     let d = factor
         .solvec(&rhs)
@@ -84,7 +84,7 @@ pub(super) fn leverage(factor: &Factor, target: f64, seed: u64) -> Option<Lever>
 /// that adding the Gram matrices of two row sets one after the other does the same
 /// operations whether h starts empty or not (what [`super::PassStats::merge`] relies
 /// on); the panels are independent, so the result does not depend on threads.
-pub(super) fn add_gram_upper(
+pub(crate) fn add_gram_upper(
     pool: Option<&rayon::ThreadPool>,
     h: &mut Array2<f64>,
     a: ArrayView2<f64>,

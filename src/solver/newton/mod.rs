@@ -57,6 +57,7 @@
 mod chunk;
 mod fit;
 mod hessian;
+pub(crate) use hessian::{add_gram_upper, newton_direction, newton_matrix};
 #[cfg(test)]
 mod merge_tests;
 mod pass;

@@ -2,6 +2,7 @@
 //! (clarabel), the optimality conditions of the epsilon tube, weak duality and the
 //! unit conversion of C and epsilon, on open datasets and Friedman #1.
 
+mod barrier;
 mod newton;
 mod qp;
 mod support;
