@@ -377,6 +377,9 @@ def tune(
     epsilon_factors: Sequence[float] = (0.25, 1.0, 4.0),
     exact_rows: int = 1000,
     max_fits: int = 150,
+    refine_fits: Optional[int] = None,
+    refine_rows: Optional[int] = None,
+    refine_dim: Optional[int] = None,
     epochs: int = 50,
     sweeps: int = 10,
     tol: float = 1e-3,
@@ -411,6 +414,11 @@ def tune(
         tol=tol, dim=dim, max_dim=max_dim, dim_tol=dim_tol, kernel=kernel, map=map,
         phase=phase, kmeans=kmeans, loss=loss, seed=seed, threads=threads,
     )
+    # The second stage's budget, rows and map dimension: the library's defaults unless given.
+    for key, value in (("refine_fits", refine_fits), ("refine_rows", refine_rows),
+                       ("refine_dim", refine_dim)):
+        if value is not None:
+            settings[key] = value
     return _native.tune_files(
         _paths(source), target,
         list(features) if features is not None else None,

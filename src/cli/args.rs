@@ -367,3 +367,13 @@ impl ModelArgs {
         .validated()
     }
 }
+
+/// Checks before any data is read that a local output path can be written (its folder
+/// exists and takes files, and it is not a folder). An object-store URL is checked when
+/// it is written: a bucket answers only to a request.
+pub fn check_output(path: &std::path::Path) -> crate::error::Result<()> {
+    if crate::store::is_remote(path) {
+        return Ok(());
+    }
+    crate::atomic::check_writable(path)
+}

@@ -120,7 +120,7 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
         ));
     }
     for path in [&a.json, &a.plot].into_iter().flatten() {
-        crate::atomic::check_writable(path)?;
+        super::args::check_output(path)?;
     }
     let model = a.model.as_deref().map(Model::load).transpose()?;
     let target = match (&a.target, &model) {

@@ -1,6 +1,6 @@
 //! `kernlake fit`: discover sources, resolve columns, stream the fit, save the model.
 
-use crate::atomic::{check_writable, write_atomic};
+use crate::atomic::write_atomic;
 use crate::data::{choose_columns, discover, TableReader};
 use crate::error::{Error, Result};
 use crate::fit::Fitter;
@@ -16,9 +16,9 @@ pub fn run(a: FitArgs, quiet: bool) -> Result<i32> {
     let csv = a.src.csv()?;
     // The outputs can be written (folder exists, takes files, the path is not a folder)
     // before hours of training, not after.
-    check_writable(&a.out)?;
+    super::args::check_output(&a.out)?;
     if let Some(path) = &a.report {
-        check_writable(path)?;
+        super::args::check_output(path)?;
     }
     let files = discover(&a.src.sources)?;
     let choice = choose_columns(&files, &a.src.selection(Some(&a.target)), &csv)?;

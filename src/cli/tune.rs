@@ -281,7 +281,7 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
     a.check_names()?;
     a.options(None).validate()?;
     for path in [&a.json, &a.heatmap, &a.fit].into_iter().flatten() {
-        crate::atomic::check_writable(path)?;
+        super::args::check_output(path)?;
     }
     let csv = a.src.csv()?;
     let files = discover(&a.src.sources)?;
