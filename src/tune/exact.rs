@@ -43,16 +43,46 @@ pub struct Solution {
 
 /// The primal objective ½βᵀQβ + C Σ max(0, |y − f| − ε)² with f = Qβ.
 fn objective(beta: &Array1<f64>, f: &Array1<f64>, y: ArrayView1<f64>, c: f64, eps: f64) -> f64 {
-    let reg = 0.5 * beta.dot(f);
-    let loss: f64 = y
-        .iter()
+    0.5 * beta.dot(f) + c * tube_loss(f, y, eps)
+}
+
+/// Σ max(0, |y − f| − ε)²: the squared loss beyond the tube.
+pub(super) fn tube_loss(f: &Array1<f64>, y: ArrayView1<f64>, eps: f64) -> f64 {
+    y.iter()
         .zip(f)
         .map(|(y, f)| {
             let e = ((y - f).abs() - eps).max(0.0);
             e * e
         })
-        .sum();
-    reg + c * loss
+        .sum()
+}
+
+/// Backtracking line search from the full Newton step (Chapelle 2007, §4): halves `t`
+/// from 1 (at most 30 times) until `objective(x + t·dir, f + t·fd)` is at most `obj`, and
+/// moves `x`, `f` and `obj` there. Returns whether the decrease counts as progress.
+pub(super) fn backtrack(
+    x: &mut Array1<f64>,
+    f: &mut Array1<f64>,
+    obj: &mut f64,
+    dir: &Array1<f64>,
+    fd: &Array1<f64>,
+    objective: impl Fn(&Array1<f64>, &Array1<f64>) -> f64,
+) -> bool {
+    let mut t = 1.0;
+    for _ in 0..30 {
+        let b = &*x + &(t * dir);
+        let fb = &*f + &(t * fd);
+        let o = objective(&b, &fb);
+        if o <= *obj {
+            let moved = o < *obj * (1.0 - FLAT);
+            *x = b;
+            *f = fb;
+            *obj = o;
+            return moved;
+        }
+        t *= 0.5;
+    }
+    false
 }
 
 /// Solves the squared-loss epsilon-SVR on Gram matrix `q` (n × n, symmetric, bias
@@ -118,24 +148,11 @@ pub fn solve_l2(
                 target[i] = *v;
             }
         }
-        // Backtracking line search from the full Newton step (Chapelle 2007, §4).
         let dir = &target - &beta;
         let fd = q.dot(&dir);
-        let mut t = 1.0;
-        let mut moved = false;
-        for _ in 0..30 {
-            let b = &beta + &(t * &dir);
-            let fb = &f + &(t * &fd);
-            let o = objective(&b, &fb, y, c, eps);
-            if o <= obj {
-                moved = o < obj * (1.0 - FLAT);
-                beta = b;
-                f = fb;
-                obj = o;
-                break;
-            }
-            t *= 0.5;
-        }
+        let moved = backtrack(&mut beta, &mut f, &mut obj, &dir, &fd, |b, fb| {
+            objective(b, fb, y, c, eps)
+        });
         prev = active;
         if !moved {
             return Ok(Solution {

@@ -29,7 +29,7 @@ use crate::heuristics::Defaults;
 use crate::kernel::Kernel;
 use crate::solver::dcd::Loss;
 
-use super::exact::{solve_l2, Solution};
+use super::exact::{backtrack, solve_l2, tube_loss, Solution};
 use super::grid::{score_gamma, Axis3, ExactFold, Scored};
 use super::options::TuneOptions;
 use super::report::CandidateResult;
@@ -38,20 +38,10 @@ use super::select::{search, Search};
 
 /// Newton steps at most (primal).
 const MAX_STEPS: usize = 40;
-/// Relative decrease of the objective below which a step counts as no progress.
-const FLAT: f64 = 1e-12;
 
 /// ½‖w‖² + C Σ max(0, |y − f| − ε)² with f = Zw.
 fn objective(w: &Array1<f64>, f: &Array1<f64>, y: ArrayView1<f64>, c: f64, eps: f64) -> f64 {
-    let loss: f64 = y
-        .iter()
-        .zip(f)
-        .map(|(y, f)| {
-            let e = ((y - f).abs() - eps).max(0.0);
-            e * e
-        })
-        .sum();
-    0.5 * w.dot(w) + c * loss
+    0.5 * w.dot(w) + c * tube_loss(f, y, eps)
 }
 
 /// The squared-loss epsilon-SVR on mapped rows `z` (rows × p, the last column the
@@ -127,21 +117,9 @@ pub(crate) fn solve_l2_primal(
         })?;
         let dir = &target - &w;
         let fd = z.dot(&dir);
-        let mut t = 1.0;
-        let mut moved = false;
-        for _ in 0..30 {
-            let b = &w + &(t * &dir);
-            let fb = &f + &(t * &fd);
-            let o = objective(&b, &fb, y, c, eps);
-            if o <= obj {
-                moved = o < obj * (1.0 - FLAT);
-                w = b;
-                f = fb;
-                obj = o;
-                break;
-            }
-            t *= 0.5;
-        }
+        let moved = backtrack(&mut w, &mut f, &mut obj, &dir, &fd, |b, fb| {
+            objective(b, fb, y, c, eps)
+        });
         prev = active;
         if !moved {
             return Ok(Solution {
