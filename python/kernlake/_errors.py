@@ -30,4 +30,5 @@ class NumericalError(Error, ArithmeticError):
 
 
 class IOError(Error, OSError):  # noqa: A001 - the kind's name, also an OSError
-    """The operating system refused to read or write a file or folder."""
+    """The operating system refused to read or write a file or folder, or an object
+    store (``s3://``) a bucket, prefix or object; the message names the path or URL."""

@@ -11,7 +11,7 @@ fn class_name(e: &Error) -> &'static str {
     match e {
         Error::ModelFile { .. } => "ModelFileError",
         Error::Numerical(_) | Error::TuneFailed(_) => "NumericalError",
-        Error::Io { .. } | Error::Output { .. } => "IOError",
+        Error::Io { .. } | Error::Output { .. } | Error::Store { .. } => "IOError",
         _ => "InputError",
     }
 }

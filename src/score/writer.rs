@@ -341,6 +341,8 @@ pub(crate) fn plan_outputs(inputs: &[PathBuf], out_dir: &Path) -> Result<Vec<Pat
     let root = common_root(&abs);
     let remote_out = crate::store::is_remote(out_dir);
     let out = if remote_out {
+        // Multipart uploads a killed run left open under the output prefix.
+        crate::store::io::abort_left_uploads(out_dir)?;
         out_dir.to_path_buf()
     } else {
         absolute(out_dir)?

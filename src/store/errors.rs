@@ -22,15 +22,16 @@ pub(crate) fn store_error(url: &str, e: object_store::Error) -> Error {
         "the bucket does not exist".to_string()
     } else {
         match &e {
+            // The server's code first: a refused key comes back as 403 like a refused right.
+            _ if text.contains("InvalidAccessKeyId") || text.contains("SignatureDoesNotMatch") => {
+                "the credentials were refused (check AWS_ACCESS_KEY_ID and AWS_SECRET_ACCESS_KEY)"
+                    .into()
+            }
             object_store::Error::NotFound { .. } => "no such object".to_string(),
             object_store::Error::PermissionDenied { .. } => {
                 "access was denied (check the bucket policy and the credentials' rights)".into()
             }
             object_store::Error::Unauthenticated { .. } => {
-                "the credentials were refused (check AWS_ACCESS_KEY_ID and AWS_SECRET_ACCESS_KEY)"
-                    .into()
-            }
-            _ if text.contains("InvalidAccessKeyId") || text.contains("SignatureDoesNotMatch") => {
                 "the credentials were refused (check AWS_ACCESS_KEY_ID and AWS_SECRET_ACCESS_KEY)"
                     .into()
             }

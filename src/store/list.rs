@@ -15,7 +15,7 @@ fn hidden(part: &str) -> bool {
 }
 
 /// Every object under `prefix` (recursively), as keys in listing order.
-fn list_keys(remote: &Remote, prefix: &ObjectPath) -> Result<Vec<ObjectPath>> {
+pub(crate) fn list_keys(remote: &Remote, prefix: &ObjectPath) -> Result<Vec<ObjectPath>> {
     let prefix = (!prefix.as_ref().is_empty()).then_some(prefix);
     block_on(
         remote

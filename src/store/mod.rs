@@ -27,6 +27,7 @@ use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex, OnceLock};
 use std::time::Duration;
 
+use object_store::multipart::MultipartStore;
 use object_store::path::Path as ObjectPath;
 use object_store::{BackoffConfig, ObjectStore, RetryConfig};
 
@@ -52,6 +53,9 @@ pub(crate) struct Remote {
     pub key: ObjectPath,
     /// The client.
     pub store: Arc<dyn ObjectStore>,
+    /// The same client's multipart calls (uploads whose id is recorded, so that a later
+    /// run can abort what a killed one left open).
+    pub multipart: Arc<dyn MultipartStore>,
 }
 
 impl Remote {
@@ -104,11 +108,13 @@ pub(crate) fn locate(path: &Path) -> Result<Location> {
             let key = ObjectPath::parse(key.trim_end_matches('/')).map_err(|e| {
                 Error::invalid("location", format!("'{text}' is not a valid object key ({e})"))
             })?;
+            let (store, multipart) = s3_client(bucket, text)?;
             Ok(Location::Remote(Remote {
                 url: text.to_string(),
                 root: format!("{scheme}://{bucket}"),
                 key,
-                store: s3_client(bucket, text)?,
+                store,
+                multipart,
             }))
         }
         other => Err(Error::invalid(
@@ -141,9 +147,12 @@ pub(crate) fn retry_config() -> RetryConfig {
     }
 }
 
+/// A store's client, as its object and its multipart interface.
+type Client = (Arc<dyn ObjectStore>, Arc<dyn MultipartStore>);
+
 /// The S3 client of `bucket`, built once per bucket from the environment.
-fn s3_client(bucket: &str, url: &str) -> Result<Arc<dyn ObjectStore>> {
-    static CLIENTS: OnceLock<Mutex<HashMap<String, Arc<dyn ObjectStore>>>> = OnceLock::new();
+fn s3_client(bucket: &str, url: &str) -> Result<Client> {
+    static CLIENTS: OnceLock<Mutex<HashMap<String, Client>>> = OnceLock::new();
     let mut clients = CLIENTS
         .get_or_init(Default::default)
         .lock()
@@ -156,7 +165,8 @@ fn s3_client(bucket: &str, url: &str) -> Result<Arc<dyn ObjectStore>> {
         .with_retry(retry_config())
         .build()
         .map_err(|e| store_error(url, e))?;
-    let client: Arc<dyn ObjectStore> = Arc::new(client);
+    let client = Arc::new(client);
+    let client: Client = (client.clone(), client);
     clients.insert(bucket.to_string(), client.clone());
     Ok(client)
 }

@@ -114,16 +114,89 @@ impl Footer {
                         .map_err(|e| corrupt(&path, e))?;
                 let (tx, rx) = tokio::sync::mpsc::channel(AHEAD);
                 handle().spawn(async move {
+                    // The asynchronous reader ends a batch at every row group; the local
+                    // reader's batches run across them. Regrouping into batches of
+                    // exactly `batch_rows` gives the same blocks, hence the same model,
+                    // whichever way a file is read.
+                    let mut regroup = Regroup::new(batch_rows);
                     while let Some(item) = stream.next().await {
-                        let failed = item.is_err();
-                        if tx.send(item.map_err(ArrowError::from)).await.is_err() || failed {
-                            break;
+                        let out = item.map_err(ArrowError::from).and_then(|b| regroup.push(b));
+                        let failed = out.is_err();
+                        for batch in transpose(out) {
+                            if tx.send(batch).await.is_err() {
+                                return;
+                            }
                         }
+                        if failed {
+                            return;
+                        }
+                    }
+                    if let Some(last) = regroup.finish().transpose() {
+                        let _ = tx.send(last).await;
                     }
                 });
                 Ok(Batches::Remote(rx))
             }
         }
+    }
+}
+
+/// Batches of exactly `rows` rows (the last one shorter) from batches of any sizes, as
+/// the synchronous Parquet reader cuts them.
+struct Regroup {
+    rows: usize,
+    held: Vec<RecordBatch>,
+    held_rows: usize,
+}
+
+impl Regroup {
+    fn new(rows: usize) -> Self {
+        Regroup {
+            rows: rows.max(1),
+            held: Vec::new(),
+            held_rows: 0,
+        }
+    }
+
+    /// Takes `batch`; returns the whole batches now complete.
+    fn push(&mut self, batch: RecordBatch) -> std::result::Result<Vec<RecordBatch>, ArrowError> {
+        self.held_rows += batch.num_rows();
+        self.held.push(batch);
+        let mut out = Vec::new();
+        while self.held_rows >= self.rows {
+            let all = self.joined()?;
+            out.push(all.slice(0, self.rows));
+            self.held_rows -= self.rows;
+            self.held = vec![all.slice(self.rows, self.held_rows)];
+        }
+        Ok(out)
+    }
+
+    /// The rows still held, as one batch.
+    fn finish(mut self) -> std::result::Result<Option<RecordBatch>, ArrowError> {
+        if self.held_rows == 0 {
+            return Ok(None);
+        }
+        self.joined().map(Some)
+    }
+
+    /// The held batches as one (without a copy when there is only one).
+    fn joined(&mut self) -> std::result::Result<RecordBatch, ArrowError> {
+        if self.held.len() == 1 {
+            return Ok(self.held[0].clone());
+        }
+        let schema = self.held[0].schema();
+        arrow_select::concat::concat_batches(&schema, &self.held)
+    }
+}
+
+/// A result of many batches as many results (an error as one).
+fn transpose(
+    r: std::result::Result<Vec<RecordBatch>, ArrowError>,
+) -> Vec<std::result::Result<RecordBatch, ArrowError>> {
+    match r {
+        Ok(v) => v.into_iter().map(Ok).collect(),
+        Err(e) => vec![Err(e)],
     }
 }
 

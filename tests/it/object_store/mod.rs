@@ -10,6 +10,9 @@
 
 use crate::common;
 
+mod credentials;
+mod uploads;
+
 use std::io::{Read, Write};
 use std::net::TcpStream;
 use std::path::{Path, PathBuf};
@@ -53,43 +56,54 @@ fn server() -> Option<&'static Server> {
                 );
                 return None;
             };
-            let port = std::net::TcpListener::bind("127.0.0.1:0")
-                .unwrap()
-                .local_addr()
-                .unwrap()
-                .port();
-            // The server runs under a shell that stops it when this process's end of
-            // its standard input closes (when the test binary exits, however it exits).
-            let mut child = Command::new("sh")
-                .args([
-                    "-c",
-                    "\"$0\" -H 127.0.0.1 -p \"$1\" & pid=$!; cat >/dev/null; kill $pid",
-                ])
-                .arg(&program)
-                .arg(port.to_string())
-                .stdin(Stdio::piped())
-                // Small multipart parts accepted, so that tests exercise multipart uploads.
-                .env("S3_UPLOAD_PART_MIN_SIZE", "16384")
-                .stdout(Stdio::null())
-                .stderr(Stdio::null())
-                .spawn()
-                .unwrap_or_else(|e| panic!("cannot start {}: {e}", program.display()));
-            let t0 = Instant::now();
-            while TcpStream::connect(("127.0.0.1", port)).is_err() {
-                assert!(t0.elapsed() < Duration::from_secs(60), "the S3 server did not start");
-                std::thread::sleep(Duration::from_millis(100));
-            }
-            for (k, v) in env(port) {
+            let server = spawn_server(&program, &[]);
+            for (k, v) in env(server.port) {
                 std::env::set_var(k, v);
             }
-            let stdin = child.stdin.take();
-            Some(Server {
-                port,
-                _stdin: stdin,
-                _child: child,
-            })
+            Some(server)
         })
         .as_ref()
+}
+
+/// Starts `program` on a free port of 127.0.0.1 with the extra environment `extra` and
+/// waits until it answers.
+fn spawn_server(program: &Path, extra: &[(&str, &str)]) -> Server {
+    let port = std::net::TcpListener::bind("127.0.0.1:0")
+        .unwrap()
+        .local_addr()
+        .unwrap()
+        .port();
+    // The server runs under a shell that stops it when this process's end of
+    // its standard input closes (when the test binary exits, however it exits).
+    let mut child = Command::new("sh")
+        .args([
+            "-c",
+            "\"$0\" -H 127.0.0.1 -p \"$1\" & pid=$!; cat >/dev/null; kill $pid",
+        ])
+        .arg(program)
+        .arg(port.to_string())
+        .stdin(Stdio::piped())
+        // Small multipart parts accepted, so that tests exercise multipart uploads.
+        .env("S3_UPLOAD_PART_MIN_SIZE", "16384")
+        .envs(extra.iter().copied())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap_or_else(|e| panic!("cannot start {}: {e}", program.display()));
+    let t0 = Instant::now();
+    while TcpStream::connect(("127.0.0.1", port)).is_err() {
+        assert!(
+            t0.elapsed() < Duration::from_secs(60),
+            "the S3 server did not start"
+        );
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    let stdin = child.stdin.take();
+    Server {
+        port,
+        _stdin: stdin,
+        _child: child,
+    }
 }
 
 /// The environment a client needs to reach the server (test credentials, not secrets).
@@ -608,96 +622,4 @@ fn throttled_requests_are_retried_and_endless_throttling_fails_in_one_sentence()
             assert!(!remote.exists());
         }
     }
-}
-
-#[test]
-fn killed_scoring_to_s3_leaves_no_partial_object_and_a_rerun_completes() {
-    let Some(s) = server() else { return };
-    let tmp = tempfile::tempdir().unwrap();
-    let lake = tmp.path().join("lake");
-    ccpp_lake(&lake);
-    upload_tree(s.port, "killing", &lake, "in");
-    let model = tmp.path().join("m.klm");
-    let o = cli(
-        s.port,
-        &[
-            "fit",
-            lake.to_str().unwrap(),
-            "--target",
-            "PE",
-            "--dim",
-            "64",
-            "-q",
-            "-o",
-            model.to_str().unwrap(),
-        ],
-    );
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let reference = tmp.path().join("ref");
-    let o = cli(
-        s.port,
-        &[
-            "score",
-            "-q",
-            model.to_str().unwrap(),
-            lake.to_str().unwrap(),
-            "--out",
-            reference.to_str().unwrap(),
-            "--batch-rows",
-            "500",
-        ],
-    );
-    assert!(o.status.success());
-    let rels: Vec<String> = walk(&reference)
-        .iter()
-        .map(|p| {
-            p.strip_prefix(&reference)
-                .unwrap()
-                .to_str()
-                .unwrap()
-                .to_string()
-        })
-        .collect();
-    let score = || {
-        let mut c = Command::new(env!("CARGO_BIN_EXE_kernlake"));
-        c.args([
-            "score",
-            "-q",
-            model.to_str().unwrap(),
-            "s3://killing/in/",
-            "--out",
-            "s3://killing/out/",
-        ])
-        .args(["--threads", "1", "--batch-rows", "500"])
-        .envs(env(s.port))
-        .stdout(Stdio::null())
-        .stderr(Stdio::null());
-        c
-    };
-    // Every object under a final key, at any moment, is a whole output.
-    let check = |dir: &Path| {
-        for rel in &rels {
-            if let Some(bytes) = fetch("killing", &format!("out/{rel}")) {
-                let to = dir.join(rel);
-                std::fs::create_dir_all(to.parent().unwrap()).unwrap();
-                std::fs::write(to, bytes).unwrap();
-            }
-        }
-        let got = scored_rows(dir);
-        let want: Vec<_> = scored_rows(&reference)
-            .into_iter()
-            .filter(|(r, _)| got.iter().any(|(g, _)| g == r))
-            .collect();
-        assert_eq!(got, want);
-        got.len()
-    };
-    for (k, ms) in [30u64, 150, 400].into_iter().enumerate() {
-        let mut child = score().spawn().unwrap();
-        std::thread::sleep(Duration::from_millis(ms));
-        let _ = child.kill(); // SIGKILL
-        let _ = child.wait();
-        check(&tmp.path().join(format!("after-kill-{k}")));
-    }
-    assert!(score().status().unwrap().success());
-    assert_eq!(check(&tmp.path().join("final")), rels.len());
 }
