@@ -2,7 +2,7 @@
 //! kernel-block throughput of `Kernel::block_into` measured in the same run, and the fit
 //! time of the approximate machine the audit compares it with, on two tables:
 //!
-//! * `scenario` (d = 8): rows of the demo scenario (`kernlake::demo::generate`, 200,000
+//! * `scenario` (d = 8): rows of the demo scenario (`kernlake::testing::generate`, 200,000
 //!   rows written as partitioned Parquet into a temporary folder), sampled the way
 //!   `kernlake audit` samples them: the survey pass's seeded bottom-k sample of n rows
 //!   (seed 0, rows with a missing value skipped), the 8 scenario inputs standardized on
@@ -39,12 +39,12 @@
 use std::time::Instant;
 
 use kernlake::data::{discover, survey, ResolvedColumns, SurveySettings, TableReader};
-use kernlake::demo::{generate, DemoSpec, FEATURES, TARGET};
 use kernlake::features::{build_map, MapKind, MapSpec};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
 use kernlake::solver::dcd::{self, DcdSettings, Loss};
 use kernlake::solver::smo::{fit, SmoSettings};
+use kernlake::testing::{generate, DemoSpec, FEATURES, TARGET};
 use kernlake::tune::Defaults;
 use ndarray::{s, Array1, Array2};
 use rand::{Rng, SeedableRng};

@@ -18,12 +18,12 @@
 use std::time::Instant;
 
 use kernlake::data::{discover, survey, ResolvedColumns, SurveySettings, TableReader};
-use kernlake::demo::{generate, DemoSpec, FEATURES, TARGET};
 use kernlake::features::{build_map, MapSpec};
 use kernlake::fit::{FitOptions, Fitter};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
 use kernlake::solver::blocks::{piece_rows, EpochRecord, Method, TrainObserver};
+use kernlake::testing::{generate, DemoSpec, FEATURES, TARGET};
 use ndarray::{s, Array2};
 
 #[path = "support/rss.rs"]

@@ -56,8 +56,7 @@
 #![deny(unsafe_op_in_unsafe_fn)]
 #![deny(clippy::undocumented_unsafe_blocks)]
 
-#[doc(hidden)]
-pub mod atomic;
+mod atomic;
 pub mod audit;
 #[cfg(feature = "cli")]
 #[doc(hidden)]
@@ -65,8 +64,7 @@ pub mod cli;
 pub mod coverage;
 pub mod cpu;
 pub mod data;
-#[doc(hidden)]
-pub mod demo;
+mod demo;
 pub mod error;
 pub mod features;
 pub mod fit;
@@ -75,7 +73,6 @@ pub mod inspect;
 pub mod kernel;
 pub mod metrics;
 pub mod model;
-#[doc(hidden)]
 pub mod modelfile;
 pub mod report;
 pub mod scale;

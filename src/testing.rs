@@ -1,4 +1,9 @@
-//! Support shared by the project's own tests and benchmarks; not part of the API.
+//! Support shared by the project's own tests and benchmarks; not part of the API: the
+//! one Friedman #1 generator and CCPP reader, and the internals the tests check directly
+//! (atomic writes, the invented demo scenario).
+
+pub use crate::atomic::{create_dir_durable, is_temp_name, AtomicFile};
+pub use crate::demo::{generate, months, DemoSpec, FEATURES, TARGET};
 
 use ndarray::{Array1, Array2};
 use rand::{Rng, SeedableRng};

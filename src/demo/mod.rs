@@ -80,7 +80,7 @@ pub struct DemoSummary {
 }
 
 /// The scenario's model inputs, in the order the demo fits them (units in the column docs
-/// of [`schema`]).
+/// of `schema`).
 pub const FEATURES: [&str; 8] = [
     "outdoor_temp",
     "outdoor_rh",

@@ -19,7 +19,7 @@
 //!
 //! * Contract first: a file whose schema breaks the model's input contract is refused
 //!   before any row is read, naming file and column, and nothing is written for it.
-//! * Restartable: outputs are written atomically ([`crate::atomic`]); a rerun skips an
+//! * Restartable: outputs are written atomically (temporary name, then rename); a rerun skips an
 //!   output whose footer reads, whose stamp matches the input, model and settings, and
 //!   whose bytes before the footer still have the stamped CRC-32 (damaged data pages
 //!   under an intact footer are rewritten), and removes temporary files left by a

@@ -35,7 +35,7 @@ fn no_temp_files(dir: &Path) {
     for e in std::fs::read_dir(dir).unwrap() {
         let name = e.unwrap().file_name().to_string_lossy().into_owned();
         assert!(
-            !kernlake::atomic::is_temp_name(&name),
+            !kernlake::testing::is_temp_name(&name),
             "temporary file left: {name}"
         );
     }

@@ -11,7 +11,7 @@ use arrow_array::{
     Array, Float64Array, Int32Array, RecordBatch, StringArray, TimestampMillisecondArray,
 };
 use arrow_schema::{DataType, TimeUnit};
-use kernlake::demo::{generate, months, DemoSpec};
+use kernlake::testing::{generate, months, DemoSpec};
 use kernlake::Error;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 

@@ -10,8 +10,8 @@ use std::sync::Arc;
 
 use arrow_array::{Array, Float64Array, ListArray, RecordBatch, StringArray, UInt64Array};
 use arrow_schema::{DataType, Field, Schema};
-use kernlake::atomic::{is_temp_name, AtomicFile};
 use kernlake::modelfile::{ModelFile, FORMAT_VERSION};
+use kernlake::testing::{is_temp_name, AtomicFile};
 use kernlake::Error;
 use ndarray::{array, Array2};
 
@@ -476,12 +476,12 @@ fn output_folders_are_created_whole_or_refused_naming_the_file_in_the_way() {
     // common practice: create each missing folder, then sync its parent
     let dir = tempfile::tempdir().unwrap();
     let deep = dir.path().join("a").join("b").join("c");
-    kernlake::atomic::create_dir_durable(&deep).unwrap();
+    kernlake::testing::create_dir_durable(&deep).unwrap();
     assert!(deep.is_dir());
-    kernlake::atomic::create_dir_durable(&deep).unwrap();
+    kernlake::testing::create_dir_durable(&deep).unwrap();
     std::fs::write(dir.path().join("plain"), b"x").unwrap();
     let blocked = dir.path().join("plain").join("sub");
-    let e = kernlake::atomic::create_dir_durable(&blocked).unwrap_err();
+    let e = kernlake::testing::create_dir_durable(&blocked).unwrap_err();
     let msg = e.to_string();
     assert!(matches!(e, Error::Output { .. }), "{msg}");
     assert!(msg.contains("plain") && msg.contains("is a file"), "{msg}");
