@@ -58,6 +58,7 @@
 
 mod atomic;
 pub mod audit;
+mod blas;
 #[cfg(feature = "cli")]
 #[doc(hidden)]
 pub mod cli;

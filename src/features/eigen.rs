@@ -31,6 +31,7 @@ pub(crate) fn symmetric_eigen(a: &Array2<f64>) -> Result<(Vec<f64>, Array2<f64>)
         a.ncols(),
         "symmetric_eigen: the matrix is not square"
     );
+    crate::blas::single_threaded();
     let n = a.nrows();
     if n == 0 {
         return Ok((Vec::new(), Array2::zeros((0, 0))));

@@ -134,6 +134,7 @@ pub fn solve_l2(
                 .iter()
                 .map(|&(i, up)| y[i] - if up { eps } else { -eps })
                 .collect();
+            crate::blas::single_threaded();
             let factor = h.factorizec(UPLO::Lower).map_err(|e| {
                 Error::Numerical(format!(
                     "the exact machine's Newton system ({m} rows) could not be factorized: {e}"

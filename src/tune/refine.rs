@@ -105,6 +105,7 @@ pub(crate) fn solve_l2_primal(
             v[i] = 2.0 * c * t;
         }
         let rhs = z.t().dot(&v);
+        crate::blas::single_threaded();
         let factor = h.factorizec(UPLO::Lower).map_err(|e| {
             Error::Numerical(format!(
                 "the mapped machine's Newton system ({p} features) could not be factorized: {e}"

@@ -36,6 +36,7 @@ pub(crate) struct Lever {
 /// The Cholesky factor U (upper) of the Newton matrix I + scale·S, reading S from its
 /// upper triangle only.
 pub(crate) fn newton_matrix(mut s: Array2<f64>, scale: f64) -> Result<Factor> {
+    crate::blas::single_threaded();
     let n = s.nrows();
     for j in 0..n {
         for i in 0..j {
