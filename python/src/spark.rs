@@ -170,7 +170,7 @@ impl SparkDriver {
             let mut it = parts.iter();
             let first = it
                 .next()
-                .ok_or_else(|| kernlake::Error::NoRows("the DataFrame has no partition".into()))?;
+                .ok_or_else(|| kernlake::Error::NoRows("the DataFrame has no rows (nor any partition)".into()))?;
             let mut total = SurveyPart::from_bytes(first)?;
             for p in it {
                 total.merge(SurveyPart::from_bytes(p)?)?;
