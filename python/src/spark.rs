@@ -168,9 +168,9 @@ impl SparkDriver {
         let policy = policy(py, missing)?;
         let fit = released(py, move || {
             let mut it = parts.iter();
-            let first = it
-                .next()
-                .ok_or_else(|| kernlake::Error::NoRows("the DataFrame has no rows (nor any partition)".into()))?;
+            let first = it.next().ok_or_else(|| {
+                kernlake::Error::NoRows("the DataFrame has no rows (nor any partition)".into())
+            })?;
             let mut total = SurveyPart::from_bytes(first)?;
             for p in it {
                 total.merge(SurveyPart::from_bytes(p)?)?;

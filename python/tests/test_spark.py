@@ -15,6 +15,8 @@ import pytest
 
 import kernlake
 
+if os.environ.get("CI") == "true":
+    import pyspark  # noqa: F401  (CI installs it with scripts/setup: its absence fails)
 pyspark = pytest.importorskip("pyspark", reason="pyspark is installed by scripts/setup")
 from kernlake import spark as kspark  # noqa: E402
 

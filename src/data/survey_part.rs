@@ -225,3 +225,93 @@ impl<'a> Reader<'a> {
         Ok(v as usize)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use std::path::Path;
+    use std::sync::Arc;
+
+    use arrow_array::{Float64Array, RecordBatch};
+    use arrow_schema::{DataType, Field, Schema};
+
+    use super::*;
+    use crate::data::{block_of_batch, MissingPolicy};
+
+    fn batch(rows: std::ops::Range<u64>) -> RecordBatch {
+        let a: Vec<f64> = rows
+            .clone()
+            .map(|i| ((i * 7_919) % 1_009) as f64 * 0.013)
+            .collect();
+        let y: Vec<f64> = rows.map(|i| ((i * 104_729) % 997) as f64 - 400.0).collect();
+        let schema = Schema::new(vec![
+            Field::new("a", DataType::Float64, true),
+            Field::new("y", DataType::Float64, true),
+        ]);
+        RecordBatch::try_new(
+            Arc::new(schema),
+            vec![
+                Arc::new(Float64Array::from(a)),
+                Arc::new(Float64Array::from(y)),
+            ],
+        )
+        .unwrap()
+    }
+
+    fn part_of(cuts: &[u64]) -> SurveyPart {
+        let columns = ResolvedColumns {
+            features: vec!["a".into()],
+            target: Some("y".into()),
+        };
+        let mut total: Option<SurveyPart> = None;
+        for w in cuts.windows(2) {
+            let mut p = SurveyPart::new(columns.clone(), 50, 9);
+            let b = block_of_batch(
+                &batch(w[0]..w[1]),
+                &["a", "y"],
+                true,
+                MissingPolicy::Skip,
+                Path::new("<test>"),
+                0,
+            )
+            .unwrap();
+            p.add(&b);
+            // every part travels as bytes, as from a partition
+            let p = SurveyPart::from_bytes(&p.to_bytes()).unwrap();
+            match &mut total {
+                None => total = Some(p),
+                Some(t) => t.merge(p).unwrap(),
+            }
+        }
+        total.unwrap()
+    }
+
+    /// Common practice (bottom-k sketches, Cohen & Kaplan 2007; determinism contract):
+    /// with rows keyed by their values, the sample is the same whatever the split of the
+    /// rows into parts, and the moments agree to rounding.
+    #[test]
+    fn the_sample_does_not_depend_on_the_split() {
+        let one = part_of(&[0, 3_000]);
+        let bytes = one.to_bytes();
+        assert_eq!(SurveyPart::from_bytes(&bytes).unwrap().to_bytes(), bytes);
+        let one = one.finish().unwrap();
+        let many = part_of(&[0, 7, 1_200, 1_201, 2_999, 3_000])
+            .finish()
+            .unwrap();
+        assert_eq!(one.rows_total, 3_000);
+        assert_eq!(many.rows_total, 3_000);
+        assert_eq!(one.sample_x, many.sample_x);
+        assert_eq!(one.sample_y, many.sample_y);
+        assert_eq!(one.sample_row_ids, many.sample_row_ids);
+        for (p, q) in one.features.iter().zip(&many.features) {
+            assert!((p.mean - q.mean).abs() <= 1e-12 * p.mean.abs());
+            assert!((p.variance - q.variance).abs() <= 1e-10 * p.variance);
+        }
+    }
+
+    #[test]
+    fn damaged_bytes_are_refused() {
+        let bytes = part_of(&[0, 100]).to_bytes();
+        assert!(SurveyPart::from_bytes(&bytes[..bytes.len() - 3]).is_err());
+        assert!(SurveyPart::from_bytes(b"KLSURV01").is_err());
+    }
+}
