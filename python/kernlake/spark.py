@@ -91,9 +91,14 @@ def _reader(batches: Iterator[Any], schema: pa.Schema) -> Any:
 
 
 def _arrow_schema(df: Any) -> pa.Schema:
+    """The Arrow schema of the batches Spark hands a Python worker for `df` (timestamps
+    in the session's time zone, large text types when the session asks for them)."""
     from pyspark.sql.pandas.types import to_arrow_schema
 
-    return to_arrow_schema(df.schema)
+    conf = df.sparkSession.conf
+    large = conf.get("spark.sql.execution.arrow.useLargeVarTypes", "false") == "true"
+    return to_arrow_schema(df.schema, timezone=conf.get("spark.sql.session.timeZone"),
+                           prefers_large_types=large)
 
 
 def _partition() -> int:

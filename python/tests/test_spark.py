@@ -189,3 +189,25 @@ def test_empty_data_and_a_failing_partition_raise_kernlake_errors(spark, ccpp_df
         kspark.fit(bad.repartition(2), "PE", missing="fail", **FIXED)
     assert "'AT'" in str(info.value) or "AT" in str(info.value)
     assert "null" in str(info.value)
+
+
+def test_score_keeps_timestamp_and_text_columns(spark, ccpp_table, small_model):
+    # Common practice: kept columns pass through unchanged whatever their type (a
+    # timestamp in the session's time zone, text); predictions as the model's own.
+    import datetime
+
+    model, _ = small_model
+    rows = ccpp_table.slice(0, 500)
+    start = datetime.datetime(2024, 1, 1, tzinfo=datetime.timezone.utc)
+    stamps = [start + datetime.timedelta(minutes=i) for i in range(rows.num_rows)]
+    rows = rows.append_column("stamp", pa.array(stamps, pa.timestamp("us", tz="UTC")))
+    rows = rows.append_column("site", pa.array([f"s{i % 3}" for i in range(rows.num_rows)]))
+    df = spark.createDataFrame(rows).coalesce(1)
+    got = kspark.score(df, model, keep=["stamp", "site", "PE"]).toArrow()
+    assert got.column_names[:3] == ["stamp", "site", "PE"]
+    assert [v.timestamp() for v in got.column("stamp").to_pylist()] == \
+        [v.timestamp() for v in stamps]
+    assert got.column("site").to_pylist() == rows.column("site").to_pylist()
+    want = model.score(rows.select(INPUTS), keep=[])
+    assert np.array_equal(got.column("prediction").to_numpy().view(np.int64),
+                          want.column("prediction").to_numpy().view(np.int64))
