@@ -103,7 +103,7 @@ pub struct Metrics {
 /// obtain the same values as the one-shot functions on the concatenated rows (up to
 /// rounding). The target's spread for R² is merged batch by batch with the pairwise
 /// update of Chan, Golub & LeVeque (The American Statistician 37, 1983).
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct MetricsAccumulator {
     epsilon: f64,
     n: u64,
@@ -156,6 +156,28 @@ impl MetricsAccumulator {
         self.mean_y += delta * nb / total;
         self.m2_y += m2_b + delta * delta * na * nb / total;
         self.n += y.len() as u64;
+    }
+
+    /// Adds the rows of `other` (an accumulator of other rows with the same epsilon),
+    /// the target's spread merged by Chan, Golub & LeVeque's pairwise update.
+    pub fn merge(&mut self, other: &MetricsAccumulator) {
+        if other.n == 0 {
+            return;
+        }
+        let (na, nb) = (self.n as f64, other.n as f64);
+        let total = na + nb;
+        let delta = other.mean_y - self.mean_y;
+        self.mean_y += delta * nb / total;
+        self.m2_y += other.m2_y + delta * delta * na * nb / total;
+        self.sum_sq += other.sum_sq;
+        self.sum_abs += other.sum_abs;
+        self.inside += other.inside;
+        self.n += other.n;
+    }
+
+    /// Rows added so far.
+    pub fn rows(&self) -> u64 {
+        self.n
     }
 
     /// The measures over every row added so far (NaN everywhere if none).

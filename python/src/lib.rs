@@ -8,6 +8,7 @@ mod fit;
 mod model;
 mod options;
 mod run;
+mod spark;
 mod table;
 mod tools;
 
@@ -26,6 +27,10 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(tools::tune_files, m)?)?;
     m.add_function(wrap_pyfunction!(options::fit_defaults, m)?)?;
     m.add_function(wrap_pyfunction!(model::_score_in_rust, m)?)?;
+    m.add_class::<spark::SparkWorker>()?;
+    m.add_class::<spark::SparkDriver>()?;
+    m.add_function(wrap_pyfunction!(spark::spark_fit_check, m)?)?;
+    m.add_function(wrap_pyfunction!(spark::spark_survey_part, m)?)?;
     m.add("SAFETY", kernlake::settings::SAFETY)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     Ok(())

@@ -213,6 +213,27 @@ impl PyModel {
         Ok(ArrowStream::new(schema, out))
     }
 
+    /// The schema of the scored batches for input tables of `table`'s schema (an empty
+    /// table will do), as an empty stream: the same code that builds the scored batches
+    /// declares it, so every column `score` writes appears here.
+    #[pyo3(signature = (table, keep, coverage, missing, name))]
+    fn score_schema(
+        &self,
+        py: Python<'_>,
+        table: &Bound<'_, PyAny>,
+        keep: Option<Vec<String>>,
+        coverage: bool,
+        missing: &str,
+        name: String,
+    ) -> PyResult<ArrowStream> {
+        let opts = score_options(py, keep, coverage, missing, name, 65_536, 1)?;
+        let batches = import(table)?;
+        let model = &self.inner;
+        let in_schema = batches.schema();
+        let schema = released(py, move || output_schema(model, in_schema, &opts))?;
+        Ok(ArrowStream::new(schema, Vec::new()))
+    }
+
     /// Scores batches one at a time as they are read from `reader`.
     #[pyo3(signature = (reader, keep, coverage, missing, name, batch_rows, threads))]
     #[allow(clippy::too_many_arguments)]

@@ -76,6 +76,64 @@ pub(crate) struct BatchPlace<'a> {
     pub local_row: u64,
 }
 
+/// Builds a block from the chosen columns of an Arrow batch (`names`: features then the
+/// target, each read as numbers) that has no file: `place` names it in messages (row
+/// numbers count from `first_row` + 1), and each kept row's id is its
+/// [`super::sample::value_key`] instead of a position, so that the holdout split and the
+/// samples depend only on the rows' values and the seed.
+///
+/// # Errors
+/// [`Error::Column`] when a column is absent or cannot be read as numbers;
+/// [`Error::Cell`] for a missing value under [`MissingPolicy::Fail`].
+pub fn block_of_batch(
+    batch: &arrow_array::RecordBatch,
+    names: &[&str],
+    has_target: bool,
+    policy: MissingPolicy,
+    place: &Path,
+    first_row: u64,
+) -> Result<Block> {
+    use arrow_array::cast::AsArray;
+    let cols = names
+        .iter()
+        .map(|name| {
+            let col = batch.column_by_name(name).ok_or_else(|| Error::Column {
+                path: place.to_path_buf(),
+                column: name.to_string(),
+                message: "no such column".into(),
+            })?;
+            let f = arrow_cast::cast(col, &arrow_schema::DataType::Float64).map_err(|e| {
+                Error::Column {
+                    path: place.to_path_buf(),
+                    column: name.to_string(),
+                    message: format!("could not be read as numbers ({e})"),
+                }
+            })?;
+            Ok(f.as_primitive::<arrow_array::types::Float64Type>().clone())
+        })
+        .collect::<Result<Vec<Float64Array>>>()?;
+    let n_features = names.len() - usize::from(has_target);
+    let at = BatchPlace {
+        path: place,
+        file_index: 0,
+        seq: 0,
+        first_row,
+        local_row: first_row,
+    };
+    let mut block = build_block(&at, &cols, names, n_features, has_target, policy)?;
+    let mut row = vec![0.0; names.len()];
+    for (r, id) in block.row_ids.iter_mut().enumerate() {
+        for (j, v) in block.x.row(r).iter().enumerate() {
+            row[j] = *v;
+        }
+        if let Some(y) = &block.y {
+            row[n_features] = y[r];
+        }
+        *id = super::sample::value_key(&row);
+    }
+    Ok(block)
+}
+
 /// Builds a block from the chosen columns of one batch (`cols`: features then target,
 /// each of the batch's length), applying the missing-value policy.
 pub(crate) fn build_block(

@@ -18,12 +18,14 @@ mod reader;
 mod sample;
 mod sources;
 mod survey;
+mod survey_part;
 
-pub use block::{Block, MissingPolicy};
+pub use block::{block_of_batch, Block, MissingPolicy};
 pub use columns::{
     choose_columns, resolve_columns, ColumnChoice, ColumnSelection, LeftOut, ResolvedColumns,
 };
 pub use reader::{Blocks, TableReader};
-pub use sample::{sample_key, splitmix64};
+pub use sample::{sample_key, splitmix64, value_key};
 pub use sources::{discover, discover_lenient, CsvOptions, Format, SourceFile};
 pub use survey::{survey, ColumnStats, Survey, SurveySettings};
+pub use survey_part::SurveyPart;

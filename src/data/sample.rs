@@ -25,6 +25,22 @@ pub fn sample_key(seed: u64, row_id: u64) -> u64 {
     splitmix64(seed, row_id)
 }
 
+/// A row's own key: a hash of the bit patterns of its values (inputs, then target),
+/// chained through [`splitmix64`]. Used in place of the global row id where rows have
+/// no stable position (the partitions of a cluster): the holdout split and every sample
+/// then hash this key with the seed, so they depend on the row's values and the seed
+/// only, not on how the rows are split or ordered. Equal rows get equal keys.
+#[inline]
+pub fn value_key(row: &[f64]) -> u64 {
+    let mut z = 0x6A09_E667_F3BC_C909u64;
+    for v in row {
+        // +0.0 and -0.0 are the same value.
+        let bits = if *v == 0.0 { 0 } else { v.to_bits() };
+        z = splitmix64(z, bits);
+    }
+    z
+}
+
 /// The `k` rows with the smallest keys among those offered, with their values.
 #[derive(Debug)]
 pub(crate) struct BottomK {
@@ -79,6 +95,24 @@ impl BottomK {
         for (key, id, slot) in other.heap.into_vec() {
             self.insert(key, id, &other.values[slot * w..(slot + 1) * w]);
         }
+    }
+
+    /// Every kept row as (key, row id, values), in key order (for carrying a sample
+    /// between processes).
+    pub(crate) fn entries(&self) -> Vec<(u64, u64, &[f64])> {
+        let w = self.width;
+        let mut e: Vec<(u64, u64, &[f64])> = self
+            .heap
+            .iter()
+            .map(|&(key, id, slot)| (key, id, &self.values[slot * w..(slot + 1) * w]))
+            .collect();
+        e.sort_unstable_by_key(|&(key, id, _)| (key, id));
+        e
+    }
+
+    /// Keeps a row with a key computed elsewhere (by [`BottomK::entries`] of a part).
+    pub(crate) fn insert_keyed(&mut self, key: u64, id: u64, row: &[f64]) {
+        self.insert(key, id, row);
     }
 
     /// Row ids in the order of their keys, and their values, row-major. Keys are a

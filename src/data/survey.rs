@@ -96,16 +96,16 @@ pub struct Survey {
 
 /// Running moments of one column (Welford's update, Chan et al.'s merge).
 #[derive(Clone, Copy, Debug)]
-struct Moments {
-    n: u64,
-    mean: f64,
-    m2: f64,
-    min: f64,
-    max: f64,
+pub(super) struct Moments {
+    pub n: u64,
+    pub mean: f64,
+    pub m2: f64,
+    pub min: f64,
+    pub max: f64,
 }
 
 impl Moments {
-    const EMPTY: Moments = Moments {
+    pub(super) const EMPTY: Moments = Moments {
         n: 0,
         mean: 0.0,
         m2: 0.0,
@@ -125,7 +125,7 @@ impl Moments {
     }
 
     /// Chan, Golub & LeVeque (1979): merge two disjoint parts.
-    fn merge(&mut self, o: &Moments) {
+    pub(super) fn merge(&mut self, o: &Moments) {
         if o.n == 0 {
             return;
         }
@@ -145,16 +145,16 @@ impl Moments {
 }
 
 /// Everything one file contributes.
-struct Part {
-    moments: Vec<Moments>,
-    missing: Vec<u64>,
-    rows: u64,
-    used: u64,
-    sample: BottomK,
+pub(super) struct Part {
+    pub moments: Vec<Moments>,
+    pub missing: Vec<u64>,
+    pub rows: u64,
+    pub used: u64,
+    pub sample: BottomK,
 }
 
 impl Part {
-    fn new(cols: usize, k: usize, seed: u64) -> Self {
+    pub(super) fn new(cols: usize, k: usize, seed: u64) -> Self {
         Part {
             moments: vec![Moments::EMPTY; cols],
             missing: vec![0; cols],
@@ -165,7 +165,7 @@ impl Part {
     }
 
     /// Adds the rows of a later, disjoint part (Chan, Golub & LeVeque merge).
-    fn merge(&mut self, p: Part) {
+    pub(super) fn merge(&mut self, p: Part) {
         for (m, o) in self.moments.iter_mut().zip(&p.moments) {
             m.merge(o);
         }
@@ -177,7 +177,7 @@ impl Part {
         self.sample.absorb(p.sample);
     }
 
-    fn add(&mut self, b: &Block, row: &mut [f64]) {
+    pub(super) fn add(&mut self, b: &Block, row: &mut [f64]) {
         let d = b.x.ncols();
         for (r, &id) in b.row_ids.iter().enumerate() {
             for (j, v) in b.x.row(r).iter().enumerate() {
@@ -260,8 +260,11 @@ pub fn survey(
         }
         worker.join().expect("a survey worker panicked")
     });
-    let total = total?;
-    let columns = reader.columns().clone();
+    finish(reader.columns().clone(), total?)
+}
+
+/// The survey of the merged parts `total` of the columns `columns`.
+pub(super) fn finish(columns: ResolvedColumns, total: Part) -> Result<Survey> {
     if total.used == 0 {
         return Err(Error::NoRows(no_rows_reason(&columns, &total)));
     }
@@ -287,6 +290,7 @@ pub fn survey(
         });
     }
     let d = columns.features.len();
+    let cols = columns.all().count();
     let (sample_row_ids, values) = total.sample.into_key_order();
     let sample_all = Array2::from_shape_vec((sample_row_ids.len(), cols), values)
         .expect("the sample holds one value per column per row");

@@ -82,6 +82,16 @@ fn sample_index(n: u64, k: usize, seed: u64) -> Vec<usize> {
 /// Turns a survey into training facts, dropping constant input columns (and returning a
 /// reader over the remaining columns).
 pub(super) fn facts_from_survey(s: Survey, reader: &TableReader) -> Result<(Facts, TableReader)> {
+    let facts = facts_of_survey(s)?;
+    let reader = TableReader::new(reader.files().to_vec(), facts.columns.clone())
+        .with_batch_rows(reader.batch_rows())
+        .with_missing(reader.missing())
+        .with_csv(reader.csv().clone());
+    Ok((facts, reader))
+}
+
+/// Turns a survey into training facts, dropping constant input columns.
+pub(super) fn facts_of_survey(s: Survey) -> Result<Facts> {
     let target = s.target.as_ref().ok_or(Error::NoTarget)?;
     if s.rows_used == 0 {
         return Err(Error::NoRows(format!(
@@ -123,8 +133,8 @@ pub(super) fn facts_from_survey(s: Survey, reader: &TableReader) -> Result<(Fact
         rows: target.missing,
     });
     skipped_by_column.retain(|c| c.rows > 0);
-    let facts = Facts {
-        columns: columns.clone(),
+    Ok(Facts {
+        columns,
         scaler,
         target: TargetScale::from_moments(&target.name, target.mean, target.variance)?,
         sample_x,
@@ -133,12 +143,7 @@ pub(super) fn facts_from_survey(s: Survey, reader: &TableReader) -> Result<(Fact
         rows_skipped: s.rows_skipped,
         skipped_by_column,
         constant_columns: s.constant_features.clone(),
-    };
-    let reader = TableReader::new(reader.files().to_vec(), columns)
-        .with_batch_rows(reader.batch_rows())
-        .with_missing(reader.missing())
-        .with_csv(reader.csv().clone());
-    Ok((facts, reader))
+    })
 }
 
 /// A [`TableReader`] as a block source: one unit per file.

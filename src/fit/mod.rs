@@ -5,22 +5,23 @@ use std::time::Instant;
 
 use ndarray::{ArrayView1, ArrayView2};
 
-use crate::coverage::Coverage;
 use crate::data::{survey, SurveySettings, TableReader};
 use crate::error::Result;
-use crate::features::{build_map, MapSpec};
-use crate::heuristics::Defaults;
-use crate::kernel::{Kernel, KernelKind};
+use crate::features::MapSpec;
+use crate::kernel::KernelKind;
 use crate::model::Model;
-use crate::report::{Choice, TrainingReport};
 use crate::settings::thread_pool;
 use crate::solver::blocks::{
-    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings, Trainer,
+    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, Trainer,
 };
-use crate::solver::dcd::{DcdSettings, Loss};
+use crate::solver::dcd::Loss;
 
+mod choose;
 mod facts;
 mod options;
+pub mod parts;
+
+use choose::{assemble, choose};
 
 use facts::{facts_from_arrays, facts_from_survey, Facts, FileSource};
 pub use options::{hessian_rows_for, FitOptions};
@@ -180,146 +181,17 @@ impl Fitter {
         observer: &dyn TrainObserver,
         t0: Instant,
     ) -> Result<Model> {
-        let o = &self.opts;
-        let pool = thread_pool(o.threads)?;
-        let train_rows =
-            ((facts.rows_total - facts.rows_skipped) as f64 * (1.0 - o.holdout)) as u64;
-        let need_defaults = o.gamma.is_none() || o.c.is_none() || o.epsilon.is_none();
-        let defaults = if need_defaults {
-            Some(Defaults::from_sample(
-                facts.sample_x.view(),
-                facts.sample_y.view(),
-                facts.target.mean,
-                facts.target.sd,
-                train_rows.max(2),
-            )?)
-        } else {
-            None
-        };
-        let rule = |given: Option<f64>, default: Option<f64>, why: &str| match given {
-            Some(v) => Choice {
-                value: v,
-                source: "given".into(),
-            },
-            None => Choice {
-                value: default.unwrap_or(f64::NAN),
-                source: why.into(),
-            },
-        };
-        let gamma = rule(
-            o.gamma,
-            defaults.map(|d| d.gamma),
-            "median heuristic: 1 / median squared distance of standardized sample rows",
-        );
-        // Cherkassky & Ma's C is in target units, as C is for the linear loss. For the
-        // squared loss C multiplies squared residuals and is unit-free, so kernlake divides
-        // the rule's value by the target's standard deviation.
-        let (c_default, c_why) = match o.loss {
-            Loss::L1 => (
-                defaults.map(|d| d.c),
-                "Cherkassky & Ma (2004): max |mean ± 3 sd| of the target",
-            ),
-            Loss::L2 => (
-                defaults.map(|d| d.c / facts.target.sd),
-                "Cherkassky & Ma (2004) max |mean ± 3 sd| of the target, divided by sd for the squared loss",
-            ),
-        };
-        let c = rule(o.c, c_default, c_why);
-        let epsilon = rule(
-            o.epsilon,
-            defaults.map(|d| d.epsilon),
-            &format!(
-                "Cherkassky & Ma (2004): 3 σ √(ln n / n), noise σ ≈ {:.4} from 3-nearest-neighbour residuals",
-                defaults.map(|d| d.noise_sd).unwrap_or(f64::NAN)
-            ),
-        );
-        let kernel = Kernel::new(o.kernel, gamma.value)?;
-        let spec = MapSpec {
-            seed: o.seed,
-            ..o.map.clone()
-        };
-        let map = pool.install(|| {
-            build_map(
-                &spec,
-                kernel,
-                facts.scaler.dim(),
-                Some(facts.sample_x.view()),
-            )
-        })?;
-        let dcd = DcdSettings {
-            c: c.value,
-            epsilon: epsilon.value,
-            loss: o.loss,
-            shrinking: o.shrinking,
-            sweeps_per_block: o.sweeps_per_block,
-            tol: o.tol,
-            max_epochs: o.max_epochs,
-            seed: o.seed,
-        };
-        let settings = TrainSettings {
-            dcd: dcd.clone(),
-            method: o.method,
-            hessian_rows: o
-                .hessian_rows
-                .unwrap_or_else(|| hessian_rows_for(map.output_dim())),
-            memory_bytes: o.memory_bytes,
-            holdout: o.holdout,
-            patience: o.patience,
-            block_rows: o.block_rows,
-        };
+        let pool = thread_pool(self.opts.threads)?;
+        let chosen = choose(&self.opts, &facts, &pool)?;
         let trainer = Trainer {
             scaler: &facts.scaler,
-            map: map.as_ref(),
+            map: chosen.map.as_ref(),
             target: facts.target,
-            settings: &settings,
+            settings: &chosen.settings,
             rows_total: facts.rows_total,
             pool: &pool,
         };
         let out: TrainOutcome = trainer.run(source, observer)?;
-        let report = TrainingReport {
-            rows_total: facts.rows_total,
-            rows_trained: out.rows_trained,
-            rows_holdout: out.rows_holdout,
-            holdout_kept: out.holdout_kept,
-            rows_skipped: facts.rows_skipped,
-            skipped_by_column: facts.skipped_by_column,
-            constant_columns: facts.constant_columns,
-            gamma,
-            c,
-            epsilon,
-            features: map.output_dim(),
-            epochs: out.history.len(),
-            method: out.method,
-            stop: out.stop,
-            objective: out.objective,
-            holdout: out.holdout,
-            support_share: out.support_share,
-            updates: out.updates,
-            history: out.history,
-            seconds: t0.elapsed().as_secs_f64(),
-            threads: pool.current_num_threads(),
-        };
-        // The flag threshold comes from the training holdout when there is one (rows
-        // the solver never saw), else from the sample rows not used as landmarks.
-        let coverage = pool.install(|| {
-            Coverage::fit(
-                facts.sample_x.view(),
-                kernel,
-                out.holdout_inputs.as_ref().map(|h| h.view()),
-            )
-        })?;
-        let mut model = Model::new(
-            facts.columns,
-            facts.scaler,
-            kernel,
-            spec,
-            map,
-            out.weights,
-            out.intercept,
-            dcd,
-            report,
-        );
-        model.coverage = Some(coverage);
-        Ok(model)
+        assemble(facts, chosen, out, &pool, t0)
     }
 }

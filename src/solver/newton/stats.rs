@@ -177,6 +177,20 @@ impl PassStats {
         self
     }
 
+    /// The points the pass gathers a gradient for, as (step t, w + t·d) in solver units
+    /// (w itself, with t = 0, before the first direction): one of them becomes the next
+    /// iterate when the step is certified.
+    pub fn candidates(&self) -> Vec<(f64, Array1<f64>)> {
+        let p = &self.plan;
+        p.steps
+            .iter()
+            .map(|&t| match &p.dir {
+                Some(d) => (t, &p.w + &(d * t)),
+                None => (t, p.w.clone()),
+            })
+            .collect()
+    }
+
     /// Training rows added so far.
     pub fn rows(&self) -> u64 {
         self.sums.rows
