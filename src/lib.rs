@@ -59,6 +59,7 @@
 #[doc(hidden)]
 pub mod atomic;
 pub mod audit;
+pub mod band;
 #[cfg(feature = "cli")]
 #[doc(hidden)]
 pub mod cli;

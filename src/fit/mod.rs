@@ -3,8 +3,9 @@
 
 use std::time::Instant;
 
-use ndarray::{ArrayView1, ArrayView2};
+use ndarray::{ArrayView1, ArrayView2, Axis};
 
+use crate::band::Band;
 use crate::coverage::Coverage;
 use crate::data::{survey, SurveySettings, TableReader};
 use crate::error::Result;
@@ -15,7 +16,7 @@ use crate::model::Model;
 use crate::report::{Choice, TrainingReport};
 use crate::settings::thread_pool;
 use crate::solver::blocks::{
-    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings, Trainer,
+    is_holdout, ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings, Trainer,
 };
 use crate::solver::dcd::{DcdSettings, Loss};
 
@@ -276,6 +277,7 @@ impl Fitter {
             pool: &pool,
         };
         let out: TrainOutcome = trainer.run(source, observer)?;
+        let band = pool.install(|| calibrate_band(&facts, map.as_ref(), &out, o))?;
         let report = TrainingReport {
             rows_total: facts.rows_total,
             rows_trained: out.rows_trained,
@@ -320,6 +322,37 @@ impl Fitter {
             report,
         );
         model.coverage = Some(coverage);
+        model.band = band;
         Ok(model)
     }
+}
+
+/// The band of a fitted model (see [`crate::band`]): the spread model on the survey's
+/// seeded uniform sample restricted to training rows (the holdout hash decides, as in
+/// the passes), the scores on every kept holdout row. `None` without a holdout.
+fn calibrate_band(
+    facts: &Facts,
+    map: &dyn crate::features::FeatureMap,
+    out: &TrainOutcome,
+    o: &FitOptions,
+) -> Result<Option<Band>> {
+    let Some((hx, hy)) = out.holdout_rows.as_ref() else {
+        return Ok(None);
+    };
+    let train: Vec<usize> = facts
+        .sample_row_ids
+        .iter()
+        .enumerate()
+        .filter(|&(_, &id)| !is_holdout(id, o.seed, o.holdout))
+        .map(|(i, _)| i)
+        .collect();
+    let tx = facts.sample_x.select(Axis(0), &train);
+    let ty = facts.sample_y.select(Axis(0), &train);
+    Band::calibrate(
+        map,
+        out.weights.view(),
+        out.intercept,
+        (tx.view(), ty.view()),
+        (hx.view(), hy.view()),
+    )
 }
