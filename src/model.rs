@@ -365,7 +365,10 @@ fn check_band(b: &Band) -> std::result::Result<(), String> {
         return Err("its band's spread model holds a value that is not a finite number".into());
     }
     if !(sp.floor.is_finite() && sp.floor > 0.0) {
-        return Err(format!("its band's spread floor is {}, not a positive number", sp.floor));
+        return Err(format!(
+            "its band's spread floor is {}, not a positive number",
+            sp.floor
+        ));
     }
     if b.scores.is_empty() || b.scores.len() as u64 > b.calibration_rows {
         return Err(format!(

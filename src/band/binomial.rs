@@ -109,7 +109,10 @@ pub fn binomial_mass(x: u64, n: u64, p: f64) -> f64 {
 /// # Panics
 /// If `p` is not in [0, 1].
 pub fn binomial_upper_tail(k: u64, n: u64, p: f64) -> f64 {
-    assert!((0.0..=1.0).contains(&p), "binomial tail: p = {p} is not a probability");
+    assert!(
+        (0.0..=1.0).contains(&p),
+        "binomial tail: p = {p} is not a probability"
+    );
     if k == 0 {
         return 1.0;
     }

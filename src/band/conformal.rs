@@ -87,7 +87,11 @@ impl Band {
         let (train_x, train_y) = train;
         let (holdout_x, holdout_y) = holdout;
         assert_eq!(train_x.nrows(), train_y.len(), "band: training rows differ");
-        assert_eq!(holdout_x.nrows(), holdout_y.len(), "band: holdout rows differ");
+        assert_eq!(
+            holdout_x.nrows(),
+            holdout_y.len(),
+            "band: holdout rows differ"
+        );
         if train_x.nrows() == 0 || holdout_x.nrows() == 0 {
             return Ok(None);
         }
@@ -155,9 +159,7 @@ impl Band {
             return Ok(self.scores[rank - 1]);
         }
         // Smallest kept rank at or above `rank`.
-        let i = (1..=k)
-            .find(|&i| kept_rank(i, n) >= rank)
-            .unwrap_or(k);
+        let i = (1..=k).find(|&i| kept_rank(i, n) >= rank).unwrap_or(k);
         Ok(self.scores[i - 1])
     }
 

@@ -382,7 +382,10 @@ impl DeviationReport {
         }
         table(&mut s, "by file", &self.files);
         let order = self.time.as_deref().unwrap_or("row order");
-        let _ = writeln!(s, "longest runs of consecutive rows outside the band ({order})");
+        let _ = writeln!(
+            s,
+            "longest runs of consecutive rows outside the band ({order})"
+        );
         for r in self.runs.iter().take(10) {
             let group = if r.group.is_empty() {
                 String::new()

@@ -14,7 +14,9 @@ const TOP: f64 = 40.0;
 const BOTTOM: f64 = 50.0;
 
 fn escape(s: &str) -> String {
-    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
 }
 
 /// The plot as SVG text (a short note when the report has no points).

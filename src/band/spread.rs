@@ -23,7 +23,7 @@ use crate::error::Result;
 use crate::features::symmetric_eigen;
 
 /// Share of the mean absolute training residual below which σ never falls.
-pub const FLOOR_SHARE: f64 = 0.05;
+pub const FLOOR_SHARE: f64 = 0.01;
 
 /// Candidate ridge weights, as multiples of tr(G)/D (the mean eigenvalue of the centred
 /// Gram matrix G), from which generalized cross-validation chooses.

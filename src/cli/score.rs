@@ -12,13 +12,13 @@ use std::io::Write;
 use crate::atomic::write_atomic;
 use crate::band::render_band_svg;
 use crate::data::{discover, discover_lenient, CsvOptions};
-use crate::settings::defaults;
 use crate::error::{Error, Result};
 use crate::model::Model;
 use crate::score::{
-    check_band_options, score_files, score_files_to_stream, score_stream, MissingRows, ScoreObserver, ScoreOptions,
-    ScoreSummary,
+    check_band_options, score_files, score_files_to_stream, score_stream, MissingRows,
+    ScoreObserver, ScoreOptions, ScoreSummary,
 };
+use crate::settings::defaults;
 
 /// `kernlake score`.
 #[derive(Debug, Args)]

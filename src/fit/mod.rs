@@ -16,7 +16,8 @@ use crate::model::Model;
 use crate::report::{Choice, TrainingReport};
 use crate::settings::thread_pool;
 use crate::solver::blocks::{
-    is_holdout, ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, TrainSettings, Trainer,
+    is_holdout, ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome,
+    TrainSettings, Trainer,
 };
 use crate::solver::dcd::{DcdSettings, Loss};
 

@@ -5,14 +5,16 @@
 use std::path::Path;
 use std::sync::Arc;
 
-use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, Int64Array, RecordBatch, StringArray};
+use arrow_array::{
+    Array, ArrayRef, BooleanArray, Float64Array, Int64Array, RecordBatch, StringArray,
+};
 use arrow_schema::{DataType, Field, Schema};
 use ndarray::{Array2, ArrayView2, ArrayViewMut1, Axis};
 use rayon::prelude::*;
 
 use super::ScoreOptions;
-use crate::coverage::COVERAGE_CHUNK as COVERAGE_CHUNK_ROWS;
 use crate::band::{check_level, Band, BandRow, FileDeviation};
+use crate::coverage::COVERAGE_CHUNK as COVERAGE_CHUNK_ROWS;
 use crate::error::{Error, Result};
 use crate::model::Model;
 
@@ -61,10 +63,7 @@ pub fn check_band_options(model: &Model, opts: &ScoreOptions) -> Result<()> {
         }
         (Some(level), None) => {
             check_level(level)?;
-            return Err(Error::invalid(
-                "band",
-                "the model stores no band (it was fitted without holdout rows, or before bands existed), so score without a band or refit with a holdout",
-            ));
+            return Err(no_band());
         }
         (None, _) => {
             if opts.time_column.is_some() || opts.group_column.is_some() {
@@ -76,6 +75,14 @@ pub fn check_band_options(model: &Model, opts: &ScoreOptions) -> Result<()> {
         }
     }
     Ok(())
+}
+
+/// The error for a band asked of a model that stores none.
+fn no_band() -> Error {
+    Error::invalid(
+        "band",
+        "the model stores no band (it was fitted without holdout rows, or before bands existed), so score without a band or refit with a holdout",
+    )
 }
 
 fn column_error(path: &Path, column: &str, message: &str) -> Error {
@@ -110,9 +117,13 @@ impl BandPlan {
             .and_then(|t| schema.index_of(t).ok());
         let time = match &opts.time_column {
             Some(name) => {
-                let i = schema
-                    .index_of(name)
-                    .map_err(|_| column_error(path, name, "no such column to order the band's report by time"))?;
+                let i = schema.index_of(name).map_err(|_| {
+                    column_error(
+                        path,
+                        name,
+                        "no such column to order the band's report by time",
+                    )
+                })?;
                 Some((i, schema.field(i).data_type().clone()))
             }
             None => None,
@@ -274,23 +285,32 @@ pub(crate) fn band_columns(
         Some(i) => Some(cast(i, &DataType::Float64, "target")?),
         None => None,
     };
-    let measured = measured
-        .as_ref()
-        .map(|a| a.as_any().downcast_ref::<Float64Array>().expect("cast to f64").clone());
+    let measured = measured.as_ref().map(|a| {
+        a.as_any()
+            .downcast_ref::<Float64Array>()
+            .expect("cast to f64")
+            .clone()
+    });
     let times = match &plan.time {
         Some((i, _)) => Some(cast(*i, &DataType::Int64, "time")?),
         None => None,
     };
-    let times = times
-        .as_ref()
-        .map(|a| a.as_any().downcast_ref::<Int64Array>().expect("cast to i64").clone());
+    let times = times.as_ref().map(|a| {
+        a.as_any()
+            .downcast_ref::<Int64Array>()
+            .expect("cast to i64")
+            .clone()
+    });
     let groups = match &plan.group {
         Some(Source::Column(i)) => Some(cast(*i, &DataType::Utf8, "group")?),
         _ => None,
     };
-    let groups = groups
-        .as_ref()
-        .map(|a| a.as_any().downcast_ref::<StringArray>().expect("cast to text").clone());
+    let groups = groups.as_ref().map(|a| {
+        a.as_any()
+            .downcast_ref::<StringArray>()
+            .expect("cast to text")
+            .clone()
+    });
     let constant_group = match &plan.group {
         Some(Source::Constant(v)) => v.as_str(),
         _ => "",
@@ -376,4 +396,43 @@ pub(crate) fn format_time(t: i64, ty: Option<&DataType>) -> String {
                 .map(|s| s.value(0).to_string())
         })
         .unwrap_or_else(|| t.to_string())
+}
+
+/// Predictions and the band at `level` of raw-unit rows `x` in memory (rows × inputs,
+/// contract order): `(prediction, low, high)`, each equal to what scoring writes.
+///
+/// # Errors
+/// [`Error::InvalidParameter`] when the model stores no band or the level is not in
+/// (0, 1) or beyond what its holdout supports.
+///
+/// # Panics
+/// If `x` has the wrong number of columns.
+pub fn predict_with_band(
+    model: &Model,
+    x: ArrayView2<f64>,
+    level: f64,
+) -> Result<(
+    ndarray::Array1<f64>,
+    ndarray::Array1<f64>,
+    ndarray::Array1<f64>,
+)> {
+    check_level(level)?;
+    let band = model.band.as_ref().ok_or_else(no_band)?;
+    let q = band.quantile(level)?;
+    assert_eq!(
+        x.ncols(),
+        model.input_dim(),
+        "wrong number of input columns"
+    );
+    let n = x.nrows();
+    let mut pred = ndarray::Array1::zeros(n);
+    let mut sigma = ndarray::Array1::zeros(n);
+    predict_band(model, band, x, pred.view_mut(), sigma.view_mut(), None);
+    let low = ndarray::Zip::from(&pred)
+        .and(&sigma)
+        .map_collect(|&f, &s| Band::interval(f, s, q).0);
+    let high = ndarray::Zip::from(&pred)
+        .and(&sigma)
+        .map_collect(|&f, &s| Band::interval(f, s, q).1);
+    Ok((pred, low, high))
 }

@@ -12,10 +12,10 @@ use parquet::arrow::ProjectionMask;
 
 use super::banded::{check_band_options, format_time};
 use super::batch::{score_planned, Plan};
-use crate::band::{DeviationReport, FileDeviation};
 use super::writer::{complete_stamp, plan_outputs, OutputFile, Stamp};
 use super::{model_checksum, FileFailure, ScoreObserver, ScoreOptions, ScoreSummary};
 use crate::atomic::remove_stale_temps;
+use crate::band::{DeviationReport, FileDeviation};
 use crate::data::csv::{self, CsvBatches};
 use crate::data::{Format, SourceFile};
 use crate::error::{Error, Result};
@@ -25,7 +25,13 @@ use crate::model::Model;
 enum Outcome {
     /// Scored now: rows read, rows written, rows missing, rows uncovered, and with a
     /// band the file's deviation tally and the time column's type.
-    Scored(u64, u64, u64, u64, Option<Box<(FileDeviation, Option<DataType>)>>),
+    Scored(
+        u64,
+        u64,
+        u64,
+        u64,
+        Option<Box<(FileDeviation, Option<DataType>)>>,
+    ),
     /// Output already complete.
     Skipped,
 }
@@ -296,11 +302,17 @@ impl FileJob<'_> {
                 return Err(Error::ScoreStopped);
             }
             let batch = batch?;
-            let scored = self
-                .pool
-                .install(|| {
-                    score_planned(self.model, &plan, &batch, self.opts, path, read, tally.as_mut())
-                })?;
+            let scored = self.pool.install(|| {
+                score_planned(
+                    self.model,
+                    &plan,
+                    &batch,
+                    self.opts,
+                    path,
+                    read,
+                    tally.as_mut(),
+                )
+            })?;
             out.write(&scored.batch, self.output)?;
             let n = batch.num_rows() as u64;
             read += n;

@@ -59,7 +59,8 @@ pub fn score_stream<R: Read, W: Write>(
             let len = opts.batch_rows.min(batch.num_rows() - offset);
             let part = batch.slice(offset, len);
             let first = summary.rows_read;
-            let scored = pool.install(|| score_planned(model, &plan, &part, opts, path, first, None))?;
+            let scored =
+                pool.install(|| score_planned(model, &plan, &part, opts, path, first, None))?;
             writer
                 .write(&scored.batch)
                 .map_err(|e| stream_error("<output>", e))?;
