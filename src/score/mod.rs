@@ -38,6 +38,7 @@ mod batch;
 mod covered;
 mod files;
 mod pipe;
+mod table;
 mod writer;
 
 use std::path::PathBuf;
@@ -52,6 +53,7 @@ pub use batch::{score_batch, score_batch_at};
 pub use covered::predict_covered;
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
+pub use table::TableReport;
 pub use writer::STAMP_KEY;
 
 use crate::data::{CsvOptions, Format};
