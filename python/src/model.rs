@@ -222,7 +222,15 @@ impl PyModel {
     ) -> PyResult<ArrowStream> {
         let model = &self.inner;
         let opts = score_options(
-            py, model, keep, coverage, missing, name, batch_rows, threads, (band, time, by),
+            py,
+            model,
+            keep,
+            coverage,
+            missing,
+            name,
+            batch_rows,
+            threads,
+            (band, time, by),
         )?;
         let batches = import(table)?;
         let (schema, out) = released(py, move || {

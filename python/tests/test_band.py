@@ -69,11 +69,13 @@ def test_errors(ccpp):
 @pytest.mark.skipif(not os.environ.get("KERNLAKE_BIN"), reason="needs the CLI (KERNLAKE_BIN)")
 def test_same_band_as_cli(model, ccpp, tmp_path):
     test = ccpp.slice(6000, 500)
-    pacsv.write_csv(test, tmp_path / "t.csv")
+    (tmp_path / "in").mkdir()
+    pacsv.write_csv(test, tmp_path / "in" / "t.csv")
     model.save(str(tmp_path / "m.klm"))
-    subprocess.run([os.environ["KERNLAKE_BIN"], "score", str(tmp_path / "m.klm"),
-                    str(tmp_path / "t.csv"), "--out", str(tmp_path / "o"), "--band", "0.9",
-                    "--report", str(tmp_path / "r.json")], check=True, capture_output=True)
+    r = subprocess.run([os.environ["KERNLAKE_BIN"], "score", str(tmp_path / "m.klm"),
+                    str(tmp_path / "in" / "t.csv"), "--out", str(tmp_path / "o"), "--band", "0.9",
+                    "--report", str(tmp_path / "r.json")], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
     import pyarrow.parquet as pq
     cli = pq.read_table(tmp_path / "o" / "t.parquet")
     py = model.score(test, band=0.9)

@@ -381,7 +381,7 @@ pub(crate) fn band_columns(
 }
 
 /// Shows a time key as the time column's type does (falls back to the number).
-pub(crate) fn format_time(t: i64, ty: Option<&DataType>) -> String {
+pub fn format_time(t: i64, ty: Option<&DataType>) -> String {
     let Some(ty) = ty else {
         return format!("row {}", t + 1);
     };

@@ -46,8 +46,8 @@ use std::path::PathBuf;
 use serde::{Deserialize, Serialize};
 
 pub use banded::{
-    check_band_options, predict_with_band, BAND_HIGH_COLUMN, BAND_LOW_COLUMN, OUTSIDE_COLUMN,
-    RESIDUAL_COLUMN,
+    check_band_options, format_time, predict_with_band, BAND_HIGH_COLUMN, BAND_LOW_COLUMN,
+    OUTSIDE_COLUMN, RESIDUAL_COLUMN,
 };
 pub use batch::{score_batch, score_batch_at};
 pub use covered::predict_covered;

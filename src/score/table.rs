@@ -60,7 +60,16 @@ impl TableReport {
         if self.time_type.is_none() {
             self.time_type = plan.band().and_then(|b| b.time_type().cloned());
         }
-        Ok(score_planned(model, &plan, batch, opts, path, first_row, Some(&mut self.tally))?.batch)
+        Ok(score_planned(
+            model,
+            &plan,
+            batch,
+            opts,
+            path,
+            first_row,
+            Some(&mut self.tally),
+        )?
+        .batch)
     }
 
     /// The report over every slice scored.
@@ -72,7 +81,10 @@ impl TableReport {
             opts.time_column.clone(),
             vec![self.tally],
         );
-        let ty = self.time_type.as_ref().filter(|_| opts.time_column.is_some());
+        let ty = self
+            .time_type
+            .as_ref()
+            .filter(|_| opts.time_column.is_some());
         r.format_times(&|t| format_time(t, ty));
         r
     }
