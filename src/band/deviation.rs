@@ -4,6 +4,10 @@
 //! expected, with the exact binomial tail P(X ≥ outside) under Binomial(rows, 1 − level),
 //! and runs of consecutive outside rows in time order, largest first.
 //!
+//! Rows outside the training data's coverage (see [`crate::coverage`]) are counted per
+//! group but not judged against the band: the model has no expectation there, and the
+//! band's guarantee is for rows like the holdout.
+//!
 //! Deterministic by construction: each file is tallied by one thread in row order, files
 //! are merged in the order given, so the report is the same whatever the thread count or
 //! batch size. Runs are found within a file (a run that crosses files is two runs).
@@ -52,6 +56,7 @@ impl BandRow {
 struct Tally {
     rows: u64,
     outside: u64,
+    uncovered: u64,
     sum: f64,
     sum_sq: f64,
 }
@@ -60,6 +65,7 @@ impl Tally {
     fn merge(&mut self, o: &Tally) {
         self.rows += o.rows;
         self.outside += o.outside;
+        self.uncovered += o.uncovered;
         self.sum += o.sum;
         self.sum_sq += o.sum_sq;
     }
@@ -78,7 +84,7 @@ impl Thinned {
         if self.stride == 0 {
             self.stride = 1;
         }
-        if self.seen % self.stride == 0 {
+        if self.seen.is_multiple_of(self.stride) {
             self.points.push(r);
             if self.points.len() > PLOT_POINTS {
                 let mut i = 0;
@@ -127,6 +133,7 @@ impl FileDeviation {
         let t = Tally {
             rows: 1,
             outside: out as u64,
+            uncovered: 0,
             sum: r,
             sum_sq: r * r,
         };
@@ -138,6 +145,22 @@ impl FileDeviation {
         g.tally.merge(&t);
         g.points.push((row.time, self.position, out));
         g.plot.push(row);
+        self.position += 1;
+    }
+
+    /// Counts the next row of the file as outside the training data's coverage (not
+    /// judged against the band; it breaks no run and joins none).
+    pub fn add_uncovered(&mut self, group: &str) {
+        let t = Tally {
+            uncovered: 1,
+            ..Tally::default()
+        };
+        self.total.merge(&t);
+        let g = match self.groups.get_mut(group) {
+            Some(g) => g,
+            None => self.groups.entry(group.to_string()).or_default(),
+        };
+        g.tally.merge(&t);
         self.position += 1;
     }
 
@@ -162,8 +185,10 @@ impl FileDeviation {
 pub struct GroupFigures {
     /// The file, or the group's value.
     pub name: String,
-    /// Rows with a measured value and a prediction.
+    /// Rows with a measured value and a prediction, inside the training data's coverage.
     pub rows: u64,
+    /// Rows with a measured value outside the training data's coverage (not judged).
+    pub uncovered: u64,
     /// Mean of measured − expected.
     pub residual_mean: f64,
     /// Root mean square of measured − expected.
@@ -226,6 +251,7 @@ fn figures(name: &str, t: &Tally, expected_outside: f64) -> GroupFigures {
     GroupFigures {
         name: name.to_string(),
         rows: t.rows,
+        uncovered: t.uncovered,
         residual_mean: t.sum / n,
         residual_rmse: (t.sum_sq / n).sqrt(),
         outside: t.outside,
@@ -278,7 +304,7 @@ impl DeviationReport {
             }
         }
         // Stable: equal runs keep file order.
-        runs.sort_by(|a, b| b.rows.cmp(&a.rows));
+        runs.sort_by_key(|r| std::cmp::Reverse(r.rows));
         runs.truncate(DEFAULT_RUNS_SHOWN);
         let mut group_figs: Vec<GroupFigures> = if by.is_some() {
             groups
@@ -346,9 +372,10 @@ impl DeviationReport {
         let o = &self.overall;
         let _ = writeln!(
             s,
-            "band level {:.3}: {} rows with a measured value, {} outside ({:.2}% against {:.2}% expected, p = {:.3e})",
+            "band level {:.3}: {} rows with a measured value judged ({} more outside the training data's coverage, not judged), {} outside the band ({:.2}% against {:.2}% expected, p = {:.3e})",
             self.level,
             o.rows,
+            o.uncovered,
             o.outside,
             100.0 * o.outside_share,
             100.0 * self.expected_outside,
@@ -358,15 +385,16 @@ impl DeviationReport {
             let _ = writeln!(s, "{title} (smallest p-value first)");
             let _ = writeln!(
                 s,
-                "  {:<40} {:>10} {:>12} {:>12} {:>9} {:>10}",
-                "name", "rows", "resid mean", "resid RMSE", "outside", "p-value"
+                "  {:<24} {:>9} {:>10} {:>11} {:>11} {:>9} {:>10}",
+                "name", "rows", "uncovered", "resid mean", "resid RMSE", "outside", "p-value"
             );
             for g in v.iter().take(30) {
                 let _ = writeln!(
                     s,
-                    "  {:<40} {:>10} {:>12.4} {:>12.4} {:>8.2}% {:>10.3e}",
-                    g.name,
+                    "  {:<24} {:>9} {:>10} {:>11.4} {:>11.4} {:>8.2}% {:>10.3e}",
+                    short(&g.name, 24),
                     g.rows,
+                    g.uncovered,
                     g.residual_mean,
                     g.residual_rmse,
                     100.0 * g.outside_share,
@@ -394,10 +422,21 @@ impl DeviationReport {
             };
             let _ = writeln!(
                 s,
-                "  {:>8} rows  {} … {}{}  {}",
+                "  {:>8} rows  {} to {}{}  {}",
                 r.rows, r.start_text, r.end_text, group, r.file
             );
         }
         s
+    }
+}
+
+/// `s` cut to its last `n` characters (with a leading ellipsis) for a table column.
+fn short(s: &str, n: usize) -> String {
+    let count = s.chars().count();
+    if count <= n {
+        s.to_string()
+    } else {
+        let tail: String = s.chars().skip(count - (n - 1)).collect();
+        format!("…{tail}")
     }
 }

@@ -13,6 +13,9 @@ use crate::settings::defaults::BAND_LEVEL;
 use super::args::DemoArgs;
 use super::progress::{rows_bar, EpochBars};
 
+/// The partition folder naming a site.
+const SITE: &str = "site";
+
 /// Runs `kernlake demo`.
 pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
     let spec = DemoSpec {
@@ -48,7 +51,15 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         |f: &crate::data::SourceFile| f.partitions.iter().any(|(k, v)| k == "month" && *v == last);
     let (test_files, train_files): (Vec<_>, Vec<_>) = files.into_iter().partition(is_last);
     let columns = ResolvedColumns {
-        features: FEATURES.iter().map(|s| s.to_string()).collect(),
+        // The site (its partition folder's number) is an input too: each site has its own
+        // plant (envelope, condenser, efficiency) that the conditions alone do not show,
+        // and a fleet model that cannot tell sites apart needs a band wide enough to hold
+        // all of them, too wide to see one site drift by 15 %.
+        features: FEATURES
+            .iter()
+            .chain(std::iter::once(&SITE))
+            .map(|s| s.to_string())
+            .collect(),
         target: Some(TARGET.to_string()),
     };
     let train_rows: u64 = train_files.iter().filter_map(|f| f.rows).sum();

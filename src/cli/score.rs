@@ -76,7 +76,8 @@ pub struct ScoreArgs {
     /// the prediction: it holds new rows like the fit's holdout with at least this
     /// probability, not rows from a changed plant) and, where the data holds the
     /// target, residual and outside_band, and prints a deviation report. Default 0.95
-    /// when the model stores a band.
+    /// when the model stores a band. Rows flagged outside the band are an aid for
+    /// engineers deciding where to look, not a protective function.
     #[arg(long, value_name = "LEVEL")]
     pub band: Option<f64>,
     /// Score without the band columns and report.

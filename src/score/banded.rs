@@ -262,7 +262,8 @@ pub(crate) fn predict_band(
 /// report. `pred` and `sigma` hold the usable rows (`ok`) in order; with `skip` the
 /// output holds only those rows, else every row (nulls where inputs are missing).
 /// `first_row` is the batch's first row within its file (the time key without a time
-/// column).
+/// column). `covered` (per usable row, with coverage) keeps rows outside the training
+/// data's coverage out of the report's judgement.
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn band_columns(
     plan: &BandPlan,
@@ -270,6 +271,7 @@ pub(crate) fn band_columns(
     ok: &[bool],
     pred: &[f64],
     sigma: &[f64],
+    covered: Option<&[bool]>,
     skip: bool,
     first_row: u64,
     path: &Path,
@@ -360,7 +362,11 @@ pub(crate) fn band_columns(
                         Some(_) => "(null)",
                         None => constant_group,
                     };
-                    t.add(g, row);
+                    if covered.is_none_or(|c| c[k - 1]) {
+                        t.add(g, row);
+                    } else {
+                        t.add_uncovered(g);
+                    }
                 }
             }
             None => {
@@ -380,22 +386,31 @@ pub(crate) fn band_columns(
     Ok(cols)
 }
 
-/// Shows a time key as the time column's type does (falls back to the number).
+/// Shows a time key as the time column's type does: timestamps and dates as UTC date
+/// and time text, other types as the number ("row N" without a time column).
 pub fn format_time(t: i64, ty: Option<&DataType>) -> String {
+    use arrow_array::temporal_conversions::as_datetime;
+    use arrow_array::types::{
+        Date32Type, Date64Type, TimestampMicrosecondType, TimestampMillisecondType,
+        TimestampNanosecondType, TimestampSecondType,
+    };
+    use arrow_schema::TimeUnit;
     let Some(ty) = ty else {
         return format!("row {}", t + 1);
     };
-    let a: ArrayRef = Arc::new(Int64Array::from(vec![t]));
-    arrow_cast::cast(&a, ty)
-        .and_then(|v| arrow_cast::cast(&v, &DataType::Utf8))
-        .ok()
-        .and_then(|s| {
-            s.as_any()
-                .downcast_ref::<StringArray>()
-                .filter(|s| !s.is_null(0))
-                .map(|s| s.value(0).to_string())
-        })
-        .unwrap_or_else(|| t.to_string())
+    let shown = match ty {
+        DataType::Timestamp(TimeUnit::Second, _) => as_datetime::<TimestampSecondType>(t),
+        DataType::Timestamp(TimeUnit::Millisecond, _) => as_datetime::<TimestampMillisecondType>(t),
+        DataType::Timestamp(TimeUnit::Microsecond, _) => as_datetime::<TimestampMicrosecondType>(t),
+        DataType::Timestamp(TimeUnit::Nanosecond, _) => as_datetime::<TimestampNanosecondType>(t),
+        DataType::Date32 => as_datetime::<Date32Type>(t),
+        DataType::Date64 => as_datetime::<Date64Type>(t),
+        _ => None,
+    };
+    match shown {
+        Some(d) => d.format("%Y-%m-%d %H:%M").to_string(),
+        None => t.to_string(),
+    }
 }
 
 /// Predictions and the band at `level` of raw-unit rows `x` in memory (rows × inputs,

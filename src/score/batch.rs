@@ -392,12 +392,16 @@ pub(crate) fn score_planned(
         out.push(Arc::new(covered));
     }
     if let Some(bp) = &plan.band {
+        let covered: Option<Vec<bool>> = cov
+            .as_ref()
+            .map(|(v, t)| v.iter().map(|&c| c >= *t).collect());
         out.extend(band_columns(
             bp,
             batch,
             &ok,
             pred.as_slice().expect("contiguous"),
             sigma.as_slice().expect("contiguous"),
+            covered.as_deref(),
             skip,
             first_row,
             path,
