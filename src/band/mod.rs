@@ -8,7 +8,8 @@
 //! holdout rows (never seen) → s = |y − f(x)| / σ(x), sorted, bounded     conformal.rs
 //! scoring at level α        → q = s₍⌈(n+1)α⌉₎ ; band f(x) ± q·σ(x)       conformal.rs
 //! rows with a measured y    → residual, outside flag, deviation report   deviation.rs,
-//!                             (binomial tail, runs of outside rows)      binomial.rs, runs.rs
+//!                             (binomial tail, runs of outside rows)      binomial.rs, runs.rs,
+//!                             as text and as an SVG                       text.rs, plot.rs
 //! ```
 //!
 //! What the band means: if a new row is exchangeable with the holdout rows (drawn from
@@ -23,6 +24,7 @@ mod deviation;
 mod plot;
 mod runs;
 mod spread;
+mod text;
 
 pub use binomial::{binomial_mass, binomial_upper_tail};
 pub use conformal::{check_level, Band, SCORES_KEPT};

@@ -9,7 +9,8 @@ use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, RecordBatch};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
 use ndarray::{Array1, Array2};
 
-use super::banded::{band_columns, predict_band, BandPlan};
+use super::banded::{band_columns, BandPlan};
+use super::bandpredict::predict_band;
 use super::covered::predict_covered;
 use super::{MissingRows, ScoreOptions, COVERAGE_COLUMN, COVERED_COLUMN};
 use crate::data::csv;

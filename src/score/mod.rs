@@ -34,6 +34,7 @@
 //!   write Arrow IPC streams (pipes).
 
 mod banded;
+mod bandpredict;
 mod batch;
 mod covered;
 mod files;
@@ -46,9 +47,10 @@ use std::path::PathBuf;
 use serde::{Deserialize, Serialize};
 
 pub use banded::{
-    check_band_options, format_time, predict_with_band, BAND_HIGH_COLUMN, BAND_LOW_COLUMN,
-    OUTSIDE_COLUMN, RESIDUAL_COLUMN,
+    check_band_options, format_time, BAND_HIGH_COLUMN, BAND_LOW_COLUMN, OUTSIDE_COLUMN,
+    RESIDUAL_COLUMN,
 };
+pub use bandpredict::predict_with_band;
 pub use batch::{score_batch, score_batch_at};
 pub use covered::predict_covered;
 pub use files::score_files;
