@@ -245,7 +245,7 @@ class Model:
         name: str = "prediction",
         batch_rows: int = 65536,
         threads: int = 0,
-        band: Optional[float] = None,
+        band: Union[float, bool, None] = None,
     ) -> Any:
         """Score a table; returns a ``pyarrow.Table`` with exactly the columns
         ``kernlake score`` writes: the kept columns (default: every column that is not a
@@ -256,16 +256,29 @@ class Model:
         the row, null prediction), "skip" (leave it out) or "fail" (raise, naming row
         and column). Kept columns are passed through without a copy.
 
-        ``band`` (a level in (0, 1), such as 0.95; the model must store a band) adds
-        ``band_low`` and ``band_high``, and where the table holds the target also
-        ``residual`` and ``outside_band``. Unlike the command line, Python adds no band
-        unless asked. The band holds new rows like the fit's holdout with at least that
-        probability; it says nothing about a changed plant. See :meth:`score_report`.
+        ``band`` (a level in (0, 1); the model must store a band) adds ``band_low`` and
+        ``band_high``, and where the table holds the target also ``residual`` and
+        ``outside_band``. As on the command line, ``None`` means 0.95 when the model
+        stores a band and no band otherwise; ``False`` leaves the band out. The band
+        holds new rows like the fit's holdout with at least that probability; it says
+        nothing about a changed plant. See :meth:`score_report`.
         """
         keep_list = list(keep) if keep is not None else None
         stream = self._m.score_stream(_arrow(table), keep_list, bool(coverage), missing,
-                                      name, batch_rows, threads, band)
+                                      name, batch_rows, threads, self._band_level(band))
         return _table(stream)
+
+    def _band_level(self, band: Union[float, bool, None]) -> Optional[float]:
+        """The band level to score at: the command line's default for ``None``."""
+        if band is False:
+            return None
+        info = self._m.parameters.get("band")
+        if band is None:
+            return info["default_level"] if info else None
+        if band is True:
+            # Asked for a band: the library refuses a model without one.
+            return info["default_level"] if info else 0.95
+        return float(band)
 
     def score_report(
         self,
@@ -306,7 +319,7 @@ class Model:
         name: str = "prediction",
         batch_rows: int = 65536,
         threads: int = 0,
-        band: Optional[float] = None,
+        band: Union[float, bool, None] = None,
     ) -> Iterator[Any]:
         """Score batch by batch: yields one ``pyarrow.RecordBatch`` per input batch, read
         from ``reader`` (a RecordBatchReader or any table) only as they are asked for.
@@ -316,7 +329,7 @@ class Model:
 
         keep_list = list(keep) if keep is not None else None
         scorer = self._m.batch_scorer(_arrow(reader), keep_list, bool(coverage), missing,
-                                      name, batch_rows, threads, band)
+                                      name, batch_rows, threads, self._band_level(band))
         while True:
             stream = scorer.next_stream()
             if stream is None:

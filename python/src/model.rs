@@ -350,6 +350,7 @@ impl PyModel {
             "band": m.band.as_ref().map(|b| serde_json::json!({
                 "calibration_rows": b.calibration_rows,
                 "spread_rows": b.spread.rows,
+                "default_level": kernlake::settings::defaults::BAND_LEVEL,
             })),
         });
         to_python(py, &doc)

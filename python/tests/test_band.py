@@ -48,9 +48,12 @@ def test_band_columns_and_coverage(model, ccpp):
 def test_report_matches_table(model, ccpp):
     test = ccpp.slice(5000, 2000)
     out, report = model.score_report(test, band=0.8, batch_rows=333)
-    outside = int(np.sum(out.column("outside_band").to_numpy(zero_copy_only=False)))
-    assert report["overall"]["rows"] == 2000
-    assert report["overall"]["outside"] == outside
+    # Rows outside the training data's coverage are counted, not judged.
+    flags = out.column("outside_band").to_numpy(zero_copy_only=False).astype(bool)
+    covered = out.column("covered").to_numpy(zero_copy_only=False).astype(bool)
+    assert report["overall"]["rows"] + report["overall"]["uncovered"] == 2000
+    assert report["overall"]["uncovered"] == int(np.sum(~covered))
+    assert report["overall"]["outside"] == int(np.sum(flags & covered))
     assert report["expected_outside"] == pytest.approx(0.2)
     # Same report whatever the slice size and threads (determinism contract).
     _, again = model.score_report(test, band=0.8, batch_rows=2000, threads=1)
@@ -81,4 +84,4 @@ def test_same_band_as_cli(model, ccpp, tmp_path):
     py = model.score(test, band=0.9)
     assert np.array_equal(cli.column("band_low").to_numpy(), py.column("band_low").to_numpy())
     rep = json.loads((tmp_path / "r.json").read_text())
-    assert rep["overall"]["rows"] == 500
+    assert rep["overall"]["rows"] + rep["overall"]["uncovered"] == 500
