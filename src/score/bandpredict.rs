@@ -72,7 +72,7 @@ pub(crate) fn predict_band(
 /// contract order): `(prediction, low, high)`, each equal to what scoring writes.
 ///
 /// # Errors
-/// [`Error::InvalidParameter`] when the model stores no band or the level is not in
+/// [`crate::Error::InvalidParameter`] when the model stores no band or the level is not in
 /// (0, 1) or beyond what its holdout supports.
 ///
 /// # Panics
