@@ -27,7 +27,7 @@ use super::runs::{outside_runs, Run};
 pub const DEFAULT_RUNS_SHOWN: usize = 20;
 
 /// Most points kept per group for the plot (thinned evenly in row order).
-const PLOT_POINTS: usize = 2_000;
+const PLOT_POINTS: usize = 500;
 
 /// One scored row with a measured value.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -279,7 +279,7 @@ impl DeviationReport {
     ) -> DeviationReport {
         let expected = 1.0 - level;
         let mut overall = Tally::default();
-        let mut groups: BTreeMap<String, (Tally, Vec<BandRow>)> = BTreeMap::new();
+        let mut groups: BTreeMap<String, Tally> = BTreeMap::new();
         let mut file_figs = Vec::with_capacity(files.len());
         let mut runs = Vec::new();
         for f in files.iter_mut() {
@@ -289,9 +289,7 @@ impl DeviationReport {
             overall.merge(&f.total);
             file_figs.push(figures(&f.name, &f.total, expected));
             for (g, part) in &f.groups {
-                let e = groups.entry(g.clone()).or_default();
-                e.0.merge(&part.tally);
-                e.1.extend(part.plot.points.iter().copied());
+                groups.entry(g.clone()).or_default().merge(&part.tally);
                 runs.extend(part.runs.iter().map(|r| RunFigures {
                     file: f.name.clone(),
                     group: g.clone(),
@@ -309,7 +307,7 @@ impl DeviationReport {
         let mut group_figs: Vec<GroupFigures> = if by.is_some() {
             groups
                 .iter()
-                .map(|(g, (t, _))| figures(g, t, expected))
+                .map(|(g, t)| figures(g, t, expected))
                 .collect()
         } else {
             Vec::new()
@@ -322,7 +320,12 @@ impl DeviationReport {
             file_figs.first().map(|g| g.name.clone())
         };
         let worst_points = match (&worst, by.is_some()) {
-            (Some(w), true) => groups.get(w).map(|(_, p)| p.clone()).unwrap_or_default(),
+            // Only the worst group's points are gathered (in file order).
+            (Some(w), true) => files
+                .iter()
+                .filter_map(|f| f.groups.get(w))
+                .flat_map(|g| g.plot.points.iter().copied())
+                .collect(),
             (Some(w), false) => files
                 .iter()
                 .find(|f| &f.name == w)
