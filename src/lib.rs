@@ -58,6 +58,7 @@
 
 mod atomic;
 pub mod audit;
+pub mod band;
 mod blas;
 #[cfg(feature = "cli")]
 #[doc(hidden)]

@@ -7,6 +7,7 @@ use ndarray::{Array1, Array2, ArrayView2, ArrayViewMut1, Axis};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+use crate::band::{Band, Spread};
 use crate::coverage::Coverage;
 use crate::data::ResolvedColumns;
 use crate::error::{Error, Result};
@@ -47,6 +48,10 @@ pub struct Model {
     pub report: TrainingReport,
     /// Coverage landmarks and flag threshold (see [`crate::coverage`]), if computed.
     pub coverage: Option<Coverage>,
+    /// Calibrated band (spread model and normalized holdout residuals; see
+    /// [`crate::band`]), if the fit had a holdout. Files written before bands existed
+    /// load with `None`.
+    pub band: Option<Band>,
     map: Box<dyn FeatureMap>,
 }
 
@@ -108,6 +113,7 @@ impl Model {
             problem,
             report,
             coverage: None,
+            band: None,
             map,
         }
     }
@@ -196,6 +202,25 @@ impl Model {
             arrays.push(("coverage.landmarks".to_string(), c.landmarks.clone()));
             arrays.push(("coverage.threshold".to_string(), row(&[c.threshold])));
         }
+        if let Some(b) = &self.band {
+            let sp = &b.spread;
+            arrays.push((
+                "band.spread.weights".to_string(),
+                row(sp.weights.as_slice().expect("contiguous")),
+            ));
+            // intercept, floor, rows fitted on, holdout rows calibrated on (counts are
+            // exact in f64 below 2^53).
+            arrays.push((
+                "band.spread".to_string(),
+                row(&[
+                    sp.intercept,
+                    sp.floor,
+                    sp.rows as f64,
+                    b.calibration_rows as f64,
+                ]),
+            ));
+            arrays.push(("band.scores".to_string(), row(&b.scores)));
+        }
         for (name, a) in parts.arrays {
             arrays.push((format!("map.{name}"), a));
         }
@@ -270,6 +295,34 @@ impl Model {
             (None, None) => None,
             _ => return Err(bad("has malformed coverage landmarks".into())),
         };
+        let band = match (
+            file.array("band.spread.weights"),
+            file.array("band.spread"),
+            file.array("band.scores"),
+        ) {
+            (None, None, None) => None,
+            (Some(w), Some(p), Some(sc)) if w.len() == weights.len() && p.len() == 4 => {
+                let p: Vec<f64> = p.iter().copied().collect();
+                Some(Band {
+                    spread: Spread {
+                        weights: Array1::from(w.iter().copied().collect::<Vec<f64>>()),
+                        intercept: p[0],
+                        floor: p[1],
+                        rows: p[2] as u64,
+                    },
+                    scores: sc.iter().copied().collect(),
+                    calibration_rows: p[3] as u64,
+                })
+            }
+            _ => return Err(bad("has a malformed band".into())),
+        };
+        if let Some(b) = &band {
+            check_band(b).map_err(|m| {
+                bad(format!(
+                    "passes its checksum but is not a usable model: {m}"
+                ))
+            })?;
+        }
         check_meaning(file, &meta, &scaler, &weights, intercept, coverage.as_ref()).map_err(
             |m| {
                 bad(format!(
@@ -279,6 +332,7 @@ impl Model {
         )?;
         Ok(Model {
             coverage,
+            band,
             columns: meta.columns,
             scaler,
             kernel: meta.kernel,
@@ -301,6 +355,34 @@ impl Model {
         let file = ModelFile::load(path)?;
         Model::from_model_file(&file, path)
     }
+}
+
+/// Checks that a decoded band means something: finite weights, a positive floor, sorted
+/// non-negative scores, counts that fit together.
+fn check_band(b: &Band) -> std::result::Result<(), String> {
+    let sp = &b.spread;
+    if sp.weights.iter().any(|v| !v.is_finite()) || !sp.intercept.is_finite() {
+        return Err("its band's spread model holds a value that is not a finite number".into());
+    }
+    if !(sp.floor.is_finite() && sp.floor > 0.0) {
+        return Err(format!(
+            "its band's spread floor is {}, not a positive number",
+            sp.floor
+        ));
+    }
+    if b.scores.is_empty() || b.scores.len() as u64 > b.calibration_rows {
+        return Err(format!(
+            "its band keeps {} scores for {} holdout rows",
+            b.scores.len(),
+            b.calibration_rows
+        ));
+    }
+    if b.scores.iter().any(|v| !(v.is_finite() && *v >= 0.0))
+        || b.scores.windows(2).any(|w| w[0] > w[1])
+    {
+        return Err("its band's scores are not sorted non-negative numbers".into());
+    }
+    Ok(())
 }
 
 /// Checks what a checksum cannot: that a decoded model means something. Returns the

@@ -7,6 +7,8 @@ use crate::error::{Error, Result};
 
 /// The defaults, written once.
 pub mod defaults {
+    /// Band level when scoring with a model that stores a band.
+    pub const BAND_LEVEL: f64 = 0.95;
     /// Mapped features D.
     pub const DIM: usize = 1024;
     /// Largest number of passes over the data.

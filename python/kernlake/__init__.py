@@ -245,6 +245,7 @@ class Model:
         name: str = "prediction",
         batch_rows: int = 65536,
         threads: int = 0,
+        band: Union[float, bool, None] = None,
     ) -> Any:
         """Score a table; returns a ``pyarrow.Table`` with exactly the columns
         ``kernlake score`` writes: the kept columns (default: every column that is not a
@@ -254,11 +255,59 @@ class Model:
         ``missing`` decides rows with a null, NaN or infinity in an input: "null" (keep
         the row, null prediction), "skip" (leave it out) or "fail" (raise, naming row
         and column). Kept columns are passed through without a copy.
+
+        ``band`` (a level in (0, 1); the model must store a band) adds ``band_low`` and
+        ``band_high``, and where the table holds the target also ``residual`` and
+        ``outside_band``. As on the command line, ``None`` means 0.95 when the model
+        stores a band and no band otherwise; ``False`` leaves the band out. The band
+        holds new rows like the fit's holdout with at least that probability; it says
+        nothing about a changed plant. See :meth:`score_report`.
         """
         keep_list = list(keep) if keep is not None else None
         stream = self._m.score_stream(_arrow(table), keep_list, bool(coverage), missing,
-                                      name, batch_rows, threads)
+                                      name, batch_rows, threads, self._band_level(band))
         return _table(stream)
+
+    def _band_level(self, band: Union[float, bool, None]) -> Optional[float]:
+        """The band level to score at: the command line's default for ``None``."""
+        if band is False:
+            return None
+        info = self._m.parameters.get("band")
+        if band is None:
+            return info["default_level"] if info else None
+        if band is True:
+            # Asked for a band: the library refuses a model without one.
+            return info["default_level"] if info else 0.95
+        return float(band)
+
+    def score_report(
+        self,
+        table: Any,
+        *,
+        band: float = 0.95,
+        time: Optional[str] = None,
+        by: Optional[str] = None,
+        keep: Optional[Sequence[str]] = None,
+        coverage: bool = True,
+        missing: str = "null",
+        name: str = "prediction",
+        batch_rows: int = 65536,
+        threads: int = 0,
+    ) -> tuple:
+        """Score a table with a band and return ``(table, report)``: the table as
+        :meth:`score` with ``band``, and the deviation report as a dict (the JSON of
+        ``kernlake score --report``): rows, residual mean and RMSE, share outside the
+        band against ``1 - band`` with a binomial p-value, per group of ``by``, and runs
+        of consecutive rows outside the band in ``time`` order (row order without it).
+        Flags are an aid to engineers, not a protective function.
+        """
+        import json
+
+        keep_list = list(keep) if keep is not None else None
+        stream, text = self._m.score_report_stream(_arrow(table), keep_list, bool(coverage),
+                                                   missing, name, batch_rows, threads,
+                                                   float(band), time, by)
+        return _table(stream), json.loads(text)
 
     def score_batches(
         self,
@@ -270,6 +319,7 @@ class Model:
         name: str = "prediction",
         batch_rows: int = 65536,
         threads: int = 0,
+        band: Union[float, bool, None] = None,
     ) -> Iterator[Any]:
         """Score batch by batch: yields one ``pyarrow.RecordBatch`` per input batch, read
         from ``reader`` (a RecordBatchReader or any table) only as they are asked for.
@@ -279,7 +329,7 @@ class Model:
 
         keep_list = list(keep) if keep is not None else None
         scorer = self._m.batch_scorer(_arrow(reader), keep_list, bool(coverage), missing,
-                                      name, batch_rows, threads)
+                                      name, batch_rows, threads, self._band_level(band))
         while True:
             stream = scorer.next_stream()
             if stream is None:

@@ -31,7 +31,23 @@ class Model:
         name: str,
         batch_rows: int,
         threads: int,
+        band: Optional[float] = None,
+        time: Optional[str] = None,
+        by: Optional[str] = None,
     ) -> ArrowStream: ...
+    def score_report_stream(
+        self,
+        table: Any,
+        keep: Optional[Sequence[str]],
+        coverage: bool,
+        missing: str,
+        name: str,
+        batch_rows: int,
+        threads: int,
+        band: float,
+        time: Optional[str] = None,
+        by: Optional[str] = None,
+    ) -> tuple[ArrowStream, str]: ...
     def batch_scorer(
         self,
         reader: Any,
@@ -41,6 +57,7 @@ class Model:
         name: str,
         batch_rows: int,
         threads: int,
+        band: Optional[float] = None,
     ) -> BatchScorer: ...
     def score_schema(
         self,
@@ -49,6 +66,7 @@ class Model:
         coverage: bool,
         missing: str,
         name: str,
+        band: Optional[float] = None,
     ) -> ArrowStream: ...
     @property
     def inputs(self) -> list[str]: ...

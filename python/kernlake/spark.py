@@ -26,7 +26,7 @@ import hashlib
 import itertools
 import re
 import sys
-from typing import Any, Iterator, List, Optional, Sequence
+from typing import Any, Iterator, List, Optional, Sequence, Union
 
 import pyarrow as pa
 
@@ -142,10 +142,15 @@ def score(
     coverage: bool = True,
     missing: str = "null",
     name: str = "prediction",
+    band: Union[float, bool, None] = None,
 ) -> Any:
     """Score a Spark DataFrame; returns a DataFrame with exactly the columns
-    ``kernlake score`` writes (kept columns, the prediction ``name``, and with
-    ``coverage`` the coverage columns). Options as for :meth:`kernlake.Model.score`.
+    ``kernlake score`` writes (kept columns, the prediction ``name``, with
+    ``coverage`` the coverage columns, and the expected-value band's columns when the
+    model has a band: ``band`` as for :meth:`kernlake.Model.score`, the model's default
+    level when ``None``, none with ``False``). Options as for
+    :meth:`kernlake.Model.score`; the deviation report is not made here (group the
+    scored DataFrame in Spark).
 
     The model's bytes are broadcast once and read once per Python worker (cached by
     their checksum); the output schema is declared before any job runs, by the same
@@ -155,12 +160,14 @@ def score(
 
     keep_list = list(keep) if keep is not None else None
     in_schema = _arrow_schema(df)
+    level = model._band_level(band)
     stream = model._m.score_schema(in_schema.empty_table(), keep_list, bool(coverage),
-                                   missing, name)
+                                   missing, name, level)
     out_schema = pa.RecordBatchReader.from_stream(stream).schema
     blob = model.to_bytes()
     bc = df.sparkSession.sparkContext.broadcast(blob)
-    options = dict(keep=keep_list, coverage=bool(coverage), missing=missing, name=name)
+    options = dict(keep=keep_list, coverage=bool(coverage), missing=missing, name=name,
+                   band=False if level is None else level)
     task = functools.partial(_score_task, "model:" + _checksum(blob), bc, options, in_schema)
     return df.mapInArrow(functools.partial(_guarded, task), from_arrow_schema(out_schema))
 

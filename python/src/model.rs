@@ -6,7 +6,7 @@ use std::sync::Arc;
 use arrow_array::{RecordBatch, RecordBatchReader};
 use kernlake::model::Model;
 use kernlake::modelfile::ModelFile;
-use kernlake::score::{score_batch_at, MissingRows, ScoreOptions};
+use kernlake::score::{score_batch_at, MissingRows, ScoreOptions, TableReport};
 use numpy::{IntoPyArray, PyArray1, PyArrayMethods, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use pyo3::types::{PyBytes, PyType};
@@ -43,15 +43,21 @@ pub fn to_python<'py>(py: Python<'py>, v: &impl serde::Serialize) -> PyResult<Bo
     py.import("json")?.call_method1("loads", (text,))
 }
 
+/// The band's keyword arguments: level, time column, group column.
+type BandArgs = (Option<f64>, Option<String>, Option<String>);
+
 /// Scoring settings from the keyword arguments of `score` and `score_batches`.
+#[allow(clippy::too_many_arguments)]
 fn score_options(
     py: Python<'_>,
+    model: &Model,
     keep: Option<Vec<String>>,
     coverage: bool,
     missing: &str,
     name: String,
     batch_rows: usize,
     threads: usize,
+    band: BandArgs,
 ) -> PyResult<ScoreOptions> {
     let missing = match missing {
         "null" => MissingRows::Null,
@@ -71,9 +77,13 @@ fn score_options(
         missing,
         batch_rows,
         threads,
+        band: band.0,
+        time_column: band.1,
+        group_column: band.2,
         ..ScoreOptions::default()
     };
     opts.validate().py_err(py)?;
+    kernlake::score::check_band_options(model, &opts).py_err(py)?;
     Ok(opts)
 }
 
@@ -83,6 +93,7 @@ fn score_all(
     model: &Model,
     batches: Batches,
     opts: &ScoreOptions,
+    mut report: Option<&mut TableReport>,
 ) -> kernlake::Result<Vec<RecordBatch>> {
     let pool = rayon_pool(opts.threads)?;
     let mut out = Vec::new();
@@ -96,7 +107,11 @@ fn score_all(
         while offset < batch.num_rows() {
             let len = opts.batch_rows.min(batch.num_rows() - offset);
             let part = batch.slice(offset, len);
-            out.push(pool.install(|| score_batch_at(model, &part, opts, first + offset as u64))?);
+            let at = first + offset as u64;
+            out.push(pool.install(|| match report.as_deref_mut() {
+                Some(r) => r.score(model, &part, opts, at),
+                None => score_batch_at(model, &part, opts, at),
+            })?);
             offset += len;
         }
         first += batch.num_rows() as u64;
@@ -189,7 +204,7 @@ impl PyModel {
     }
 
     /// Scores a table: the output batches as a stream for pyarrow.
-    #[pyo3(signature = (table, keep, coverage, missing, name, batch_rows, threads))]
+    #[pyo3(signature = (table, keep, coverage, missing, name, batch_rows, threads, band=None, time=None, by=None))]
     #[allow(clippy::too_many_arguments)]
     fn score_stream(
         &self,
@@ -201,13 +216,26 @@ impl PyModel {
         name: String,
         batch_rows: usize,
         threads: usize,
+        band: Option<f64>,
+        time: Option<String>,
+        by: Option<String>,
     ) -> PyResult<ArrowStream> {
-        let opts = score_options(py, keep, coverage, missing, name, batch_rows, threads)?;
-        let batches = import(table)?;
         let model = &self.inner;
+        let opts = score_options(
+            py,
+            model,
+            keep,
+            coverage,
+            missing,
+            name,
+            batch_rows,
+            threads,
+            (band, time, by),
+        )?;
+        let batches = import(table)?;
         let (schema, out) = released(py, move || {
             let schema = output_schema(model, batches.schema(), &opts)?;
-            let out = score_all(model, batches, &opts)?;
+            let out = score_all(model, batches, &opts, None)?;
             Ok((schema, out))
         })?;
         Ok(ArrowStream::new(schema, out))
@@ -216,7 +244,8 @@ impl PyModel {
     /// The schema of the scored batches for input tables of `table`'s schema (an empty
     /// table will do), as an empty stream: the same code that builds the scored batches
     /// declares it, so every column `score` writes appears here.
-    #[pyo3(signature = (table, keep, coverage, missing, name))]
+    #[pyo3(signature = (table, keep, coverage, missing, name, band=None))]
+    #[allow(clippy::too_many_arguments)]
     fn score_schema(
         &self,
         py: Python<'_>,
@@ -225,8 +254,19 @@ impl PyModel {
         coverage: bool,
         missing: &str,
         name: String,
+        band: Option<f64>,
     ) -> PyResult<ArrowStream> {
-        let opts = score_options(py, keep, coverage, missing, name, 65_536, 1)?;
+        let opts = score_options(
+            py,
+            &self.inner,
+            keep,
+            coverage,
+            missing,
+            name,
+            65_536,
+            1,
+            (band, None, None),
+        )?;
         let batches = import(table)?;
         let model = &self.inner;
         let in_schema = batches.schema();
@@ -234,8 +274,48 @@ impl PyModel {
         Ok(ArrowStream::new(schema, Vec::new()))
     }
 
+    /// Scores a table with a band and returns the output stream and the deviation
+    /// report as JSON text.
+    #[pyo3(signature = (table, keep, coverage, missing, name, batch_rows, threads, band, time=None, by=None))]
+    #[allow(clippy::too_many_arguments)]
+    fn score_report_stream(
+        &self,
+        py: Python<'_>,
+        table: &Bound<'_, PyAny>,
+        keep: Option<Vec<String>>,
+        coverage: bool,
+        missing: &str,
+        name: String,
+        batch_rows: usize,
+        threads: usize,
+        band: f64,
+        time: Option<String>,
+        by: Option<String>,
+    ) -> PyResult<(ArrowStream, String)> {
+        let model = &self.inner;
+        let opts = score_options(
+            py,
+            model,
+            keep,
+            coverage,
+            missing,
+            name,
+            batch_rows,
+            threads,
+            (Some(band), time, by),
+        )?;
+        let mut report = TableReport::new(model, &opts, "<table>").py_err(py)?;
+        let batches = import(table)?;
+        let (schema, out, json) = released(py, move || {
+            let schema = output_schema(model, batches.schema(), &opts)?;
+            let out = score_all(model, batches, &opts, Some(&mut report))?;
+            Ok((schema, out, report.finish(&opts).to_json()))
+        })?;
+        Ok((ArrowStream::new(schema, out), json))
+    }
+
     /// Scores batches one at a time as they are read from `reader`.
-    #[pyo3(signature = (reader, keep, coverage, missing, name, batch_rows, threads))]
+    #[pyo3(signature = (reader, keep, coverage, missing, name, batch_rows, threads, band=None))]
     #[allow(clippy::too_many_arguments)]
     fn batch_scorer(
         &self,
@@ -247,8 +327,19 @@ impl PyModel {
         name: String,
         batch_rows: usize,
         threads: usize,
+        band: Option<f64>,
     ) -> PyResult<BatchScorer> {
-        let opts = score_options(py, keep, coverage, missing, name, batch_rows, threads)?;
+        let opts = score_options(
+            py,
+            &self.inner,
+            keep,
+            coverage,
+            missing,
+            name,
+            batch_rows,
+            threads,
+            (band, None, None),
+        )?;
         let batches = import(reader)?;
         let model = Arc::clone(&self.inner);
         let in_schema = batches.schema();
@@ -289,6 +380,11 @@ impl PyModel {
             "problem": m.problem,
             "intercept": m.intercept,
             "coverage": m.coverage.is_some(),
+            "band": m.band.as_ref().map(|b| serde_json::json!({
+                "calibration_rows": b.calibration_rows,
+                "spread_rows": b.spread.rows,
+                "default_level": kernlake::settings::defaults::BAND_LEVEL,
+            })),
         });
         to_python(py, &doc)
     }
@@ -369,7 +465,17 @@ impl BatchScorer {
 /// Python runs between batches), with `score`'s default options.
 #[pyfunction]
 pub fn _score_in_rust(py: Python<'_>, model: &PyModel, table: &Bound<'_, PyAny>) -> PyResult<f64> {
-    let opts = score_options(py, None, true, "null", "prediction".into(), 65_536, 0)?;
+    let opts = score_options(
+        py,
+        &model.inner,
+        None,
+        true,
+        "null",
+        "prediction".into(),
+        65_536,
+        0,
+        (None, None, None),
+    )?;
     let batches: Vec<RecordBatch> = import(table)?
         .collect::<Result<_, _>>()
         .map_err(|e| input(py, format!("the table could not be read ({e})")))?;
@@ -381,7 +487,7 @@ pub fn _score_in_rust(py: Python<'_>, model: &PyModel, table: &Bound<'_, PyAny>)
     released(py, move || {
         let it = arrow_array::RecordBatchIterator::new(batches.into_iter().map(Ok), schema);
         let t0 = std::time::Instant::now();
-        let out = score_all(m, Box::new(it), &opts)?;
+        let out = score_all(m, Box::new(it), &opts, None)?;
         let secs = t0.elapsed().as_secs_f64();
         drop(out);
         Ok(secs)

@@ -217,6 +217,7 @@ pub(crate) fn output_error(final_path: &Path, folder: &Path, e: std::io::Error) 
 ///
 /// # Errors
 /// Those of [`AtomicFile::create`], naming `final_path`.
+#[cfg_attr(not(feature = "cli"), allow(dead_code))] // only the CLI checks its outputs early
 pub fn check_writable(final_path: &Path) -> Result<()> {
     AtomicFile::create(final_path).map(drop)
 }

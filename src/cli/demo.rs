@@ -1,15 +1,20 @@
 //! `kernlake demo`: the cold-store scenario end to end on generated data.
 
+use crate::band::render_band_svg;
 use crate::data::{discover, CsvOptions, ResolvedColumns, TableReader};
 use crate::demo::{generate, months, DemoSpec, FEATURES, TARGET};
 use crate::error::{Error, Result};
 use crate::fit::{FitOptions, Fitter};
 use crate::metrics::MetricsAccumulator;
 use crate::report::render_training;
-use crate::score::{score_files, Quiet, ScoreOptions};
+use crate::score::{format_time, score_files, Quiet, ScoreOptions};
+use crate::settings::defaults::BAND_LEVEL;
 
 use super::args::DemoArgs;
 use super::progress::{rows_bar, EpochBars};
+
+/// The partition folder naming a site.
+const SITE: &str = "site";
 
 /// Runs `kernlake demo`.
 pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
@@ -46,7 +51,15 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         |f: &crate::data::SourceFile| f.partitions.iter().any(|(k, v)| k == "month" && *v == last);
     let (test_files, train_files): (Vec<_>, Vec<_>) = files.into_iter().partition(is_last);
     let columns = ResolvedColumns {
-        features: FEATURES.iter().map(|s| s.to_string()).collect(),
+        // The site (its partition folder's number) is an input too: each site has its own
+        // plant (envelope, condenser, efficiency) that the conditions alone do not show,
+        // and a fleet model that cannot tell sites apart needs a band wide enough to hold
+        // all of them, too wide to see one site drift by 15 %.
+        features: FEATURES
+            .iter()
+            .chain(std::iter::once(&SITE))
+            .map(|s| s.to_string())
+            .collect(),
         target: Some(TARGET.to_string()),
     };
     let train_rows: u64 = train_files.iter().filter_map(|f| f.rows).sum();
@@ -88,6 +101,9 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         out_dir: scores_dir.clone(),
         threads: a.threads,
         overwrite: true,
+        band: model.band.as_ref().map(|_| BAND_LEVEL),
+        time_column: model.band.as_ref().map(|_| "ts".to_string()),
+        group_column: model.band.as_ref().map(|_| "site".to_string()),
         ..ScoreOptions::default()
     };
     let scored = score_files(&model, &test_files, &score_opts, &Quiet)?;
@@ -128,6 +144,54 @@ pub fn run(a: DemoArgs, quiet: bool) -> Result<i32> {
         summary.hot_site
     );
     println!("  {:<22} {}", "scores written to", scores_dir.display());
+    if let Some(r) = &scored.deviation {
+        let ts_type = arrow_schema::DataType::Timestamp(
+            arrow_schema::TimeUnit::Millisecond,
+            Some("UTC".into()),
+        );
+        println!();
+        println!(
+            "deviation report for {last} (band at level {BAND_LEVEL}; injected fault: site {} losing compressor efficiency from {}; hot-climate site {})",
+            summary.fault_site,
+            format_time(summary.fault_start_ms, Some(&ts_type)),
+            summary.hot_site
+        );
+        print!("{}", r.to_text());
+        // The band's coverage on the sites that are neither faulty nor beyond the
+        // training range: what a healthy plant should show.
+        let special = [summary.fault_site.to_string(), summary.hot_site.to_string()];
+        let healthy = r
+            .groups
+            .iter()
+            .filter(|g| !special.contains(&g.name.trim_start_matches('0').to_string()));
+        let (rows, outside) = healthy.fold((0u64, 0u64), |(n, o), g| (n + g.rows, o + g.outside));
+        if rows > 0 {
+            println!(
+                "observed band coverage on the {} healthy sites: {:.2}% of {} rows (level {:.0}%)",
+                r.groups.len().saturating_sub(2),
+                100.0 * (1.0 - outside as f64 / rows as f64),
+                rows,
+                100.0 * BAND_LEVEL
+            );
+        }
+        let report_path = a.dir.join("deviation.json");
+        let plot_path = a.dir.join("deviation.svg");
+        crate::atomic::write_atomic(&report_path, |f| {
+            use std::io::Write;
+            f.write_all(r.to_json().as_bytes())
+                .map_err(|e| Error::io(&report_path, e))
+        })?;
+        crate::atomic::write_atomic(&plot_path, |f| {
+            use std::io::Write;
+            f.write_all(render_band_svg(r, TARGET).as_bytes())
+                .map_err(|e| Error::io(&plot_path, e))
+        })?;
+        println!(
+            "report written to {}, plot of the worst site to {}",
+            report_path.display(),
+            plot_path.display()
+        );
+    }
     println!();
     println!("{}", super::args::SAFETY);
     Ok(0)

@@ -7,13 +7,18 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use clap::{Args, ValueEnum};
 use indicatif::{ProgressBar, ProgressStyle};
 
+use std::io::Write;
+
+use crate::atomic::write_atomic;
+use crate::band::render_band_svg;
 use crate::data::{discover, discover_lenient, CsvOptions};
 use crate::error::{Error, Result};
 use crate::model::Model;
 use crate::score::{
-    score_files, score_files_to_stream, score_stream, MissingRows, ScoreObserver, ScoreOptions,
-    ScoreSummary,
+    check_band_options, score_files, score_files_to_stream, score_stream, MissingRows,
+    ScoreObserver, ScoreOptions, ScoreSummary,
 };
+use crate::settings::defaults;
 
 /// `kernlake score`.
 #[derive(Debug, Args)]
@@ -67,6 +72,31 @@ pub struct ScoreArgs {
     /// Rows per batch (memory is about threads × batch rows × columns × 8 bytes).
     #[arg(long, default_value_t = 65_536)]
     pub batch_rows: usize,
+    /// Band level in (0, 1): adds band_low and band_high (a calibrated interval around
+    /// the prediction: it holds new rows like the fit's holdout with at least this
+    /// probability, not rows from a changed plant) and, where the data holds the
+    /// target, residual and outside_band, and prints a deviation report. Default 0.95
+    /// when the model stores a band. Rows flagged outside the band are an aid for
+    /// engineers deciding where to look, not a protective function.
+    #[arg(long, value_name = "LEVEL")]
+    pub band: Option<f64>,
+    /// Score without the band columns and report.
+    #[arg(long, conflicts_with = "band")]
+    pub no_band: bool,
+    /// Time column ordering the report's runs of consecutive rows outside the band
+    /// (default: row order within each file).
+    #[arg(long, value_name = "COL")]
+    pub time: Option<String>,
+    /// Column (or partition folder) grouping the deviation report, e.g. a site id.
+    #[arg(long, value_name = "COL")]
+    pub by: Option<String>,
+    /// Writes the deviation report as JSON (atomically).
+    #[arg(long, value_name = "FILE")]
+    pub report: Option<PathBuf>,
+    /// Writes an SVG of measured against expected values with the band, for the group
+    /// the report ranks worst.
+    #[arg(long, value_name = "FILE")]
+    pub plot: Option<PathBuf>,
 }
 
 /// Missing-input policies on the command line.
@@ -179,7 +209,27 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
         csv: CsvOptions {
             delimiter: a.delimiter as u8,
         },
+        band: match (a.band, a.no_band) {
+            (_, true) => None,
+            (Some(level), false) => Some(level),
+            (None, false) => model.band.as_ref().map(|_| defaults::BAND_LEVEL),
+        },
+        time_column: a.time.clone(),
+        group_column: a.by.clone(),
     };
+    // Settings first: a band the model cannot give, or a level outside (0, 1), fails
+    // before any file is listed or read.
+    opts.validate()?;
+    check_band_options(&model, &opts)?;
+    if (a.report.is_some() || a.plot.is_some()) && opts.band.is_none() {
+        return Err(Error::invalid(
+            "report",
+            "a deviation report needs a band: the model stores none, or --no-band was given",
+        ));
+    }
+    for p in a.report.iter().chain(a.plot.iter()) {
+        crate::atomic::check_writable(p)?;
+    }
     let to_stdout = a.out == "-";
     let summary = if a.sources.iter().any(|s| s == "-") {
         if a.sources.len() != 1 || !to_stdout {
@@ -210,6 +260,24 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
     };
     if !quiet {
         print_summary(&summary);
+    }
+    if let Some(r) = &summary.deviation {
+        if !quiet {
+            eprint!("{}", r.to_text());
+        }
+        if let Some(p) = &a.report {
+            write_atomic(p, |f| {
+                f.write_all(r.to_json().as_bytes())
+                    .map_err(|e| Error::io(p.clone(), e))
+            })?;
+        }
+        if let Some(p) = &a.plot {
+            let target = model.columns.target.as_deref().unwrap_or("target");
+            write_atomic(p, |f| {
+                f.write_all(render_band_svg(r, target).as_bytes())
+                    .map_err(|e| Error::io(p.clone(), e))
+            })?;
+        }
     }
     Ok(if summary.failures.is_empty() { 0 } else { 1 })
 }

@@ -11,6 +11,11 @@
 //! (sensor dropouts), and one site in a hot climate meets a heat wave in the last month
 //! that takes its outdoor temperature beyond anything seen in the earlier months.
 //!
+//! One other site develops a fault in the last month: over the last two weeks of the
+//! year its condenser fouls, so its coefficient of performance falls gradually and its
+//! compressor ends up drawing about 15 % more power for the same heat load. A model of
+//! expected power fitted on the earlier months should see that site leave its band.
+//!
 //! A model of expected power is a monitoring aid; it does not replace the plant's
 //! protective controls, alarms or a qualified refrigeration engineer.
 
@@ -77,6 +82,11 @@ pub struct DemoSummary {
     /// The site (1-based) in the hot climate, whose last month lies beyond the range of
     /// the earlier months.
     pub hot_site: u32,
+    /// The site (1-based) whose compressor loses efficiency over the last two weeks (0
+    /// when there is a single site, which is the hot one).
+    pub fault_site: u32,
+    /// When the fault starts, ms since the epoch (UTC): two weeks before the year ends.
+    pub fault_start_ms: i64,
 }
 
 /// The scenario's model inputs, in the order the demo fits them (units in the column docs
@@ -164,6 +174,7 @@ pub fn generate(
         ));
     }
     let hot_site = hot_site(spec);
+    let fault_site = fault_site(spec, hot_site);
     let months: Vec<Month> = (0..MONTHS)
         .map(|i| Month::nth(spec.start_year, i))
         .collect();
@@ -175,7 +186,13 @@ pub fn generate(
     };
     let per_site: Vec<(usize, u64)> = (1..=spec.sites)
         .into_par_iter()
-        .map(|site| write_site(out, spec, site, site == hot_site, &months, &report))
+        .map(|site| {
+            let kind = SiteKind {
+                hot: site == hot_site,
+                faulty: site == fault_site,
+            };
+            write_site(out, spec, site, kind, &months, &report)
+        })
         .collect::<Result<Vec<_>>>()?;
     Ok(DemoSummary {
         rows: spec.rows,
@@ -183,7 +200,38 @@ pub fn generate(
         bytes: per_site.iter().map(|(_, b)| b).sum(),
         months: months.iter().map(Month::name).collect(),
         hot_site,
+        fault_site,
+        fault_start_ms: fault_window(&months).0,
     })
+}
+
+/// What sets a site apart in the scenario.
+#[derive(Clone, Copy, Debug)]
+struct SiteKind {
+    hot: bool,
+    faulty: bool,
+}
+
+/// The faulty site for a spec (1-based), drawn from the seed; never the hot site (0 when
+/// there is only one site).
+fn fault_site(spec: &DemoSpec, hot: u32) -> u32 {
+    if spec.sites < 2 {
+        return 0;
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(spec.seed);
+    rng.set_stream(u64::MAX - 1);
+    let s = rng.random_range(1..spec.sites);
+    if s >= hot {
+        s + 1
+    } else {
+        s
+    }
+}
+
+/// The fault's two weeks: from 14 days before the year's end to its end, ms.
+fn fault_window(months: &[Month]) -> (i64, i64) {
+    let end = months.last().expect("twelve months").end_ms();
+    (end - 14 * 86_400_000, end)
 }
 
 /// The hot-climate site for a spec (1-based), drawn from the seed.
@@ -205,15 +253,19 @@ fn write_site(
     out: &Path,
     spec: &DemoSpec,
     site: u32,
-    hot: bool,
+    kind: SiteKind,
     months: &[Month],
     report: &(dyn Fn(u64) + Sync),
 ) -> Result<(usize, u64)> {
     let mut rng = ChaCha8Rng::seed_from_u64(spec.seed);
     rng.set_stream(u64::from(site));
-    let params = SiteParams::draw(&mut rng, hot);
+    let params = SiteParams::draw(&mut rng, kind.hot);
     let last = months.last().expect("twelve months");
     let mut sim = SiteSim::new(params, rng, months[0].start_ms(), last.start_ms());
+    if kind.faulty {
+        let (a, b) = fault_window(months);
+        sim = sim.with_fault(a, b);
+    }
     let schema = schema();
     let mut files = 0;
     let mut bytes = 0;

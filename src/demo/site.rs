@@ -22,6 +22,10 @@ const SEASON_PEAK_DAY: f64 = 200.0;
 /// Largest excursion of the slow weather anomaly, K.
 const WEATHER_LIMIT: f64 = 4.0;
 
+/// Extra power the faulty site's compressor draws at the end of its fault (a COP lower by
+/// this factor): about 15 %, as the scenario describes.
+pub const FAULT_EXTRA: f64 = 0.15;
+
 /// The fixed characteristics of one site.
 #[derive(Clone, Debug)]
 pub(crate) struct SiteParams {
@@ -200,6 +204,9 @@ pub(crate) struct SiteSim {
     year_start_ms: i64,
     /// Start of the last month, ms (heat wave at the hot site).
     last_month_start_ms: i64,
+    /// With the injected fault: when its compressor starts losing efficiency and when
+    /// the loss is complete (the last two weeks of the year), ms.
+    fault: Option<(i64, i64)>,
 }
 
 impl SiteSim {
@@ -220,7 +227,16 @@ impl SiteSim {
             outage: [0, 0],
             year_start_ms,
             last_month_start_ms,
+            fault: None,
         }
+    }
+
+    /// Injects the demo's fault: from `start_ms` to `end_ms` the site's condenser fouls
+    /// quickly, so its COP falls linearly until the compressor draws [`FAULT_EXTRA`]
+    /// more power for the same heat load, and stays there.
+    pub fn with_fault(mut self, start_ms: i64, end_ms: i64) -> SiteSim {
+        self.fault = Some((start_ms, end_ms));
+        self
     }
 
     /// Appends the rows `first .. first + count` of a stretch sampled every `step_ms`
@@ -303,7 +319,14 @@ impl SiteSim {
             product_load_t,
             defrost,
         );
-        let power = (load / p.cop(outdoor_temp, fouling)).min(p.capacity_kw);
+        // The injected fault: efficiency lost gradually over its two weeks.
+        let loss = match self.fault {
+            Some((a, b)) if ms >= a => {
+                1.0 + FAULT_EXTRA * ((ms - a) as f64 / (b - a) as f64).min(1.0)
+            }
+            _ => 1.0,
+        };
+        let power = (load * loss / p.cop(outdoor_temp, fouling)).min(p.capacity_kw);
         let noise: f64 = self.rng.sample(StandardNormal);
         let spike = if self.rng.random::<f64>() < 0.005 {
             1.0 + self.rng.random_range(0.3..0.8)

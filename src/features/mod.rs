@@ -7,6 +7,7 @@
 //! saved one.
 
 mod eigen;
+pub(crate) use eigen::symmetric_eigen;
 pub mod fastcos;
 pub mod nystrom;
 pub mod orthogonal;

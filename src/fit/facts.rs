@@ -19,6 +19,8 @@ pub(super) struct Facts {
     /// uniform sample of all the rows.
     pub sample_x: Array2<f64>,
     pub sample_y: Array1<f64>,
+    /// Global row id of each sample row (to tell training rows from holdout rows).
+    pub sample_row_ids: Vec<u64>,
     pub rows_total: u64,
     pub rows_skipped: u64,
     pub skipped_by_column: Vec<ColumnSkips>,
@@ -59,6 +61,7 @@ pub(super) fn facts_from_arrays(
         target: TargetScale::from_moments("y", mean, variance)?,
         sample_x,
         sample_y: y.select(Axis(0), &idx),
+        sample_row_ids: idx.iter().map(|&r| r as u64).collect(),
         rows_total: n,
         rows_skipped: 0,
         skipped_by_column: Vec::new(),
@@ -139,6 +142,7 @@ pub(super) fn facts_of_survey(s: Survey) -> Result<Facts> {
         target: TargetScale::from_moments(&target.name, target.mean, target.variance)?,
         sample_x,
         sample_y,
+        sample_row_ids: s.sample_row_ids.clone(),
         rows_total: s.rows_total,
         rows_skipped: s.rows_skipped,
         skipped_by_column,

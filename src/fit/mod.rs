@@ -3,8 +3,9 @@
 
 use std::time::Instant;
 
-use ndarray::{ArrayView1, ArrayView2};
+use ndarray::{ArrayView1, ArrayView2, Axis};
 
+use crate::band::Band;
 use crate::data::{survey, SurveySettings, TableReader};
 use crate::error::Result;
 use crate::features::MapSpec;
@@ -12,7 +13,7 @@ use crate::kernel::KernelKind;
 use crate::model::Model;
 use crate::settings::thread_pool;
 use crate::solver::blocks::{
-    ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, Trainer,
+    is_holdout, ArraySource, BlockSource, Method, Silent, TrainObserver, TrainOutcome, Trainer,
 };
 use crate::solver::dcd::Loss;
 
@@ -192,6 +193,40 @@ impl Fitter {
             pool: &pool,
         };
         let out: TrainOutcome = trainer.run(source, observer)?;
-        assemble(facts, chosen, out, &pool, t0)
+        let band =
+            pool.install(|| calibrate_band(&facts, chosen.map.as_ref(), &out, &self.opts))?;
+        let mut model = assemble(facts, chosen, out, &pool, t0)?;
+        model.band = band;
+        Ok(model)
     }
+}
+
+/// The band of a fitted model (see [`crate::band`]): the spread model on the survey's
+/// seeded uniform sample restricted to training rows (the holdout hash decides, as in
+/// the passes), the scores on every kept holdout row. `None` without a holdout.
+fn calibrate_band(
+    facts: &Facts,
+    map: &dyn crate::features::FeatureMap,
+    out: &TrainOutcome,
+    o: &FitOptions,
+) -> Result<Option<Band>> {
+    let Some((hx, hy)) = out.holdout_rows.as_ref() else {
+        return Ok(None);
+    };
+    let train: Vec<usize> = facts
+        .sample_row_ids
+        .iter()
+        .enumerate()
+        .filter(|&(_, &id)| !is_holdout(id, o.seed, o.holdout))
+        .map(|(i, _)| i)
+        .collect();
+    let tx = facts.sample_x.select(Axis(0), &train);
+    let ty = facts.sample_y.select(Axis(0), &train);
+    Band::calibrate(
+        map,
+        out.weights.view(),
+        out.intercept,
+        (tx.view(), ty.view()),
+        (hx.view(), hy.view()),
+    )
 }

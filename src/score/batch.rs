@@ -9,6 +9,8 @@ use arrow_array::{Array, ArrayRef, BooleanArray, Float64Array, RecordBatch};
 use arrow_schema::{DataType, Field, Schema, SchemaRef};
 use ndarray::{Array1, Array2};
 
+use super::banded::{band_columns, BandPlan};
+use super::bandpredict::predict_band;
 use super::covered::predict_covered;
 use super::{MissingRows, ScoreOptions, COVERAGE_COLUMN, COVERED_COLUMN};
 use crate::data::csv;
@@ -35,6 +37,8 @@ pub(crate) struct Plan {
     coverage: bool,
     /// Whether input columns hold text to parse as numbers (CSV sources).
     text: bool,
+    /// The band's part, with a band level.
+    band: Option<BandPlan>,
     /// The output schema.
     schema: SchemaRef,
 }
@@ -172,13 +176,20 @@ impl Plan {
             fields.push(Field::new(COVERAGE_COLUMN, DataType::Float64, true));
             fields.push(Field::new(COVERED_COLUMN, DataType::Boolean, true));
         }
+        let band = BandPlan::new(model, schema, partitions, opts, path, &mut fields)?;
         Ok(Plan {
+            band,
             inputs,
             copied,
             coverage,
             text,
             schema: Arc::new(Schema::new(fields)),
         })
+    }
+
+    /// The band's part, with a band level.
+    pub(crate) fn band(&self) -> Option<&BandPlan> {
+        self.band.as_ref()
     }
 
     /// The output schema.
@@ -189,6 +200,9 @@ impl Plan {
     /// Sorted indices of the input columns this plan reads (for a column projection).
     pub(crate) fn needed(&self) -> Vec<usize> {
         let mut v: Vec<usize> = self.copied.clone();
+        if let Some(b) = &self.band {
+            v.extend(b.needed());
+        }
         for inp in &self.inputs {
             if let Input::Column(i) = *inp {
                 v.push(i);
@@ -219,6 +233,7 @@ impl Plan {
             copied: self.copied.iter().map(|&i| pos(i)).collect(),
             coverage: self.coverage,
             text: self.text,
+            band: self.band.as_ref().map(|b| b.projected(&pos)),
             schema: self.schema.clone(),
         }
     }
@@ -237,6 +252,7 @@ pub(crate) fn score_planned(
     opts: &ScoreOptions,
     path: &Path,
     first_row: u64,
+    tally: Option<&mut crate::band::FileDeviation>,
 ) -> Result<Scored> {
     let n = batch.num_rows();
     let names = &model.columns.features;
@@ -320,7 +336,17 @@ pub(crate) fn score_planned(
         }
     }
     let mut pred = Array1::<f64>::zeros(m);
-    let cov = if plan.coverage {
+    let mut sigma = Array1::<f64>::zeros(if plan.band.is_some() { m } else { 0 });
+    let cov = if let (Some(_), Some(b)) = (&plan.band, &model.band) {
+        let mut v = Array1::<f64>::zeros(if plan.coverage { m } else { 0 });
+        let c = plan.coverage.then(|| v.view_mut());
+        predict_band(model, b, x.view(), pred.view_mut(), sigma.view_mut(), c);
+        model
+            .coverage
+            .as_ref()
+            .filter(|_| plan.coverage)
+            .map(|c| (v, c.threshold))
+    } else if plan.coverage {
         let c = model.coverage.as_ref().expect("plan checked coverage");
         let mut v = Array1::<f64>::zeros(m);
         predict_covered(model, x.view(), pred.view_mut(), v.view_mut());
@@ -366,6 +392,23 @@ pub(crate) fn score_planned(
         let covered: BooleanArray = flags.iter().map(|c| c.map(|c| c >= *t)).collect();
         out.push(Arc::new(covered));
     }
+    if let Some(bp) = &plan.band {
+        let covered: Option<Vec<bool>> = cov
+            .as_ref()
+            .map(|(v, t)| v.iter().map(|&c| c >= *t).collect());
+        out.extend(band_columns(
+            bp,
+            batch,
+            &ok,
+            pred.as_slice().expect("contiguous"),
+            sigma.as_slice().expect("contiguous"),
+            covered.as_deref(),
+            skip,
+            first_row,
+            path,
+            tally,
+        )?);
+    }
     let batch = RecordBatch::try_new(plan.schema.clone(), out).map_err(|e| Error::File {
         path: path.to_path_buf(),
         message: format!("could not assemble the scored rows ({e})"),
@@ -404,5 +447,5 @@ pub fn score_batch_at(
     opts.validate()?;
     let path = Path::new("<record batch>");
     let plan = Plan::new(model, batch.schema().as_ref(), &[], opts, path, false)?;
-    Ok(score_planned(model, &plan, batch, opts, path, first_row)?.batch)
+    Ok(score_planned(model, &plan, batch, opts, path, first_row, None)?.batch)
 }

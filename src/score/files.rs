@@ -10,10 +10,12 @@ use arrow_array::RecordBatch;
 use arrow_schema::{DataType, Field, Schema};
 use parquet::arrow::ProjectionMask;
 
+use super::banded::{check_band_options, format_time};
 use super::batch::{score_planned, Plan};
 use super::writer::{complete_stamp, plan_outputs, OutputFile, Stamp};
 use super::{model_checksum, FileFailure, ScoreObserver, ScoreOptions, ScoreSummary};
 use crate::atomic::remove_stale_temps;
+use crate::band::{DeviationReport, FileDeviation};
 use crate::data::csv::{self, CsvBatches};
 use crate::data::{Format, SourceFile};
 use crate::error::{Error, Result};
@@ -21,8 +23,15 @@ use crate::model::Model;
 
 /// What happened to one file.
 enum Outcome {
-    /// Scored now: rows read, rows written, rows missing, rows uncovered.
-    Scored(u64, u64, u64, u64),
+    /// Scored now: rows read, rows written, rows missing, rows uncovered, and with a
+    /// band the file's deviation tally and the time column's type.
+    Scored(
+        u64,
+        u64,
+        u64,
+        u64,
+        Option<Box<(FileDeviation, Option<DataType>)>>,
+    ),
     /// Output already complete.
     Skipped,
 }
@@ -154,6 +163,7 @@ pub fn score_files(
 ) -> Result<ScoreSummary> {
     let t0 = Instant::now();
     opts.validate()?;
+    check_band_options(model, opts)?;
     if opts.coverage && model.coverage.is_none() {
         return Err(Error::invalid(
             "coverage",
@@ -210,11 +220,18 @@ pub fn score_files(
         ..ScoreSummary::default()
     };
     let results = results.into_inner().expect("results lock");
+    let mut tallies = Vec::new();
+    let mut time_type: Option<DataType> = None;
     for (file, r) in files.iter().zip(results) {
         match r {
             None => {}
             Some(Ok(Outcome::Skipped)) => summary.files_skipped += 1,
-            Some(Ok(Outcome::Scored(read, written, missing, uncovered))) => {
+            Some(Ok(Outcome::Scored(read, written, missing, uncovered, tally))) => {
+                if let Some(t) = tally {
+                    let (t, ty) = *t;
+                    tallies.push(t);
+                    time_type = time_type.or(ty);
+                }
                 summary.files_scored += 1;
                 summary.rows_read += read;
                 summary.rows_written += written;
@@ -232,6 +249,18 @@ pub fn score_files(
                 });
             }
         }
+    }
+    if let Some(level) = opts.band {
+        let mut report = DeviationReport::build(
+            level,
+            opts.group_column.clone(),
+            opts.time_column.clone(),
+            tallies,
+        );
+        let ty = time_type.as_ref();
+        let ty = if opts.time_column.is_some() { ty } else { None };
+        report.format_times(&|t| format_time(t, ty));
+        summary.deviation = Some(report);
     }
     summary.seconds = t0.elapsed().as_secs_f64();
     Ok(summary)
@@ -264,15 +293,26 @@ impl FileJob<'_> {
         let (reader, plan, rows) = open_checked(self.model, self.file, self.opts)?;
         let mut out = OutputFile::create(self.output, plan.schema().clone(), self.opts.batch_rows)?;
         let (mut read, mut missing, mut uncovered) = (0u64, 0u64, 0u64);
+        let mut tally = plan
+            .band()
+            .map(|_| FileDeviation::new(path.display().to_string()));
         for batch in reader {
             if self.stop.load(Ordering::SeqCst) {
                 // Another file failed: drop the temporary file, leave the final name.
                 return Err(Error::ScoreStopped);
             }
             let batch = batch?;
-            let scored = self
-                .pool
-                .install(|| score_planned(self.model, &plan, &batch, self.opts, path, read))?;
+            let scored = self.pool.install(|| {
+                score_planned(
+                    self.model,
+                    &plan,
+                    &batch,
+                    self.opts,
+                    path,
+                    read,
+                    tally.as_mut(),
+                )
+            })?;
             out.write(&scored.batch, self.output)?;
             let n = batch.num_rows() as u64;
             read += n;
@@ -293,6 +333,10 @@ impl FileJob<'_> {
             ..stamp
         };
         let written = out.commit(stamp, self.output)?;
-        Ok(Outcome::Scored(read, written, missing, uncovered))
+        let tally = tally.map(|mut t| {
+            t.finish();
+            Box::new((t, plan.band().and_then(|b| b.time_type().cloned())))
+        });
+        Ok(Outcome::Scored(read, written, missing, uncovered, tally))
     }
 }

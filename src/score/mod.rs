@@ -33,20 +33,29 @@
 //!   [`score_files`] scores files; [`score_stream`] and [`score_files_to_stream`] read or
 //!   write Arrow IPC streams (pipes).
 
+mod banded;
+mod bandpredict;
 mod batch;
 mod covered;
 mod files;
 mod pipe;
+mod table;
 mod writer;
 
 use std::path::PathBuf;
 
 use serde::{Deserialize, Serialize};
 
+pub use banded::{
+    check_band_options, format_time, BAND_HIGH_COLUMN, BAND_LOW_COLUMN, OUTSIDE_COLUMN,
+    RESIDUAL_COLUMN,
+};
+pub use bandpredict::predict_with_band;
 pub use batch::{score_batch, score_batch_at};
 pub use covered::predict_covered;
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
+pub use table::TableReport;
 pub use writer::STAMP_KEY;
 
 use crate::data::{CsvOptions, Format};
@@ -98,6 +107,15 @@ pub struct ScoreOptions {
     pub keep_going: bool,
     /// How CSV sources are parsed (their delimiter).
     pub csv: CsvOptions,
+    /// Band level in (0, 1): adds the band's low and high columns (and, where the input
+    /// holds the model's target, the residual and the outside flag) and makes
+    /// [`score_files`] return a deviation report. The model must store a band.
+    pub band: Option<f64>,
+    /// Column giving the time order of the deviation report's runs (else row order
+    /// within each file).
+    pub time_column: Option<String>,
+    /// Column (or partition folder) whose values group the deviation report.
+    pub group_column: Option<String>,
 }
 
 impl Default for ScoreOptions {
@@ -114,6 +132,9 @@ impl Default for ScoreOptions {
             overwrite: false,
             keep_going: false,
             csv: CsvOptions::default(),
+            band: None,
+            time_column: None,
+            group_column: None,
         }
     }
 }
@@ -130,6 +151,9 @@ impl ScoreOptions {
         if self.prediction_name.trim().is_empty() {
             return Err(Error::invalid("prediction name", "must not be empty"));
         }
+        if let Some(level) = self.band {
+            crate::band::check_level(level)?;
+        }
         Ok(())
     }
 
@@ -143,6 +167,9 @@ impl ScoreOptions {
             "coverage": self.coverage,
             "missing": self.missing,
         });
+        if let Some(level) = self.band {
+            v["band"] = serde_json::json!(level);
+        }
         if format == Format::Csv {
             v["delimiter"] = serde_json::json!(self.csv.delimiter);
         }
@@ -188,6 +215,9 @@ pub struct ScoreSummary {
     pub rows_uncovered: u64,
     /// Wall-clock seconds.
     pub seconds: f64,
+    /// With a band level: how the measured values sat against their bands, for the files
+    /// scored in this run (files skipped as complete are not in it).
+    pub deviation: Option<crate::band::DeviationReport>,
 }
 
 /// Receives progress while files are scored (called from worker threads).

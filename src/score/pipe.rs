@@ -59,7 +59,8 @@ pub fn score_stream<R: Read, W: Write>(
             let len = opts.batch_rows.min(batch.num_rows() - offset);
             let part = batch.slice(offset, len);
             let first = summary.rows_read;
-            let scored = pool.install(|| score_planned(model, &plan, &part, opts, path, first))?;
+            let scored =
+                pool.install(|| score_planned(model, &plan, &part, opts, path, first, None))?;
             writer
                 .write(&scored.batch)
                 .map_err(|e| stream_error("<output>", e))?;
@@ -125,7 +126,7 @@ pub fn score_files_to_stream<W: Write>(
         for batch in reader {
             let batch = batch?;
             let scored =
-                pool.install(|| score_planned(model, &plan, &batch, opts, &file.path, read))?;
+                pool.install(|| score_planned(model, &plan, &batch, opts, &file.path, read, None))?;
             w.write(&scored.batch)
                 .map_err(|e| stream_error("<output>", e))?;
             read += batch.num_rows() as u64;

@@ -93,6 +93,17 @@ impl PassCache {
         Some(out.slice(ndarray::s![..k, ..]).to_owned())
     }
 
+    /// Every kept holdout row (standardized inputs, raw targets); `None` without one.
+    pub fn holdout_all(&self) -> Option<(Array2<f64>, Array1<f64>)> {
+        let total: usize = self.holdout_x.iter().map(|x| x.nrows()).sum();
+        if total == 0 {
+            return None;
+        }
+        let views: Vec<_> = self.holdout_x.iter().map(|x| x.view()).collect();
+        let x = ndarray::concatenate(ndarray::Axis(0), &views).ok()?;
+        Some((x, Array1::from(self.holdout_y.clone())))
+    }
+
     /// Passes run so far.
     pub fn passes(&self) -> usize {
         self.passes

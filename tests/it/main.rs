@@ -3,6 +3,7 @@
 
 mod accuracy;
 mod audit;
+mod band;
 mod cli;
 mod common;
 mod data_sources;

@@ -346,5 +346,7 @@ fn outcome_of(
         support_share: 0.0,
         updates: 0,
         holdout_inputs: None,
+        // A Spark fit keeps no holdout rows on the driver: its models have no band.
+        holdout_rows: None,
     }
 }

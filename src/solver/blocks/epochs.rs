@@ -162,6 +162,7 @@ impl Trainer<'_> {
             support_share: strategy.support_share(rows_trained),
             updates: updates_total,
             holdout_inputs: cache.holdout_inputs(10_000),
+            holdout_rows: cache.holdout_all(),
         })
     }
 }

@@ -213,6 +213,9 @@ pub struct TrainOutcome {
     /// Up to 10,000 standardized holdout input rows, evenly spread (None without a
     /// holdout): the rows coverage thresholds are chosen on.
     pub holdout_inputs: Option<ndarray::Array2<f64>>,
+    /// Every kept holdout row: standardized inputs and targets in target units (None
+    /// without a holdout): the rows a band is calibrated on.
+    pub holdout_rows: Option<(ndarray::Array2<f64>, Array1<f64>)>,
 }
 
 /// Progress callbacks for a person watching (the CLI draws bars with them).
