@@ -2,7 +2,9 @@
 //! the measured values sit against their bands: rows, mean and RMSE of the residual
 //! (measured − expected), the share of rows outside the band against the 1 − level
 //! expected, with the exact binomial tail P(X ≥ outside) under Binomial(rows, 1 − level),
-//! and runs of consecutive outside rows in time order, largest first.
+//! runs of consecutive outside rows in time order, largest first, and the largest rises
+//! of the outside share within a file and group (a change that sets in part-way through
+//! the period, [`super::change`]), strongest first: the report names these first.
 //!
 //! Rows outside the training data's coverage (see [`crate::coverage`]) are counted per
 //! group but not judged against the band: the model has no expectation there, and the
@@ -21,6 +23,7 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use super::binomial::binomial_upper_tail;
+use super::change::{largest_rise, Rise};
 use super::runs::{outside_runs, Run};
 
 /// Runs listed in a report, largest first.
@@ -105,6 +108,9 @@ struct GroupPart {
     points: Vec<(i64, u64, bool)>,
     plot: Thinned,
     runs: Vec<Run>,
+    /// The largest rise of the outside share, with the time keys of its first and
+    /// last rows.
+    rise: Option<(Rise, i64, i64)>,
 }
 
 /// What one file contributes, built by one thread in row order.
@@ -169,6 +175,12 @@ impl FileDeviation {
         for g in self.groups.values_mut() {
             g.runs = outside_runs(&mut g.points);
             g.runs.truncate(DEFAULT_RUNS_SHOWN);
+            // `outside_runs` left the points in time order.
+            let flags: Vec<bool> = g.points.iter().map(|p| p.2).collect();
+            g.rise = largest_rise(&flags).map(|r| {
+                let last = g.points.last().expect("a rise has rows after it").0;
+                (r, g.points[r.at].0, last)
+            });
             g.points = Vec::new();
         }
         self.finished = true;
@@ -220,6 +232,33 @@ pub struct RunFigures {
     pub end_text: String,
 }
 
+/// A rise of the share of rows outside the band within one file and group.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ChangeFigures {
+    /// The file it is in.
+    pub file: String,
+    /// Its group ("" without groups).
+    pub group: String,
+    /// Time key of the first row after the change.
+    pub start: i64,
+    /// Time key of the sequence's last row.
+    pub end: i64,
+    /// The change's first time as text.
+    pub start_text: String,
+    /// The last time as text.
+    pub end_text: String,
+    /// Rows before the change.
+    pub rows_before: u64,
+    /// Share outside the band before the change.
+    pub share_before: f64,
+    /// Rows from the change on.
+    pub rows_after: u64,
+    /// Share outside the band from the change on.
+    pub share_after: f64,
+    /// Log-likelihood ratio of the change (Worsley 1983); larger is stronger.
+    pub statistic: f64,
+}
+
 /// A scoring run's deviation report.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct DeviationReport {
@@ -239,6 +278,8 @@ pub struct DeviationReport {
     pub groups: Vec<GroupFigures>,
     /// Longest runs of consecutive outside rows, largest first.
     pub runs: Vec<RunFigures>,
+    /// Largest rises of the outside share within a file and group, strongest first.
+    pub changes: Vec<ChangeFigures>,
     /// The group (or file) the plot shows: the first of `groups` (or `files`).
     pub worst: Option<String>,
     /// Points of the worst group for the plot, in time order (not in JSON).
@@ -282,6 +323,7 @@ impl DeviationReport {
         let mut groups: BTreeMap<String, Tally> = BTreeMap::new();
         let mut file_figs = Vec::with_capacity(files.len());
         let mut runs = Vec::new();
+        let mut changes = Vec::new();
         for f in files.iter_mut() {
             if !f.finished {
                 f.finish();
@@ -299,8 +341,27 @@ impl DeviationReport {
                     start_text: r.start.to_string(),
                     end_text: r.end.to_string(),
                 }));
+                if let Some((r, start, end)) = part.rise {
+                    let share = |(n, x): (u64, u64)| x as f64 / n.max(1) as f64;
+                    changes.push(ChangeFigures {
+                        file: f.name.clone(),
+                        group: g.clone(),
+                        start,
+                        end,
+                        start_text: start.to_string(),
+                        end_text: end.to_string(),
+                        rows_before: r.before.0,
+                        share_before: share(r.before),
+                        rows_after: r.after.0,
+                        share_after: share(r.after),
+                        statistic: r.statistic,
+                    });
+                }
             }
         }
+        // Stable: equal statistics keep file order.
+        changes.sort_by(|a, b| b.statistic.total_cmp(&a.statistic));
+        changes.truncate(DEFAULT_RUNS_SHOWN);
         // Stable: equal runs keep file order.
         runs.sort_by_key(|r| std::cmp::Reverse(r.rows));
         runs.truncate(DEFAULT_RUNS_SHOWN);
@@ -349,6 +410,7 @@ impl DeviationReport {
             files: file_figs,
             groups: group_figs,
             runs,
+            changes,
             worst,
             worst_points,
         }
@@ -360,6 +422,10 @@ impl DeviationReport {
         for r in &mut self.runs {
             r.start_text = format(r.start);
             r.end_text = format(r.end);
+        }
+        for c in &mut self.changes {
+            c.start_text = format(c.start);
+            c.end_text = format(c.end);
         }
     }
 

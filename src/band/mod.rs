@@ -8,7 +8,8 @@
 //! holdout rows (never seen) → s = |y − f(x)| / σ(x), sorted, bounded     conformal.rs
 //! scoring at level α        → q = s₍⌈(n+1)α⌉₎ ; band f(x) ± q·σ(x)       conformal.rs
 //! rows with a measured y    → residual, outside flag, deviation report   deviation.rs,
-//!                             (binomial tail, runs of outside rows)      binomial.rs, runs.rs,
+//!                             (binomial tail, runs of outside rows,      binomial.rs, runs.rs,
+//!                             rises of the outside share)                change.rs,
 //!                             as text and as an SVG                       text.rs, plot.rs
 //! ```
 //!
@@ -19,6 +20,7 @@
 //! plant: that is what the deviation report looks for.
 
 mod binomial;
+mod change;
 mod conformal;
 mod deviation;
 mod plot;
@@ -29,7 +31,8 @@ mod text;
 pub use binomial::{binomial_mass, binomial_upper_tail};
 pub use conformal::{check_level, Band, SCORES_KEPT};
 pub use deviation::{
-    BandRow, DeviationReport, FileDeviation, GroupFigures, RunFigures, DEFAULT_RUNS_SHOWN,
+    BandRow, ChangeFigures, DeviationReport, FileDeviation, GroupFigures, RunFigures,
+    DEFAULT_RUNS_SHOWN,
 };
 pub use plot::render_band_svg;
 pub use runs::{outside_runs, Run};

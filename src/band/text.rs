@@ -1,5 +1,6 @@
-//! The deviation report as text for a terminal: the overall line, tables by group and
-//! by file (worst first), and the longest runs outside the band.
+//! The deviation report as text for a terminal: the overall line, the strongest rises of
+//! the outside share within the period, tables by group and by file (worst first), and
+//! the longest runs outside the band.
 
 use std::fmt::Write;
 
@@ -21,6 +22,31 @@ impl DeviationReport {
             100.0 * self.expected_outside,
             o.p_value
         );
+        let order = self.time.as_deref().unwrap_or("row order");
+        if !self.changes.is_empty() {
+            let _ = writeln!(
+                s,
+                "largest rises of the share outside the band within the period ({order}; likelihood ratio, strongest first)"
+            );
+            for c in self.changes.iter().take(5) {
+                let group = if c.group.is_empty() {
+                    String::new()
+                } else {
+                    format!("{}  ", c.group)
+                };
+                let _ = writeln!(
+                    s,
+                    "  {group}from {} to {}: {:.1}% outside (was {:.1}% over {} rows before), ratio {:.1}  {}",
+                    c.start_text,
+                    c.end_text,
+                    100.0 * c.share_after,
+                    100.0 * c.share_before,
+                    c.rows_before,
+                    c.statistic,
+                    c.file
+                );
+            }
+        }
         let table = |s: &mut String, title: &str, v: &[GroupFigures]| {
             let _ = writeln!(s, "{title} (smallest p-value first)");
             let _ = writeln!(
@@ -49,7 +75,6 @@ impl DeviationReport {
             table(&mut s, &format!("by {by}"), &self.groups);
         }
         table(&mut s, "by file", &self.files);
-        let order = self.time.as_deref().unwrap_or("row order");
         let _ = writeln!(
             s,
             "longest runs of consecutive rows outside the band ({order})"

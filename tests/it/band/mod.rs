@@ -5,5 +5,6 @@
 
 mod binomial;
 mod coverage;
+mod demo;
 mod identity;
 mod local;
