@@ -23,174 +23,7 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use super::binomial::binomial_upper_tail;
-use super::change::{largest_rise, Rise};
-use super::runs::{outside_runs, Run};
-
-/// Runs listed in a report, largest first.
-pub const DEFAULT_RUNS_SHOWN: usize = 20;
-
-/// Most points kept per group for the plot (thinned evenly in row order).
-const PLOT_POINTS: usize = 500;
-
-/// One scored row with a measured value.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub struct BandRow {
-    /// Time key (the time column as an integer, or the row's position in its file).
-    pub time: i64,
-    /// The measured target.
-    pub measured: f64,
-    /// The prediction.
-    pub expected: f64,
-    /// The band's low end.
-    pub low: f64,
-    /// The band's high end.
-    pub high: f64,
-}
-
-impl BandRow {
-    /// Whether the measured value lies outside the band.
-    pub fn outside(&self) -> bool {
-        self.measured < self.low || self.measured > self.high
-    }
-}
-
-/// Running sums of one group, added in row order.
-#[derive(Clone, Copy, Debug, Default, PartialEq)]
-struct Tally {
-    rows: u64,
-    outside: u64,
-    uncovered: u64,
-    sum: f64,
-    sum_sq: f64,
-}
-
-impl Tally {
-    fn merge(&mut self, o: &Tally) {
-        self.rows += o.rows;
-        self.outside += o.outside;
-        self.uncovered += o.uncovered;
-        self.sum += o.sum;
-        self.sum_sq += o.sum_sq;
-    }
-}
-
-/// Points kept for a plot: every `stride`-th row, the stride doubling when full.
-#[derive(Clone, Debug, Default, PartialEq)]
-struct Thinned {
-    stride: u64,
-    seen: u64,
-    points: Vec<BandRow>,
-}
-
-impl Thinned {
-    fn push(&mut self, r: BandRow) {
-        if self.stride == 0 {
-            self.stride = 1;
-        }
-        if self.seen.is_multiple_of(self.stride) {
-            self.points.push(r);
-            if self.points.len() > PLOT_POINTS {
-                let mut i = 0;
-                self.points.retain(|_| {
-                    i += 1;
-                    i % 2 == 1
-                });
-                self.stride *= 2;
-            }
-        }
-        self.seen += 1;
-    }
-}
-
-#[derive(Clone, Debug, Default)]
-struct GroupPart {
-    tally: Tally,
-    points: Vec<(i64, u64, bool)>,
-    plot: Thinned,
-    runs: Vec<Run>,
-    /// The largest rise of the outside share, with the time keys of its first and
-    /// last rows.
-    rise: Option<(Rise, i64, i64)>,
-}
-
-/// What one file contributes, built by one thread in row order.
-#[derive(Clone, Debug, Default)]
-pub struct FileDeviation {
-    name: String,
-    total: Tally,
-    groups: BTreeMap<String, GroupPart>,
-    position: u64,
-    finished: bool,
-}
-
-impl FileDeviation {
-    /// An empty tally for the file called `name` in the report.
-    pub fn new(name: impl Into<String>) -> Self {
-        FileDeviation {
-            name: name.into(),
-            ..Default::default()
-        }
-    }
-
-    /// Adds the next row of the file (in file order) to `group` ("" without groups).
-    pub fn add(&mut self, group: &str, row: BandRow) {
-        let r = row.measured - row.expected;
-        let out = row.outside();
-        let t = Tally {
-            rows: 1,
-            outside: out as u64,
-            uncovered: 0,
-            sum: r,
-            sum_sq: r * r,
-        };
-        self.total.merge(&t);
-        let g = match self.groups.get_mut(group) {
-            Some(g) => g,
-            None => self.groups.entry(group.to_string()).or_default(),
-        };
-        g.tally.merge(&t);
-        g.points.push((row.time, self.position, out));
-        g.plot.push(row);
-        self.position += 1;
-    }
-
-    /// Counts the next row of the file as outside the training data's coverage (not
-    /// judged against the band; it breaks no run and joins none).
-    pub fn add_uncovered(&mut self, group: &str) {
-        let t = Tally {
-            uncovered: 1,
-            ..Tally::default()
-        };
-        self.total.merge(&t);
-        let g = match self.groups.get_mut(group) {
-            Some(g) => g,
-            None => self.groups.entry(group.to_string()).or_default(),
-        };
-        g.tally.merge(&t);
-        self.position += 1;
-    }
-
-    /// Finds each group's runs and drops the per-row points.
-    pub fn finish(&mut self) {
-        for g in self.groups.values_mut() {
-            g.runs = outside_runs(&mut g.points);
-            g.runs.truncate(DEFAULT_RUNS_SHOWN);
-            // `outside_runs` left the points in time order.
-            let flags: Vec<bool> = g.points.iter().map(|p| p.2).collect();
-            g.rise = largest_rise(&flags).map(|r| {
-                let last = g.points.last().expect("a rise has rows after it").0;
-                (r, g.points[r.at].0, last)
-            });
-            g.points = Vec::new();
-        }
-        self.finished = true;
-    }
-
-    /// Rows tallied.
-    pub fn rows(&self) -> u64 {
-        self.total.rows
-    }
-}
+use super::tally::{BandRow, FileDeviation, Tally, DEFAULT_RUNS_SHOWN};
 
 /// Figures of one file or group.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -287,7 +120,7 @@ pub struct DeviationReport {
     pub worst_points: Vec<BandRow>,
 }
 
-fn figures(name: &str, t: &Tally, expected_outside: f64) -> GroupFigures {
+pub(super) fn figures(name: &str, t: &Tally, expected_outside: f64) -> GroupFigures {
     let n = t.rows.max(1) as f64;
     GroupFigures {
         name: name.to_string(),
@@ -303,11 +136,18 @@ fn figures(name: &str, t: &Tally, expected_outside: f64) -> GroupFigures {
 
 /// Smallest p-value first; then the larger outside share; then the given order.
 fn worst_first(v: &mut [GroupFigures]) {
-    v.sort_by(|a, b| {
-        a.p_value
-            .total_cmp(&b.p_value)
-            .then(b.outside_share.total_cmp(&a.outside_share))
-    });
+    v.sort_by(rank);
+}
+
+fn rank(a: &GroupFigures, b: &GroupFigures) -> std::cmp::Ordering {
+    a.p_value
+        .total_cmp(&b.p_value)
+        .then(b.outside_share.total_cmp(&a.outside_share))
+}
+
+/// Whether `a` ranks strictly before `b` (worse) in the report.
+pub(super) fn is_worse(a: &GroupFigures, b: &GroupFigures) -> bool {
+    rank(a, b) == std::cmp::Ordering::Less
 }
 
 impl DeviationReport {
@@ -385,7 +225,7 @@ impl DeviationReport {
             (Some(w), true) => files
                 .iter()
                 .filter_map(|f| f.groups.get(w))
-                .flat_map(|g| g.plot.points.iter().copied())
+                .flat_map(|g| g.plot.points.iter().map(|&p| BandRow::from(p)))
                 .collect(),
             (Some(w), false) => files
                 .iter()
@@ -393,7 +233,7 @@ impl DeviationReport {
                 .map(|f| {
                     f.groups
                         .values()
-                        .flat_map(|g| g.plot.points.iter().copied())
+                        .flat_map(|g| g.plot.points.iter().map(|&p| BandRow::from(p)))
                         .collect()
                 })
                 .unwrap_or_default(),

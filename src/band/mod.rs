@@ -21,19 +21,20 @@
 
 mod binomial;
 mod change;
+mod collect;
 mod conformal;
 mod deviation;
 mod plot;
 mod runs;
 mod spread;
+mod tally;
 mod text;
 
 pub use binomial::{binomial_mass, binomial_upper_tail};
+pub use collect::DeviationTallies;
 pub use conformal::{check_level, Band, SCORES_KEPT};
-pub use deviation::{
-    BandRow, ChangeFigures, DeviationReport, FileDeviation, GroupFigures, RunFigures,
-    DEFAULT_RUNS_SHOWN,
-};
+pub use deviation::{ChangeFigures, DeviationReport, GroupFigures, RunFigures};
 pub use plot::render_band_svg;
 pub use runs::{outside_runs, Run};
 pub use spread::{Spread, SpreadMoments, FLOOR_SHARE};
+pub use tally::{BandRow, FileDeviation, DEFAULT_RUNS_SHOWN};

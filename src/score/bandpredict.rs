@@ -25,47 +25,55 @@ pub(crate) fn predict_band(
 ) {
     let d_out = model.map().output_dim();
     let cov = model.coverage.as_ref().filter(|_| coverage.is_some());
-    let mut cov_out = coverage;
+    let mut no_coverage = ndarray::Array1::<f64>::zeros(0);
+    let mut cov_out = coverage.unwrap_or(no_coverage.view_mut());
     let n = x.nrows();
-    let chunks: Vec<(usize, usize)> = (0..n)
-        .step_by(COVERAGE_CHUNK_ROWS)
-        .map(|lo| (lo, (lo + COVERAGE_CHUNK_ROWS).min(n)))
-        .collect();
-    // Results per chunk, then written in order.
-    let results: Vec<(Vec<f64>, Vec<f64>, Vec<f64>)> = chunks
-        .par_iter()
-        .map_init(
-            || cov.map(|c| c.work()),
-            |work, &(lo, hi)| {
-                let mut xs = x.slice(ndarray::s![lo..hi, ..]).to_owned();
-                model.scaler.apply(xs.view_mut());
-                let mut z = Array2::zeros((hi - lo, d_out));
-                model.map().transform_into(xs.view(), z.view_mut());
-                let mut p = Vec::with_capacity(hi - lo);
-                let mut s = Vec::with_capacity(hi - lo);
-                for zr in z.axis_iter(Axis(0)) {
-                    p.push(model.intercept + zr.dot(&model.weights));
-                    s.push(band.spread.at(zr));
-                }
-                let mut c = vec![0.0; if cov.is_some() { hi - lo } else { 0 }];
-                if let (Some(cv), Some(w)) = (cov, work.as_mut()) {
-                    cv.values_seq(xs.view(), ndarray::ArrayViewMut1::from(&mut c[..]), w);
-                }
-                (p, s, c)
-            },
-        )
-        .collect();
-    for ((lo, hi), (p, s, c)) in chunks.into_iter().zip(results) {
-        pred.slice_mut(ndarray::s![lo..hi])
-            .assign(&ndarray::ArrayView1::from(&p[..]));
-        sigma
-            .slice_mut(ndarray::s![lo..hi])
-            .assign(&ndarray::ArrayView1::from(&s[..]));
-        if let Some(co) = cov_out.as_mut() {
-            co.slice_mut(ndarray::s![lo..hi])
-                .assign(&ndarray::ArrayView1::from(&c[..]));
+    // Chunks of coverage's size, each with its slices of the outputs; a chunk's
+    // coverage slice is empty when coverage is not asked for.
+    let cov_len = |lo: usize| {
+        if cov.is_some() {
+            (n - lo).min(COVERAGE_CHUNK_ROWS)
+        } else {
+            0
         }
+    };
+    let mut jobs = Vec::with_capacity(n.div_ceil(COVERAGE_CHUNK_ROWS));
+    let (mut p_rest, mut s_rest, mut c_rest) =
+        (pred.view_mut(), sigma.view_mut(), cov_out.view_mut());
+    for lo in (0..n).step_by(COVERAGE_CHUNK_ROWS) {
+        let m = (n - lo).min(COVERAGE_CHUNK_ROWS);
+        let (p, pr) = p_rest.split_at(Axis(0), m);
+        let (s, sr) = s_rest.split_at(Axis(0), m);
+        let (c, cr) = c_rest.split_at(Axis(0), cov_len(lo));
+        jobs.push((lo, p, s, c));
+        (p_rest, s_rest, c_rest) = (pr, sr, cr);
     }
+    // One workspace per worker: the standardized rows, their mapped features and the
+    // coverage scratch, reused from chunk to chunk.
+    jobs.into_par_iter().for_each_init(
+        || {
+            (
+                Array2::<f64>::zeros((COVERAGE_CHUNK_ROWS, x.ncols())),
+                Array2::<f64>::zeros((COVERAGE_CHUNK_ROWS, d_out)),
+                cov.map(|c| c.work()),
+            )
+        },
+        |(xbuf, zbuf, work), (lo, mut p, mut s, c)| {
+            let m = p.len();
+            let mut xs = xbuf.slice_mut(ndarray::s![..m, ..]);
+            xs.assign(&x.slice(ndarray::s![lo..lo + m, ..]));
+            model.scaler.apply(xs.view_mut());
+            let mut z = zbuf.slice_mut(ndarray::s![..m, ..]);
+            model.map().transform_into(xs.view(), z.view_mut());
+            for (i, zr) in z.axis_iter(Axis(0)).enumerate() {
+                p[i] = model.intercept + zr.dot(&model.weights);
+                s[i] = band.spread.at(zr);
+            }
+            if let (Some(cv), Some(w)) = (cov, work.as_mut()) {
+                cv.values_seq(xs.view(), c, w);
+            }
+        },
+    );
 }
 
 /// Predictions and the band at `level` of raw-unit rows `x` in memory (rows × inputs,

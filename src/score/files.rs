@@ -15,7 +15,7 @@ use super::batch::{score_planned, Plan};
 use super::writer::{complete_stamp, plan_outputs, OutputFile, Stamp};
 use super::{model_checksum, FileFailure, ScoreObserver, ScoreOptions, ScoreSummary};
 use crate::atomic::remove_stale_temps;
-use crate::band::{DeviationReport, FileDeviation};
+use crate::band::{DeviationTallies, FileDeviation};
 use crate::data::csv::{self, CsvBatches};
 use crate::data::{Format, SourceFile};
 use crate::error::{Error, Result};
@@ -183,8 +183,27 @@ pub fn score_files(
 
     let next = AtomicUsize::new(0);
     let stop = AtomicBool::new(false);
-    let results: Mutex<Vec<Option<Result<Outcome>>>> =
-        Mutex::new((0..files.len()).map(|_| None).collect());
+    // Results by file; the deviation tallies are taken out of them in file order as
+    // soon as every earlier file is done, so the report's state stays bounded.
+    let results: Mutex<Gathered> = Mutex::new(Gathered {
+        results: (0..files.len()).map(|_| None).collect(),
+        cursor: 0,
+        tallies: opts.band.map(|level| {
+            DeviationTallies::new(
+                level,
+                opts.group_column.clone(),
+                opts.time_column.clone(),
+                files.len(),
+            )
+        }),
+        time_type: None,
+    });
+    let plot_points = results
+        .lock()
+        .expect("results lock")
+        .tallies
+        .as_ref()
+        .map_or(0, DeviationTallies::plot_points);
     std::thread::scope(|s| {
         for _ in 0..workers {
             s.spawn(|| loop {
@@ -204,13 +223,14 @@ pub fn score_files(
                     pool: &pool,
                     stop: &stop,
                     progress,
+                    plot_points,
                 };
                 let r = job.run();
                 if r.is_err() && !opts.keep_going {
                     stop.store(true, Ordering::SeqCst);
                 }
                 progress.file_done();
-                results.lock().expect("results lock")[i] = Some(r);
+                results.lock().expect("results lock").put(i, r);
             });
         }
     });
@@ -219,19 +239,17 @@ pub fn score_files(
         files: files.len(),
         ..ScoreSummary::default()
     };
-    let results = results.into_inner().expect("results lock");
-    let mut tallies = Vec::new();
-    let mut time_type: Option<DataType> = None;
+    let Gathered {
+        results,
+        tallies,
+        time_type,
+        ..
+    } = results.into_inner().expect("results lock");
     for (file, r) in files.iter().zip(results) {
         match r {
             None => {}
             Some(Ok(Outcome::Skipped)) => summary.files_skipped += 1,
-            Some(Ok(Outcome::Scored(read, written, missing, uncovered, tally))) => {
-                if let Some(t) = tally {
-                    let (t, ty) = *t;
-                    tallies.push(t);
-                    time_type = time_type.or(ty);
-                }
+            Some(Ok(Outcome::Scored(read, written, missing, uncovered, _))) => {
                 summary.files_scored += 1;
                 summary.rows_read += read;
                 summary.rows_written += written;
@@ -250,13 +268,8 @@ pub fn score_files(
             }
         }
     }
-    if let Some(level) = opts.band {
-        let mut report = DeviationReport::build(
-            level,
-            opts.group_column.clone(),
-            opts.time_column.clone(),
-            tallies,
-        );
+    if let Some(tallies) = tallies {
+        let mut report = tallies.build();
         let ty = time_type.as_ref();
         let ty = if opts.time_column.is_some() { ty } else { None };
         report.format_times(&|t| format_time(t, ty));
@@ -276,6 +289,36 @@ struct FileJob<'a> {
     pool: &'a rayon::ThreadPool,
     stop: &'a AtomicBool,
     progress: &'a dyn ScoreObserver,
+    /// Plot points a file's deviation tally keeps per group.
+    plot_points: usize,
+}
+
+/// The files' results as they finish, and the deviation tallies taken from them in
+/// file order.
+struct Gathered {
+    results: Vec<Option<Result<Outcome>>>,
+    /// Files before this one have had their tallies taken.
+    cursor: usize,
+    tallies: Option<DeviationTallies>,
+    time_type: Option<DataType>,
+}
+
+impl Gathered {
+    /// Stores file `i`'s result, then moves every tally now in file order into the
+    /// report's tallies.
+    fn put(&mut self, i: usize, r: Result<Outcome>) {
+        self.results[i] = Some(r);
+        while let Some(Some(r)) = self.results.get_mut(self.cursor) {
+            if let (Ok(Outcome::Scored(.., tally)), Some(all)) = (r, self.tallies.as_mut()) {
+                if let Some(t) = tally.take() {
+                    let (t, ty) = *t;
+                    all.push(t);
+                    self.time_type = self.time_type.take().or(ty);
+                }
+            }
+            self.cursor += 1;
+        }
+    }
 }
 
 impl FileJob<'_> {
@@ -293,9 +336,9 @@ impl FileJob<'_> {
         let (reader, plan, rows) = open_checked(self.model, self.file, self.opts)?;
         let mut out = OutputFile::create(self.output, plan.schema().clone(), self.opts.batch_rows)?;
         let (mut read, mut missing, mut uncovered) = (0u64, 0u64, 0u64);
-        let mut tally = plan
-            .band()
-            .map(|_| FileDeviation::new(path.display().to_string()));
+        let mut tally = plan.band().map(|_| {
+            FileDeviation::new(path.display().to_string()).with_plot_points(self.plot_points)
+        });
         for batch in reader {
             if self.stop.load(Ordering::SeqCst) {
                 // Another file failed: drop the temporary file, leave the final name.
