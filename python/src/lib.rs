@@ -8,6 +8,7 @@ mod fit;
 mod model;
 mod options;
 mod run;
+mod scoring;
 mod spark;
 mod table;
 mod tools;
@@ -18,7 +19,7 @@ use pyo3::prelude::*;
 #[pymodule]
 fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_class::<model::PyModel>()?;
-    m.add_class::<model::BatchScorer>()?;
+    m.add_class::<scoring::BatchScorer>()?;
     m.add_class::<arrow::ArrowStream>()?;
     m.add_function(wrap_pyfunction!(fit::fit_files, m)?)?;
     m.add_function(wrap_pyfunction!(fit::fit_arrays, m)?)?;
@@ -26,7 +27,7 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(tools::audit_files, m)?)?;
     m.add_function(wrap_pyfunction!(tools::tune_files, m)?)?;
     m.add_function(wrap_pyfunction!(options::fit_defaults, m)?)?;
-    m.add_function(wrap_pyfunction!(model::_score_in_rust, m)?)?;
+    m.add_function(wrap_pyfunction!(scoring::_score_in_rust, m)?)?;
     m.add_class::<spark::SparkWorker>()?;
     m.add_class::<spark::SparkDriver>()?;
     m.add_function(wrap_pyfunction!(spark::spark_fit_check, m)?)?;

@@ -3,18 +3,19 @@
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-use arrow_array::{RecordBatch, RecordBatchReader};
+use arrow_array::RecordBatchReader;
 use kernlake::model::Model;
 use kernlake::modelfile::ModelFile;
-use kernlake::score::{score_batch_at, MissingRows, ScoreOptions, TableReport};
+use kernlake::score::TableReport;
 use numpy::{IntoPyArray, PyArray1, PyArrayMethods, PyUntypedArrayMethods};
 use pyo3::prelude::*;
 use pyo3::types::{PyBytes, PyType};
 
-use crate::arrow::{import, ArrowStream, Batches};
+use crate::arrow::{import, ArrowStream};
 use crate::errors::{input, IntoPy};
 use crate::fit::matrix;
 use crate::run::released;
+use crate::scoring::{output_schema, rayon_pool, score_all, score_options, BatchScorer};
 
 /// A fitted model (Python class `kernlake.Model`).
 #[pyclass(name = "Model", module = "kernlake._native", frozen)]
@@ -41,101 +42,6 @@ pub fn to_python<'py>(py: Python<'py>, v: &impl serde::Serialize) -> PyResult<Bo
     let text = serde_json::to_string(v)
         .map_err(|e| input(py, format!("could not encode the value ({e})")))?;
     py.import("json")?.call_method1("loads", (text,))
-}
-
-/// The band's keyword arguments: level, time column, group column.
-type BandArgs = (Option<f64>, Option<String>, Option<String>);
-
-/// Scoring settings from the keyword arguments of `score` and `score_batches`.
-#[allow(clippy::too_many_arguments)]
-fn score_options(
-    py: Python<'_>,
-    model: &Model,
-    keep: Option<Vec<String>>,
-    coverage: bool,
-    missing: &str,
-    name: String,
-    batch_rows: usize,
-    threads: usize,
-    band: BandArgs,
-) -> PyResult<ScoreOptions> {
-    let missing = match missing {
-        "null" => MissingRows::Null,
-        "skip" => MissingRows::Skip,
-        "fail" => MissingRows::Fail,
-        other => {
-            return Err(input(
-                py,
-                format!("invalid value for missing: '{other}' is not one of null, skip, fail"),
-            ))
-        }
-    };
-    let opts = ScoreOptions {
-        prediction_name: name,
-        keep,
-        coverage,
-        missing,
-        batch_rows,
-        threads,
-        band: band.0,
-        time_column: band.1,
-        group_column: band.2,
-        ..ScoreOptions::default()
-    };
-    opts.validate().py_err(py)?;
-    kernlake::score::check_band_options(model, &opts).py_err(py)?;
-    Ok(opts)
-}
-
-/// Scores every batch of `batches` in slices of `opts.batch_rows` rows (row numbers in
-/// messages count from the table's first row) on a pool of `opts.threads`.
-fn score_all(
-    model: &Model,
-    batches: Batches,
-    opts: &ScoreOptions,
-    mut report: Option<&mut TableReport>,
-) -> kernlake::Result<Vec<RecordBatch>> {
-    let pool = rayon_pool(opts.threads)?;
-    let mut out = Vec::new();
-    let mut first = 0u64;
-    for batch in batches {
-        let batch = batch.map_err(|e| kernlake::Error::File {
-            path: PathBuf::from("<table>"),
-            message: format!("could not be read ({e})"),
-        })?;
-        let mut offset = 0;
-        while offset < batch.num_rows() {
-            let len = opts.batch_rows.min(batch.num_rows() - offset);
-            let part = batch.slice(offset, len);
-            let at = first + offset as u64;
-            out.push(pool.install(|| match report.as_deref_mut() {
-                Some(r) => r.score(model, &part, opts, at),
-                None => score_batch_at(model, &part, opts, at),
-            })?);
-            offset += len;
-        }
-        first += batch.num_rows() as u64;
-    }
-    Ok(out)
-}
-
-fn rayon_pool(threads: usize) -> kernlake::Result<rayon::ThreadPool> {
-    rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .map_err(|e| {
-            kernlake::Error::invalid("threads", format!("could not start a thread pool ({e})"))
-        })
-}
-
-/// The output schema for an input schema (the contract check, on an empty batch).
-fn output_schema(
-    model: &Model,
-    schema: arrow_schema::SchemaRef,
-    opts: &ScoreOptions,
-) -> kernlake::Result<arrow_schema::SchemaRef> {
-    let empty = RecordBatch::new_empty(schema);
-    Ok(score_batch_at(model, &empty, opts, 0)?.schema())
 }
 
 #[pymethods]
@@ -345,16 +251,7 @@ impl PyModel {
         let in_schema = batches.schema();
         let schema = released(py, || output_schema(&model, in_schema, &opts))?;
         let pool = released(py, || rayon_pool(threads))?;
-        Ok(BatchScorer {
-            state: std::sync::Mutex::new(ScorerState {
-                model,
-                batches,
-                opts,
-                pool,
-                schema,
-                first: 0,
-            }),
-        })
+        Ok(BatchScorer::new(model, batches, opts, pool, schema))
     }
 
     /// Input column names, in the model's order.
@@ -420,76 +317,4 @@ fn json_name(v: &impl serde::Serialize) -> String {
         Ok(other) => other.to_string(),
         Err(_) => "?".into(),
     }
-}
-
-struct ScorerState {
-    model: Arc<Model>,
-    batches: Batches,
-    opts: ScoreOptions,
-    pool: rayon::ThreadPool,
-    schema: arrow_schema::SchemaRef,
-    first: u64,
-}
-
-/// Scored batches, one per input batch, read and scored on demand.
-#[pyclass(module = "kernlake._native", frozen)]
-pub struct BatchScorer {
-    state: std::sync::Mutex<ScorerState>,
-}
-
-#[pymethods]
-impl BatchScorer {
-    /// The next scored batch as a one-batch stream, or `None` at the end.
-    fn next_stream(&self, py: Python<'_>) -> PyResult<Option<ArrowStream>> {
-        let state = &self.state;
-        let out = released(py, || {
-            let mut s = state.lock().expect("the scorer's lock is never poisoned");
-            let Some(batch) = s.batches.next() else {
-                return Ok(None);
-            };
-            let batch = batch.map_err(|e| kernlake::Error::File {
-                path: PathBuf::from("<table>"),
-                message: format!("could not be read ({e})"),
-            })?;
-            let first = s.first;
-            let (model, opts, pool) = (&s.model, &s.opts, &s.pool);
-            let scored = pool.install(|| score_batch_at(model, &batch, opts, first))?;
-            s.first += batch.num_rows() as u64;
-            Ok(Some((s.schema.clone(), scored)))
-        })?;
-        Ok(out.map(|(schema, b)| ArrowStream::new(schema, vec![b])))
-    }
-}
-
-/// Benchmark hook: seconds the library takes to score `table` (already imported, so no
-/// Python runs between batches), with `score`'s default options.
-#[pyfunction]
-pub fn _score_in_rust(py: Python<'_>, model: &PyModel, table: &Bound<'_, PyAny>) -> PyResult<f64> {
-    let opts = score_options(
-        py,
-        &model.inner,
-        None,
-        true,
-        "null",
-        "prediction".into(),
-        65_536,
-        0,
-        (None, None, None),
-    )?;
-    let batches: Vec<RecordBatch> = import(table)?
-        .collect::<Result<_, _>>()
-        .map_err(|e| input(py, format!("the table could not be read ({e})")))?;
-    let schema = batches
-        .first()
-        .map(|b| b.schema())
-        .unwrap_or_else(|| std::sync::Arc::new(arrow_schema::Schema::empty()));
-    let m = &model.inner;
-    released(py, move || {
-        let it = arrow_array::RecordBatchIterator::new(batches.into_iter().map(Ok), schema);
-        let t0 = std::time::Instant::now();
-        let out = score_all(m, Box::new(it), &opts, None)?;
-        let secs = t0.elapsed().as_secs_f64();
-        drop(out);
-        Ok(secs)
-    })
 }

@@ -11,8 +11,10 @@ use arrow_schema::{DataType, Field, Schema};
 use parquet::arrow::ProjectionMask;
 
 use super::banded::{check_band_options, format_time};
-use super::batch::{score_planned, Plan};
-use super::writer::{complete_stamp, plan_outputs, OutputFile, Stamp};
+use super::batch::score_planned;
+use super::plan::Plan;
+use super::stamp::{complete_stamp, Stamp};
+use super::writer::{plan_outputs, OutputFile};
 use super::{model_checksum, FileFailure, ScoreObserver, ScoreOptions, ScoreSummary};
 use crate::atomic::remove_stale_temps;
 use crate::band::{DeviationTallies, FileDeviation};

@@ -39,6 +39,8 @@ mod batch;
 mod covered;
 mod files;
 mod pipe;
+mod plan;
+mod stamp;
 mod table;
 mod writer;
 
@@ -55,8 +57,8 @@ pub use batch::{score_batch, score_batch_at};
 pub use covered::predict_covered;
 pub use files::score_files;
 pub use pipe::{score_files_to_stream, score_stream};
+pub use stamp::STAMP_KEY;
 pub use table::TableReport;
-pub use writer::STAMP_KEY;
 
 use crate::data::{CsvOptions, Format};
 use crate::error::{Error, Result};

@@ -9,8 +9,9 @@ use arrow_ipc::reader::StreamReader;
 use arrow_ipc::writer::StreamWriter;
 use arrow_schema::SchemaRef;
 
-use super::batch::{score_planned, Plan};
+use super::batch::score_planned;
 use super::files::open_checked;
+use super::plan::Plan;
 use super::{ScoreObserver, ScoreOptions, ScoreSummary};
 use crate::data::SourceFile;
 use crate::error::{Error, Result};

@@ -8,7 +8,8 @@ use arrow_array::RecordBatch;
 use arrow_schema::DataType;
 
 use super::banded::{check_band_options, format_time};
-use super::batch::{score_planned, Plan};
+use super::batch::score_planned;
+use super::plan::Plan;
 use super::ScoreOptions;
 use crate::band::{DeviationReport, FileDeviation};
 use crate::error::{Error, Result};
