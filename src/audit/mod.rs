@@ -110,8 +110,11 @@ pub struct AuditOptions {
     pub kernel_rows: usize,
     /// Seed of the split, the maps and the solver orders.
     pub seed: u64,
-    /// Threads (0 = all cores); results do not depend on it.
+    /// Threads (0 = all cores; at most the processors unless `oversubscribe`); results
+    /// do not depend on it.
     pub threads: usize,
+    /// Allow `threads` above the number of processors.
+    pub oversubscribe: bool,
 }
 
 impl Default for AuditOptions {
@@ -138,6 +141,7 @@ impl Default for AuditOptions {
             kernel_rows: 500,
             seed: 0,
             threads: 0,
+            oversubscribe: false,
         }
     }
 }
@@ -175,6 +179,7 @@ impl AuditOptions {
     }
 
     fn validate(&self) -> Result<()> {
+        crate::settings::check_threads(self.threads, self.oversubscribe)?;
         if !(self.split > 0.0 && self.split < 1.0) {
             return Err(Error::invalid(
                 "split",
@@ -197,7 +202,7 @@ impl AuditOptions {
             ));
         }
         if self.linear_passes == 0 {
-            return Err(Error::invalid("linear_passes", "must be at least 1"));
+            return Err(Error::invalid("linear passes", "must be at least 1"));
         }
         self.resolved_maps().map(|_| ())
     }

@@ -27,8 +27,10 @@ pub struct ModelAuditOptions {
     pub kernel_rows: usize,
     /// Seed of the split.
     pub seed: u64,
-    /// Threads (0 = all cores).
+    /// Threads (0 = all cores; at most the processors unless `oversubscribe`).
     pub threads: usize,
+    /// Allow `threads` above the number of processors.
+    pub oversubscribe: bool,
 }
 
 impl Default for ModelAuditOptions {
@@ -41,6 +43,7 @@ impl Default for ModelAuditOptions {
             kernel_rows: 500,
             seed: 0,
             threads: 0,
+            oversubscribe: false,
         }
     }
 }
@@ -105,6 +108,7 @@ pub fn audit_model(
         x.ncols(),
         model.input_dim()
     );
+    crate::settings::check_threads(opts.threads, opts.oversubscribe)?;
     if !(opts.split > 0.0 && opts.split < 1.0) {
         return Err(Error::invalid(
             "split",

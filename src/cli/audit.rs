@@ -87,6 +87,9 @@ pub struct AuditArgs {
     /// (each holds its mapped sample in memory).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
+    /// Allow --threads above the number of processors.
+    #[arg(long)]
+    pub oversubscribe: bool,
     /// Write the report as JSON to this file ('-' for standard output).
     #[arg(long, value_name = "FILE")]
     pub json: Option<PathBuf>,
@@ -122,6 +125,7 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
     for path in [&a.json, &a.plot].into_iter().flatten() {
         super::args::check_output(path)?;
     }
+    crate::settings::check_threads(a.threads, a.oversubscribe)?;
     let model = a.model.as_deref().map(Model::load).transpose()?;
     let target = match (&a.target, &model) {
         (Some(t), _) => t.clone(),
@@ -173,6 +177,7 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
                 cache_bytes: a.cache,
                 seed: a.seed,
                 threads: a.threads,
+                oversubscribe: a.oversubscribe,
                 ..ModelAuditOptions::default()
             };
             let mut r = audit_model(m, x.view(), y.view(), &opts)?;
@@ -207,6 +212,7 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
                 cache_bytes: a.cache,
                 seed: a.seed,
                 threads: a.threads,
+                oversubscribe: a.oversubscribe,
                 ..AuditOptions::default()
             };
             let bar = count_bar(quiet, "fit", "machines");

@@ -63,9 +63,12 @@ pub struct ScoreArgs {
     /// Rewrite outputs that are already complete.
     #[arg(long)]
     pub overwrite: bool,
-    /// Threads (0 = all cores).
+    /// Threads (0 = all cores; at most the processors unless --oversubscribe).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
+    /// Allow --threads above the number of processors.
+    #[arg(long)]
+    pub oversubscribe: bool,
     /// Field separator of CSV sources.
     #[arg(long, default_value = ",", value_name = "CHAR")]
     pub delimiter: char,
@@ -190,8 +193,9 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
             "must be a single ASCII character",
         ));
     }
-    let model = Model::load(&a.model)?;
-    let opts = ScoreOptions {
+    // Settings first (threads, batch rows, an explicit band level): before the model or
+    // any data is read.
+    let mut opts = ScoreOptions {
         out_dir: PathBuf::from(&a.out),
         prediction_name: a.name.clone(),
         keep: a.keep.clone(),
@@ -204,22 +208,22 @@ pub fn run(a: ScoreArgs, quiet: bool) -> Result<i32> {
         },
         batch_rows: a.batch_rows,
         threads: a.threads,
+        oversubscribe: a.oversubscribe,
         overwrite: a.overwrite,
         keep_going: a.keep_going,
         csv: CsvOptions {
             delimiter: a.delimiter as u8,
         },
-        band: match (a.band, a.no_band) {
-            (_, true) => None,
-            (Some(level), false) => Some(level),
-            (None, false) => model.band.as_ref().map(|_| defaults::BAND_LEVEL),
-        },
+        band: if a.no_band { None } else { a.band },
         time_column: a.time.clone(),
         group_column: a.by.clone(),
     };
-    // Settings first: a band the model cannot give, or a level outside (0, 1), fails
-    // before any file is listed or read.
     opts.validate()?;
+    let model = Model::load(&a.model)?;
+    if !a.no_band && a.band.is_none() {
+        opts.band = model.band.as_ref().map(|_| defaults::BAND_LEVEL);
+    }
+    // A band the model cannot give fails before any file is listed or read.
     check_band_options(&model, &opts)?;
     if (a.report.is_some() || a.plot.is_some()) && opts.band.is_none() {
         return Err(Error::invalid(

@@ -126,9 +126,12 @@ pub struct TuneArgs {
     /// Seed for every random choice.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
-    /// Threads (0 = all cores).
+    /// Threads (0 = all cores; at most the processors unless --oversubscribe).
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
+    /// Allow --threads above the number of processors.
+    #[arg(long)]
+    pub oversubscribe: bool,
     /// Candidates shown in the ranked table.
     #[arg(long, default_value_t = 15)]
     pub top: usize,
@@ -280,6 +283,17 @@ pub fn run(a: TuneArgs, quiet: bool) -> Result<i32> {
     // Settings are checked before any data is read.
     a.check_names()?;
     a.options(None).validate()?;
+    crate::settings::check_threads(a.threads, a.oversubscribe)?;
+    if a.sample < crate::settings::MIN_SAMPLE {
+        return Err(Error::invalid(
+            "sample",
+            format!(
+                "must be at least {} rows (the search validates on them), got {}",
+                crate::settings::MIN_SAMPLE,
+                a.sample
+            ),
+        ));
+    }
     for path in [&a.json, &a.heatmap, &a.fit].into_iter().flatten() {
         super::args::check_output(path)?;
     }

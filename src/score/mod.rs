@@ -101,8 +101,11 @@ pub struct ScoreOptions {
     pub missing: MissingRows,
     /// Rows per batch read, scored and written (also the output row-group size).
     pub batch_rows: usize,
-    /// Threads (0 = all cores): files scored at once, and the pool mapping rows.
+    /// Threads (0 = all cores): files scored at once, and the pool mapping rows; at most
+    /// the processors unless `oversubscribe`.
     pub threads: usize,
+    /// Allow `threads` above the number of processors.
+    pub oversubscribe: bool,
     /// Rewrite outputs even when they are complete.
     pub overwrite: bool,
     /// Go on with the other files after a file fails (the summary lists failures).
@@ -133,6 +136,7 @@ impl Default for ScoreOptions {
             threads: 0,
             overwrite: false,
             keep_going: false,
+            oversubscribe: false,
             csv: CsvOptions::default(),
             band: None,
             time_column: None,
@@ -145,8 +149,10 @@ impl ScoreOptions {
     /// Checks the options on their own.
     ///
     /// # Errors
-    /// [`Error::InvalidParameter`] for zero batch rows or an empty prediction name.
+    /// [`Error::InvalidParameter`] for zero batch rows, an empty prediction name, a band
+    /// level outside (0, 1), or more threads than processors without `oversubscribe`.
     pub fn validate(&self) -> Result<()> {
+        crate::settings::check_threads(self.threads, self.oversubscribe)?;
         if self.batch_rows == 0 {
             return Err(Error::invalid("batch rows", "must be at least 1"));
         }

@@ -183,6 +183,35 @@ impl TuneOptions {
                 format!("must be at least 0, got {}", self.dim_tol),
             ));
         }
+        self.check_memory()
+    }
+
+    /// A bound on the memory of the search's largest fit, in bytes: the Newton solver's
+    /// three (D + 1)² matrices at the largest D, and the mapped rows of the largest
+    /// stage (the exact stage's or the second stage's rows, D features each).
+    pub fn memory_estimate(&self) -> u64 {
+        let d = self.max_dim.max(self.refine_dim) as u64 + 1;
+        let square = d.saturating_mul(d).saturating_mul(8 * 3);
+        let rows = self.exact_rows.max(self.refine_rows) as u64;
+        square.saturating_add(rows.saturating_mul(d).saturating_mul(8))
+    }
+
+    fn check_memory(&self) -> Result<()> {
+        let Some(total) = crate::settings::physical_memory() else {
+            return Ok(());
+        };
+        let need = self.memory_estimate();
+        if need > total {
+            return Err(Error::invalid(
+                "max dim",
+                format!(
+                    "a search up to D = {} needs about {} of memory (its D × D matrices and mapped sample), more than this machine's {}; lower --max-dim (or --refine-dim)",
+                    self.max_dim.max(self.refine_dim),
+                    crate::settings::gib(need),
+                    crate::settings::gib(total)
+                ),
+            ));
+        }
         Ok(())
     }
 

@@ -508,7 +508,7 @@ fn bad_input_gives_typed_errors_or_notes() {
         ..AuditOptions::default()
     };
     match audit(x.view(), y.view(), &tiny) {
-        Err(Error::InvalidParameter { name, .. }) => assert_eq!(name, "cache_bytes"),
+        Err(Error::InvalidParameter { name, .. }) => assert_eq!(name, "cache"),
         other => panic!("expected a cache error, got {other:?}"),
     }
     // orthogonal features with a Laplacian kernel do not exist (Yu et al., NIPS 2016)

@@ -370,3 +370,61 @@ fn outputs_that_cannot_be_written_are_refused_before_any_data_is_read() {
     }
     no_temp_files(dir.path());
 }
+
+/// Issue 20: one cleanup rule for every output. A killed `tune` or `audit` leaves a
+/// temporary file beside its report; the next run that writes that report removes it
+/// (its process is gone) and leaves a live run's alone. Data: CCPP (Tüfekci 2014).
+#[test]
+fn tune_and_audit_reports_clear_a_killed_runs_temporaries() {
+    let dir = tempfile::tempdir().unwrap();
+    small_lake(&dir.path().join("lake"), 600, 2);
+    let lake = dir.path().join("lake");
+    let lake = lake.to_str().unwrap();
+    for (name, args) in [
+        (
+            "tune.json",
+            vec![
+                "tune",
+                lake,
+                "--target",
+                "PE",
+                "--sample",
+                "300",
+                "-D",
+                "32",
+                "--max-dim",
+                "32",
+                "--refine-fits",
+                "0",
+                "--quiet",
+                "--json",
+            ],
+        ),
+        (
+            "audit.json",
+            vec![
+                "audit", lake, "--target", "PE", "--sample", "300", "--dims", "16", "--quiet",
+                "--json",
+            ],
+        ),
+    ] {
+        let out = dir.path().join(name);
+        // no process has this id (above Linux's largest pid); the second is this test
+        let stale = dir
+            .path()
+            .join(format!(".{name}.part-4194305-00000000deadbeef"));
+        let live = dir.path().join(format!(
+            ".{name}.part-{}-00000000deadbeef",
+            std::process::id()
+        ));
+        std::fs::write(&stale, b"half").unwrap();
+        std::fs::write(&live, b"busy").unwrap();
+        let mut args = args.clone();
+        args.push(out.to_str().unwrap());
+        let o = kernlake(&args);
+        assert!(o.status.success(), "{args:?}: {}", stderr(&o));
+        assert!(out.exists(), "{name} written");
+        assert!(!stale.exists(), "{name}: the killed run's temporary stayed");
+        assert!(live.exists(), "{name}: a live run's temporary was removed");
+    }
+}

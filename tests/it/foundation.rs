@@ -185,6 +185,145 @@ fn settings_are_checked_before_any_file_is_opened() {
             !err.contains("nonexistent"),
             "{flags:?} read data first: {err}"
         );
+        // Issue 20: flag names, never the library's field names.
+        for internal in [
+            "max_epochs",
+            "sweeps_per_block",
+            "hessian_rows",
+            "block_rows",
+            "sample_rows",
+            "memory_bytes",
+        ] {
+            assert!(!err.contains(internal), "{flags:?} names a field: {err}");
+        }
+    }
+}
+
+/// Every command refuses more threads than processors (thousands of threads made runs
+/// hang), before it reads anything, and says how to insist; `--oversubscribe` is the
+/// override (common practice: a pool no larger than the processors).
+#[test]
+fn every_command_caps_threads_at_the_processors_before_reading() {
+    let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let over = (cores + 1).to_string();
+    let commands: &[&[&str]] = &[
+        &["fit", "/nonexistent/lake", "--target", "PE", "--quiet"],
+        &[
+            "score",
+            "/nonexistent/m.klm",
+            "/nonexistent/lake",
+            "--out",
+            "/nonexistent/o",
+            "--quiet",
+        ],
+        &["audit", "/nonexistent/lake", "--target", "PE", "--quiet"],
+        &["tune", "/nonexistent/lake", "--target", "PE", "--quiet"],
+    ];
+    for cmd in commands {
+        for threads in ["100000", over.as_str()] {
+            let mut args = cmd.to_vec();
+            args.extend_from_slice(&["--threads", threads]);
+            let (code, err) = kernlake(&args);
+            assert_eq!(code, 2, "{args:?}: {err}");
+            assert!(err.contains("threads"), "{args:?}: {err}");
+            assert!(
+                !err.contains("nonexistent"),
+                "{args:?} read data first: {err}"
+            );
+            assert_eq!(err.trim().lines().count(), 1, "{args:?}: {err}");
+        }
+        let mut args = cmd.to_vec();
+        args.extend_from_slice(&["--threads", over.as_str()]);
+        let (_, err) = kernlake(&args);
+        assert!(err.contains("--oversubscribe"), "{args:?}: {err}");
+        args.push("--oversubscribe");
+        let (code, err) = kernlake(&args);
+        assert_ne!(code, 0);
+        assert!(
+            err.contains("nonexistent"),
+            "{args:?}: the override is honoured: {err}"
+        );
+    }
+}
+
+/// Score, tune and audit check their numbers before reading (issue 20): zero batch rows,
+/// a sample too small to estimate anything, and a search whose largest D cannot fit in
+/// this machine's memory (refused with the estimate and the flag to change).
+#[test]
+fn score_tune_and_audit_check_their_numbers_before_reading() {
+    let cases: &[(&[&str], &[&str])] = &[
+        (
+            &[
+                "score",
+                "/nonexistent/m.klm",
+                "/nonexistent/lake",
+                "--out",
+                "/nonexistent/o",
+                "--batch-rows",
+                "0",
+            ],
+            &["batch rows"],
+        ),
+        (
+            &[
+                "tune",
+                "/nonexistent/lake",
+                "--target",
+                "PE",
+                "--sample",
+                "2",
+            ],
+            &["sample"],
+        ),
+        (
+            &[
+                "tune",
+                "/nonexistent/lake",
+                "--target",
+                "PE",
+                "-D",
+                "100000",
+                "--max-dim",
+                "100000",
+            ],
+            &["memory", "GiB", "--max-dim"],
+        ),
+        (
+            &[
+                "audit",
+                "/nonexistent/lake",
+                "--target",
+                "PE",
+                "--sample",
+                "0",
+            ],
+            &["--sample"],
+        ),
+        (
+            &[
+                "fit",
+                "/nonexistent/lake",
+                "--target",
+                "PE",
+                "-D",
+                "1000000",
+            ],
+            &["memory", "GiB", "-D"],
+        ),
+    ];
+    for (args, words) in cases {
+        let mut args = args.to_vec();
+        args.push("--quiet");
+        let (code, err) = kernlake(&args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        for w in *words {
+            assert!(err.contains(w), "{args:?} should name '{w}': {err}");
+        }
+        assert!(
+            !err.contains("nonexistent"),
+            "{args:?} read data first: {err}"
+        );
+        assert_eq!(err.trim().lines().count(), 1, "{args:?}: {err}");
     }
 }
 

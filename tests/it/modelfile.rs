@@ -178,6 +178,11 @@ fn every_truncation_is_a_clean_error() {
         let (result, panicked) = decode_watching_panics(&bytes[..len], origin);
         assert!(!panicked, "length {len} made the decoder panic");
         let message = model_error_message(result, origin);
+        // Issue 20: one short sentence, no decoder trace.
+        assert!(
+            message.len() <= 300 && !message.contains('\n'),
+            "length {len}: {message}"
+        );
         if len == 0 {
             assert!(message.contains("empty"), "{message}");
         } else if len >= 6 {
@@ -204,7 +209,11 @@ fn every_byte_flip_errors_cleanly_or_loads_the_same_model() {
                 Ok(loaded) => assert_bit_identical(&loaded, &model),
                 Err(Error::ModelFile { path, message }) => {
                     assert_eq!(path, origin);
-                    assert!(!message.is_empty());
+                    // Issue 20: one short sentence, no 600-character decoder trace.
+                    assert!(
+                        !message.is_empty() && message.len() <= 300 && !message.contains('\n'),
+                        "byte {i} ^ {mask:#x}: {message}"
+                    );
                     refused += 1;
                     checksum_failures += usize::from(message.contains("fails its checksum"));
                 }

@@ -627,10 +627,7 @@ fn bad_input_gives_typed_errors() {
     });
     assert!(matches!(
         r,
-        Err(Error::InvalidParameter {
-            name: "cache_bytes",
-            ..
-        })
+        Err(Error::InvalidParameter { name: "cache", .. })
     ));
     assert!(with(SmoSettings {
         cache_bytes: 2 * 20 * 8,

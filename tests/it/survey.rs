@@ -340,3 +340,43 @@ fn a_column_with_no_value_at_all_is_named() {
     let err = survey(&reader, &settings, &|_| {}).unwrap_err().to_string();
     assert!(err.contains("'dead'") && err.contains("300"), "{err}");
 }
+
+#[test]
+fn an_input_whose_values_overflow_is_an_error_naming_it() {
+    // Issue 20: AT = 1e308 in every other row made the survey's sd infinite and AT
+    // silently useless. Its sum of squares overflows f64 (about 1.8e308, IEEE 754), so
+    // the survey must fail naming the column. Data: CCPP (dataset: Tüfekci 2014).
+    let dir = tempfile::tempdir().unwrap();
+    let rows = ccpp();
+    let names: Vec<String> = ["AT", "V", "AP", "RH", "PE"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+    let mut cols: Vec<Vec<f64>> = (0..5)
+        .map(|j| rows[..400].iter().map(|r| r[j]).collect())
+        .collect();
+    for (i, v) in cols[0].iter_mut().enumerate() {
+        if i % 2 == 0 {
+            *v = 1e308;
+        }
+    }
+    let path = dir.path().join("part.parquet");
+    crate::common::write_parquet(&path, &names, &cols);
+    let files = discover(&[path.to_string_lossy().into_owned()]).unwrap();
+    let sel = ColumnSelection {
+        target: Some("PE".into()),
+        ..Default::default()
+    };
+    let columns = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
+    let reader = TableReader::new(files, columns);
+    let settings = SurveySettings {
+        sample_rows: 100,
+        seed: 0,
+        threads: 1,
+    };
+    let err = survey(&reader, &settings, &|_| {}).unwrap_err();
+    assert!(matches!(err, kernlake::Error::Overflow { .. }), "{err:?}");
+    let text = err.to_string();
+    assert!(text.contains("'AT'"), "{text}");
+    assert_eq!(text.lines().count(), 1, "{text}");
+}

@@ -87,7 +87,7 @@ pub fn fit(
     assert_eq!(y.len(), n, "fit: {n} feature rows but {} targets", y.len());
     settings.validate()?;
     if block_rows == 0 {
-        return Err(Error::invalid("block_rows", "must be at least 1"));
+        return Err(Error::invalid("block rows", "must be at least 1"));
     }
     let (mean, sd) = match target_scale(z, y)? {
         TargetScaling::Constant(fit) => return Ok(fit),

@@ -222,7 +222,7 @@ fn check_settings(settings: &SmoSettings, n: usize) -> Result<()> {
     }
     if RowCache::rows_in_budget(settings.cache_bytes, n) < 2.min(n) {
         return Err(Error::invalid(
-            "cache_bytes",
+            "cache",
             format!(
                 "{} bytes cannot hold two kernel rows of {} rows (need at least {} bytes)",
                 settings.cache_bytes,
