@@ -9,6 +9,7 @@ mod common;
 mod data_sources;
 mod dcd;
 mod demo_data;
+mod durability;
 mod features;
 mod foundation;
 mod kernel;
