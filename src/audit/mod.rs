@@ -208,6 +208,47 @@ impl AuditOptions {
     }
 }
 
+/// A bound on the memory of an audit's largest approximate machine on `rows` sample rows,
+/// in bytes: its mapped sample (rows × D), the Newton solver's three (D + 1)² matrices,
+/// and one such machine per thread at a time.
+pub fn memory_estimate(dims: &[usize], rows: usize, threads: usize) -> u64 {
+    let d = dims.iter().copied().max().unwrap_or(0) as u64 + 1;
+    let one = d
+        .saturating_mul(d)
+        .saturating_mul(8 * 3)
+        .saturating_add((rows as u64).saturating_mul(d).saturating_mul(8));
+    let threads = if threads == 0 {
+        crate::settings::processors()
+    } else {
+        threads
+    };
+    one.saturating_mul(threads as u64)
+}
+
+/// Refuses an audit whose largest D would not fit in this machine's memory on `rows`
+/// sample rows, with the estimate and the flag to change; checked before any data is read.
+///
+/// # Errors
+/// [`Error::InvalidParameter`] naming `--dims`.
+pub fn check_memory(dims: &[usize], rows: usize, threads: usize) -> Result<()> {
+    let Some(total) = crate::settings::physical_memory() else {
+        return Ok(());
+    };
+    let need = memory_estimate(dims, rows, threads);
+    if need > total {
+        return Err(Error::invalid(
+            "dims",
+            format!(
+                "an audit up to D = {} on {rows} sample rows needs about {} of memory (mapped samples and D × D matrices, one machine per thread), more than this machine's {}; lower --dims (or --sample, --threads)",
+                dims.iter().copied().max().unwrap_or(0),
+                crate::settings::gib(need),
+                crate::settings::gib(total)
+            ),
+        ));
+    }
+    Ok(())
+}
+
 /// Accuracy of one machine on the check part, in target units.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
 pub struct Accuracy {

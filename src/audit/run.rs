@@ -57,6 +57,7 @@ pub fn audit_with_progress(
         y.len()
     );
     opts.validate()?;
+    super::check_memory(&opts.dims, x.nrows(), opts.threads)?;
     let maps = opts.resolved_maps()?;
     let mut sizes = opts.dims.clone();
     sizes.sort_unstable();

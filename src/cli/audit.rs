@@ -126,6 +126,7 @@ pub fn run(a: AuditArgs, quiet: bool) -> Result<i32> {
         super::args::check_output(path)?;
     }
     crate::settings::check_threads(a.threads, a.oversubscribe)?;
+    crate::audit::check_memory(&a.dims, a.sample, a.threads)?;
     let model = a.model.as_deref().map(Model::load).transpose()?;
     let target = match (&a.target, &model) {
         (Some(t), _) => t.clone(),

@@ -301,6 +301,17 @@ fn score_tune_and_audit_check_their_numbers_before_reading() {
         ),
         (
             &[
+                "audit",
+                "/nonexistent/lake",
+                "--target",
+                "PE",
+                "--dims",
+                "100000",
+            ],
+            &["memory", "GiB", "--dims"],
+        ),
+        (
+            &[
                 "fit",
                 "/nonexistent/lake",
                 "--target",
