@@ -90,6 +90,19 @@ pub(crate) fn physical_memory() -> Option<u64> {
     Some(kib.saturating_mul(1024))
 }
 
+/// Refuses a run that needs more than this machine's physical memory: `need` bytes
+/// estimated, `message` says what needs it given the need and the total as text.
+pub(crate) fn check_memory(
+    name: &'static str,
+    need: u64,
+    message: impl FnOnce(String, String) -> String,
+) -> Result<()> {
+    match physical_memory() {
+        Some(total) if need > total => Err(Error::invalid(name, message(gib(need), gib(total)))),
+        _ => Ok(()),
+    }
+}
+
 pub(crate) fn gib(bytes: u64) -> String {
     format!("{:.1} GiB", bytes as f64 / (1u64 << 30) as f64)
 }

@@ -231,22 +231,13 @@ pub fn memory_estimate(dims: &[usize], rows: usize, threads: usize) -> u64 {
 /// # Errors
 /// [`Error::InvalidParameter`] naming `--dims`.
 pub fn check_memory(dims: &[usize], rows: usize, threads: usize) -> Result<()> {
-    let Some(total) = crate::settings::physical_memory() else {
-        return Ok(());
-    };
     let need = memory_estimate(dims, rows, threads);
-    if need > total {
-        return Err(Error::invalid(
-            "dims",
-            format!(
-                "an audit up to D = {} on {rows} sample rows needs about {} of memory (mapped samples and D × D matrices, one machine per thread), more than this machine's {}; lower --dims (or --sample, --threads)",
-                dims.iter().copied().max().unwrap_or(0),
-                crate::settings::gib(need),
-                crate::settings::gib(total)
-            ),
-        ));
-    }
-    Ok(())
+    crate::settings::check_memory("dims", need, |need, total| {
+        format!(
+            "an audit up to D = {} on {rows} sample rows needs about {need} of memory (mapped samples and D × D matrices, one machine per thread), more than this machine's {total}; lower --dims (or --sample, --threads)",
+            dims.iter().copied().max().unwrap_or(0)
+        )
+    })
 }
 
 /// Accuracy of one machine on the check part, in target units.

@@ -10,7 +10,7 @@ use serde::{Deserialize, Serialize};
 use crate::error::{Error, Result};
 use crate::features::{MapKind, MapSpec};
 use crate::kernel::{Kernel, KernelKind};
-use crate::settings::{check_threads, defaults, gib, physical_memory, processors, MIN_SAMPLE};
+use crate::settings::{check_threads, defaults, processors, MIN_SAMPLE};
 use crate::solver::blocks::Method;
 use crate::solver::dcd::Loss;
 
@@ -214,22 +214,13 @@ impl FitOptions {
     }
 
     fn check_memory(&self) -> Result<()> {
-        let Some(total) = physical_memory() else {
-            return Ok(());
-        };
         // Inputs are not known yet: 64 is generous for sensor tables and small next to D.
         let need = self.memory_estimate(64);
-        if need > total {
-            return Err(Error::invalid(
-                "dim",
-                format!(
-                    "a fit with D = {} needs about {} of memory (its D × D matrices and Hessian sample), more than this machine's {}; lower -D (or --hessian-rows, --memory)",
-                    self.map.dim,
-                    gib(need),
-                    gib(total)
-                ),
-            ));
-        }
-        Ok(())
+        crate::settings::check_memory("dim", need, |need, total| {
+            format!(
+                "a fit with D = {} needs about {need} of memory (its D × D matrices and Hessian sample), more than this machine's {total}; lower -D (or --hessian-rows, --memory)",
+                self.map.dim
+            )
+        })
     }
 }

@@ -197,22 +197,12 @@ impl TuneOptions {
     }
 
     fn check_memory(&self) -> Result<()> {
-        let Some(total) = crate::settings::physical_memory() else {
-            return Ok(());
-        };
-        let need = self.memory_estimate();
-        if need > total {
-            return Err(Error::invalid(
-                "max dim",
-                format!(
-                    "a search up to D = {} needs about {} of memory (its D × D matrices and mapped sample), more than this machine's {}; lower --max-dim (or --refine-dim)",
-                    self.max_dim.max(self.refine_dim),
-                    crate::settings::gib(need),
-                    crate::settings::gib(total)
-                ),
-            ));
-        }
-        Ok(())
+        crate::settings::check_memory("max dim", self.memory_estimate(), |need, total| {
+            format!(
+                "a search up to D = {} needs about {need} of memory (its D × D matrices and mapped sample), more than this machine's {total}; lower --max-dim (or --refine-dim)",
+                self.max_dim.max(self.refine_dim)
+            )
+        })
     }
 
     /// The D values of the doubling search: `dim`, 2·`dim`, … up to `max_dim`.

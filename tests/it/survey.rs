@@ -308,6 +308,30 @@ fn sample_key_is_splitmix64() {
     assert_eq!(kernlake::data::sample_key(0, 2), 0x06C4_5D18_8009_454F);
 }
 
+/// The survey (100 sample rows, seed 0, one thread) of one Parquet file of `cols` named
+/// `names` written in `dir`, with PE as the target.
+fn survey_one_file(
+    dir: &std::path::Path,
+    names: &[String],
+    cols: &[Vec<f64>],
+) -> kernlake::Result<Survey> {
+    let path = dir.join("part.parquet");
+    crate::common::write_parquet(&path, names, cols);
+    let files = discover(&[path.to_string_lossy().into_owned()]).unwrap();
+    let sel = ColumnSelection {
+        target: Some("PE".into()),
+        ..Default::default()
+    };
+    let columns = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
+    let reader = TableReader::new(files, columns);
+    let settings = SurveySettings {
+        sample_rows: 100,
+        seed: 0,
+        threads: 1,
+    };
+    survey(&reader, &settings, &|_| {})
+}
+
 #[test]
 fn a_column_with_no_value_at_all_is_named() {
     // Issue 20: an all-NaN input chosen by the default input set must be named, not
@@ -323,21 +347,9 @@ fn a_column_with_no_value_at_all_is_named() {
         .map(|j| rows[..300].iter().map(|r| r[j]).collect())
         .collect();
     cols.insert(4, vec![f64::NAN; 300]);
-    let path = dir.path().join("part.parquet");
-    crate::common::write_parquet(&path, &names, &cols);
-    let files = discover(&[path.to_string_lossy().into_owned()]).unwrap();
-    let sel = ColumnSelection {
-        target: Some("PE".into()),
-        ..Default::default()
-    };
-    let columns = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
-    let reader = TableReader::new(files, columns);
-    let settings = SurveySettings {
-        sample_rows: 100,
-        seed: 0,
-        threads: 1,
-    };
-    let err = survey(&reader, &settings, &|_| {}).unwrap_err().to_string();
+    let err = survey_one_file(dir.path(), &names, &cols)
+        .unwrap_err()
+        .to_string();
     assert!(err.contains("'dead'") && err.contains("300"), "{err}");
 }
 
@@ -360,21 +372,7 @@ fn an_input_whose_values_overflow_is_an_error_naming_it() {
             *v = 1e308;
         }
     }
-    let path = dir.path().join("part.parquet");
-    crate::common::write_parquet(&path, &names, &cols);
-    let files = discover(&[path.to_string_lossy().into_owned()]).unwrap();
-    let sel = ColumnSelection {
-        target: Some("PE".into()),
-        ..Default::default()
-    };
-    let columns = resolve_columns(&files, &sel, &CsvOptions::default()).unwrap();
-    let reader = TableReader::new(files, columns);
-    let settings = SurveySettings {
-        sample_rows: 100,
-        seed: 0,
-        threads: 1,
-    };
-    let err = survey(&reader, &settings, &|_| {}).unwrap_err();
+    let err = survey_one_file(dir.path(), &names, &cols).unwrap_err();
     assert!(matches!(err, kernlake::Error::Overflow { .. }), "{err:?}");
     let text = err.to_string();
     assert!(text.contains("'AT'"), "{text}");
