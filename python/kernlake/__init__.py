@@ -438,6 +438,7 @@ def tune(
     dim_tol: float = 0.01,
     kernel: str = "gaussian",
     map: str = "fourier",
+    keep_map: bool = False,
     phase: bool = False,
     kmeans: bool = False,
     loss: str = "l2",
@@ -453,7 +454,9 @@ def tune(
     Returns the record ``kernlake tune --json`` writes, as a dict; with ``heatmap=True``
     a pair ``(record, svg_text)`` with the heat map of validation error over gamma x C.
     Fit with the chosen values: ``kernlake.fit(source, target, gamma=r["best"]["gamma"],
-    c=r["best"]["c"], epsilon=r["best"]["epsilon"], dim=r["chosen_dim"])``.
+    c=r["best"]["c"], epsilon=r["best"]["epsilon"], map=r["chosen_map"],
+    dim=r["chosen_dim"])``. A random ``map`` that does not reach the exact machine at
+    ``max_dim`` gives way to Nyström features unless ``keep_map=True``.
     """
     if not _is_paths(source):
         raise InputError("tune reads files: give a path, folder or glob pattern")
@@ -461,8 +464,8 @@ def tune(
         sample=sample, folds=folds, holdout=holdout, gamma_factors=list(gamma_factors),
         c_factors=list(c_factors), epsilon_factors=list(epsilon_factors),
         exact_rows=exact_rows, max_fits=max_fits, epochs=epochs, sweeps=sweeps,
-        tol=tol, dim=dim, max_dim=max_dim, dim_tol=dim_tol, kernel=kernel, map=map,
-        phase=phase, kmeans=kmeans, loss=loss, seed=seed, threads=threads,
+        tol=tol, dim=dim, max_dim=max_dim, dim_tol=dim_tol, keep_map=keep_map,
+        kernel=kernel, map=map, phase=phase, kmeans=kmeans, loss=loss, seed=seed, threads=threads,
     )
     # The second stage's budget, rows and map dimension: the library's defaults unless given.
     for key, value in (("refine_fits", refine_fits), ("refine_rows", refine_rows),

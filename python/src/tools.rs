@@ -197,6 +197,7 @@ const TUNE_KEYS: &[&str] = &[
     "dim",
     "max_dim",
     "dim_tol",
+    "keep_map",
     "kernel",
     "map",
     "phase",
@@ -257,6 +258,7 @@ pub fn tune_files<'py>(
     o.map.dim = o.dim;
     o.max_dim = get(settings, "max_dim")?.unwrap_or(o.max_dim);
     o.dim_tol = get(settings, "dim_tol")?.unwrap_or(o.dim_tol);
+    o.map_fallback = !get::<bool>(settings, "keep_map")?.unwrap_or(false);
     o.seed = get(settings, "seed")?.unwrap_or(o.seed);
     o.map.seed = o.seed;
     let threads: usize = get(settings, "threads")?.unwrap_or(0);

@@ -80,6 +80,15 @@ def test_tune_returns_the_clis_json_record(cli, ccpp_lake, tmp_path):
                              max_dim=64, gamma_factors=[0.5, 1], c_factors=[1, 10],
                              epsilon_factors=[1], heatmap=True)
     assert "<svg" in svg
+    # keep_map=True is the command line's --keep-map: only the random map is tried.
+    cli("tune", ccpp_lake, "--target", "PE", "--sample", "800", "--seed", "2", "--threads", "1",
+        "-D", "64", "--max-dim", "64", "--gamma-factors", "0.5,1", "--c-factors", "1,10",
+        "--epsilon-factors", "1", "--keep-map", "--json", out)
+    kept = kernlake.tune(str(ccpp_lake), "PE", sample=800, seed=2, threads=1, dim=64, max_dim=64,
+                         gamma_factors=[0.5, 1], c_factors=[1, 10], epsilon_factors=[1],
+                         keep_map=True)
+    _same_but_times(kept, json.loads(out.read_text()))
+    assert {d["map"] for d in kept["dims"]} == {"fourier"}
 
 
 def _same_but_times(a, b, where="record"):

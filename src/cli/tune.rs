@@ -111,9 +111,14 @@ pub struct TuneArgs {
     /// Kernel family.
     #[arg(long, value_enum, default_value = "gaussian")]
     pub kernel: KernelArg,
-    /// Feature map.
+    /// Feature map. When a random map (fourier, orthogonal) does not agree with the exact
+    /// machine at any D up to --max-dim, Nyström maps are tried too (see --keep-map).
     #[arg(long, value_enum, default_value = "fourier")]
     pub map: MapArg,
+    /// Keep --map even when it does not agree with the exact machine at --max-dim,
+    /// instead of trying Nyström maps (which cost about D² operations a row to fit).
+    #[arg(long)]
+    pub keep_map: bool,
     /// Fourier features as cos + random phase instead of sin/cos pairs.
     #[arg(long)]
     pub phase: bool,
@@ -153,6 +158,14 @@ impl TuneArgs {
 
     fn map_spec(&self, components: usize) -> MapSpec {
         super::args::map_spec(self.map, components, self.phase, self.kmeans, self.seed)
+    }
+
+    /// The map the search chose: the options' map with the chosen family and D.
+    fn chosen_spec(&self, r: &TuneReport) -> MapSpec {
+        MapSpec {
+            kind: r.chosen_map,
+            ..self.map_spec(r.chosen_dim)
+        }
     }
 
     fn loss(&self) -> Loss {
@@ -205,6 +218,7 @@ impl TuneArgs {
             dim: self.dim,
             max_dim: self.max_dim,
             dim_tol: self.dim_tol,
+            map_fallback: !self.keep_map,
             seed: self.seed,
             rows_total: rows,
         }
@@ -215,7 +229,7 @@ impl TuneArgs {
         FitOptions {
             kernel: self.kernel(),
             gamma: Some(r.best.gamma),
-            map: self.map_spec(r.chosen_dim),
+            map: self.chosen_spec(r),
             c: Some(r.best.c),
             epsilon: Some(r.best.epsilon),
             loss: self.loss(),
@@ -243,7 +257,7 @@ impl TuneArgs {
             flag("--delimiter", self.src.delimiter.to_string());
         }
         flag("--kernel", format!("{:?}", self.kernel).to_lowercase());
-        flag("--map", format!("{:?}", self.map).to_lowercase());
+        flag("--map", format!("{:?}", r.chosen_map).to_lowercase());
         flag("-D", r.chosen_dim.to_string());
         flag("--loss", self.loss.clone());
         flag("--gamma", format!("{:e}", r.best.gamma));

@@ -264,6 +264,7 @@ pub fn tune(x: ArrayView2<f64>, y: ArrayView1<f64>, opts: &TuneOptions) -> Resul
         max_fits: opts.max_fits,
         extensions: search.extensions,
         budget_reached: search.budget_reached,
+        chosen_map: dims[chosen].map,
         chosen_dim: dims[chosen].dim,
         chosen_error: dims[chosen].error,
         dims,

@@ -63,6 +63,9 @@ pub struct TuneOptions {
     pub dim: usize,
     /// Largest D tried when doubling.
     pub max_dim: usize,
+    /// When the options' map is a random one (Fourier, orthogonal) and no D up to
+    /// `max_dim` agrees with the reference machine, try Nyström maps on the same ladder.
+    pub map_fallback: bool,
     /// D agrees with the exact machine when its validation RMSE is at most this share
     /// above the exact machine's.
     pub dim_tol: f64,
@@ -93,6 +96,7 @@ impl Default for TuneOptions {
             tol: 1e-3,
             dim: 256,
             max_dim: 4096,
+            map_fallback: true,
             dim_tol: 0.01,
             seed: 0,
             rows_total: None,

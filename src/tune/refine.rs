@@ -24,7 +24,7 @@ use ndarray_linalg::{FactorizeC, SolveC, UPLO};
 use rayon::prelude::*;
 
 use crate::error::{Error, Result};
-use crate::features::{build_map, MapSpec};
+use crate::features::{build_map, MapKind, MapSpec};
 use crate::heuristics::Defaults;
 use crate::kernel::Kernel;
 use crate::solver::dcd::Loss;
@@ -151,7 +151,7 @@ enum OnMap {
     },
 }
 
-/// Every (C, epsilon) pair at `gamma` on the map with D = `dim` on every fold (squared
+/// Every (C, epsilon) pair at `gamma` on the map `spec` on every fold (squared
 /// loss), chains of increasing C per epsilon warm-started as on the exact machine; the
 /// folds run in parallel, each fold's result is independent of the others.
 #[allow(clippy::too_many_arguments)]
@@ -160,21 +160,45 @@ pub(crate) fn score_on_map(
     folds: &Folds,
     exact: &[ExactFold],
     gamma: f64,
-    dim: usize,
+    spec: &MapSpec,
     cs: &[(f64, f64)],
     eps: &[(f64, f64)],
     gamma_factor: f64,
 ) -> Result<Vec<Scored>> {
     let kernel = Kernel::new(opts.kernel, gamma)?;
     let spec = MapSpec {
-        dim,
         seed: opts.seed,
-        ..opts.map.clone()
+        ..spec.clone()
     };
-    let map = build_map(&spec, kernel, folds.x.ncols(), Some(folds.x.view()))?;
+    // Nyström landmarks come from each fold's training rows, as a fit's come from its
+    // own rows: a validation row that is also a landmark would be predicted as by the
+    // exact machine and flatter the map. Random maps do not look at the rows; one
+    // serves every fold.
+    let shared = match spec.kind {
+        MapKind::Nystrom => None,
+        _ => Some(build_map(
+            &spec,
+            kernel,
+            folds.x.ncols(),
+            Some(folds.x.view()),
+        )?),
+    };
     let per_fold: Vec<Vec<(f64, u64, bool)>> = exact
         .par_iter()
-        .map(|fold| {
+        .map(|fold| -> Result<Vec<(f64, u64, bool)>> {
+            let own;
+            let map = match &shared {
+                Some(m) => m.as_ref(),
+                None => {
+                    own = build_map(
+                        &spec,
+                        kernel,
+                        fold.x_train.ncols(),
+                        Some(fold.x_train.view()),
+                    )?;
+                    own.as_ref()
+                }
+            };
             let ones = |a: Array2<f64>| {
                 let one = Array2::ones((a.nrows(), 1));
                 concatenate(Axis(1), &[a.view(), one.view()]).expect("same rows")
@@ -225,9 +249,9 @@ pub(crate) fn score_on_map(
                     });
                 }
             }
-            out
+            Ok(out)
         })
-        .collect();
+        .collect::<Result<_>>()?;
     let mut scored = Vec::with_capacity(cs.len() * eps.len());
     for (ei, &(ef, _)) in eps.iter().enumerate() {
         for (ci, &(cf, _)) in cs.iter().enumerate() {
@@ -279,7 +303,13 @@ pub(crate) fn refine(
                 let kernel = Kernel::new(opts.kernel, d.gamma * gf)?;
                 score_gamma(&exact, &kernel, Loss::L2, cs, eps, gf)
             }
-            Some(dm) => score_on_map(opts, &folds, &exact, d.gamma * gf, dm, cs, eps, gf),
+            Some(dm) => {
+                let spec = MapSpec {
+                    dim: dm,
+                    ..opts.map.clone()
+                };
+                score_on_map(opts, &folds, &exact, d.gamma * gf, &spec, cs, eps, gf)
+            }
         }
     };
     let rows: Vec<usize> = exact.iter().map(|f| f.y_val.len()).collect();

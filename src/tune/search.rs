@@ -78,7 +78,7 @@ impl Folds {
     }
 
     /// Rows outside validation range `f`.
-    fn train_rows(&self, f: usize) -> Vec<usize> {
+    pub(crate) fn train_rows(&self, f: usize) -> Vec<usize> {
         let r = &self.ranges[f];
         (0..r.start).chain(r.end..self.x.nrows()).collect()
     }

@@ -5,6 +5,7 @@ mod accuracy;
 mod hint;
 
 use crate::common::{self, ccpp, friedman1, rmse};
+use kernlake::features::MapKind;
 use kernlake::fit::Fitter;
 use kernlake::tune::{
     cherkassky_ma, heatmap_svg, median_gamma, tune, Defaults, TuneOptions, TuneReport, Validation,
@@ -332,6 +333,30 @@ fn command_line_tune_writes_report_heatmap_and_model() {
     assert_eq!(m.report.gamma.value, r.best.gamma);
     assert_eq!(m.report.c.value, r.best.c);
     assert_eq!(m.report.features, r.chosen_dim);
+    // The fit uses the map family the search chose (Nyström when random features up to
+    // --max-dim stay short of the exact machine), and the printed command says so.
+    assert_eq!(m.map_spec.kind, r.chosen_map);
+    let spelled = format!("--map {}", format!("{:?}", r.chosen_map).to_lowercase());
+    assert!(out.contains(&spelled), "{out}");
+    assert_eq!(r.dims[0].map, MapKind::Fourier);
+
+    // --keep-map: only the options' map is tried.
+    let o = std::process::Command::new(bin)
+        .args(["tune", lake.to_str().unwrap(), "--target", "PE", "-q"])
+        .args(["-D", "32", "--max-dim", "64", "--max-fits", "6"])
+        .args(["--gamma-factors", "0.5,1,2", "--c-factors", "0.3,1"])
+        .args(["--epsilon-factors", "1", "--seed", "4", "--keep-map"])
+        .args(["--json", json.to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let k: TuneReport = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
+    assert!(
+        k.dims.iter().all(|d| d.map == MapKind::Fourier),
+        "{:?}",
+        k.dims
+    );
+    assert_eq!(k.chosen_map, MapKind::Fourier);
 
     // Issue 20: the old flag names are refused with a pointer to the new ones, and a
     // largest D below the first is refused before any data is read.

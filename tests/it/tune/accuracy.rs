@@ -1,7 +1,7 @@
 //! Issue 14: the search must find what a brute-force search finds, compare only trained
 //! models, and never lose to the defaults; each check names its source.
 
-use kernlake::features::{build_map, MapSpec};
+use kernlake::features::{build_map, MapKind, MapSpec};
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
 use kernlake::tune::exact::solve_l2;
@@ -21,7 +21,7 @@ pub(super) fn airfoil() -> (Array2<f64>, Array1<f64>) {
 
 /// Concrete compressive strength (dataset: Yeh, Cement and Concrete Research 28, 1998):
 /// eight inputs, strength (MPa) last; comma separated with a header.
-fn concrete() -> (Array2<f64>, Array1<f64>) {
+pub(super) fn concrete() -> (Array2<f64>, Array1<f64>) {
     table("concrete_yeh1998.csv", ',', true)
 }
 
@@ -56,8 +56,9 @@ pub(super) fn split(
     )
 }
 
-/// Held-out RMSE of the squared-loss fit at (gamma, C, epsilon) on D random Fourier
-/// features: the fit's problem (inputs standardized on the training rows, targets
+/// Held-out RMSE of the squared-loss fit at (gamma, C, epsilon) on D features of the map
+/// `kind` (Nyström landmarks drawn from the training rows, as a fit draws them from its
+/// sample): the fit's problem (inputs standardized on the training rows, targets
 /// standardized, the bias a constant regularised feature), solved through the Gram
 /// matrix of the mapped training rows, which is the same minimisation in n unknowns.
 /// One map per gamma serves every (C, epsilon) pair.
@@ -74,13 +75,14 @@ impl OnMap {
         train: (&Array2<f64>, &Array1<f64>),
         test: &Array2<f64>,
         gamma: f64,
-        d: usize,
+        (kind, d): (MapKind, usize),
     ) -> OnMap {
         let scaler = Standardizer::fit(train.0.view());
         let (mut xs, mut xt) = (train.0.clone(), test.clone());
         scaler.apply(xs.view_mut());
         scaler.apply(xt.view_mut());
         let spec = MapSpec {
+            kind,
             dim: d,
             seed: 4,
             ..MapSpec::default()
@@ -117,47 +119,63 @@ fn tuned_rmse(
     train: (&Array2<f64>, &Array1<f64>),
     test: (&Array2<f64>, &Array1<f64>),
 ) -> f64 {
-    OnMap::new(train, test.0, r.best.gamma, r.chosen_dim).rmse(r.best.c, r.best.epsilon, test.1)
+    OnMap::new(train, test.0, r.best.gamma, (r.chosen_map, r.chosen_dim)).rmse(
+        r.best.c,
+        r.best.epsilon,
+        test.1,
+    )
 }
 
-#[test]
-#[ignore = "issue 14: does not hold yet; airfoil measured 2.491 (second stage on all rows: gamma ×4, C ×3.16, D = 4,096) against the dense grid's 2.377 (gamma ×8, picked on the test rows themselves); was 2.545 with the exact stage alone. At D = 4,096 the map on 1,203 rows still differs from the exact machine by 7% (2.53 against 2.37 on validation)"]
-fn airfoil_and_concrete_tuned_within_two_percent_of_a_dense_grid() {
-    // Issue 14 check: the smart search must find what a brute-force search finds. The
-    // dense grid (gamma × 2^k, k = −3…5; C × 10^k, k = −2…2; epsilon × {¼, 1, 4}; D =
-    // 4,096) is scored on the held-out rows themselves, so its best is an upper bound
-    // on what any choice from it could reach. Datasets: Brooks, Pope & Marcolini (1989);
-    // Yeh (1998).
-    for (name, (x, y)) in [("airfoil", airfoil()), ("concrete", concrete())] {
-        let (xtr, ytr, xte, yte) = split(&x, &y, 14);
-        let r = tune(xtr.view(), ytr.view(), &TuneOptions::default()).unwrap();
-        let tuned = tuned_rmse(&r, (&xtr, &ytr), (&xte, &yte));
-        let d = r.defaults;
-        let mut best = (f64::INFINITY, 0.0, 0.0, 0.0);
-        for k in -3..=5 {
-            let g = d.gamma * 2f64.powi(k);
-            let m = OnMap::new((&xtr, &ytr), &xte, g, 4_096);
-            for j in -2..=2 {
-                let c = d.c * 10f64.powi(j);
-                for e in [0.25, 1.0, 4.0] {
-                    let v = m.rmse(c, d.epsilon * e, &yte);
-                    if v < best.0 {
-                        best = (v, 2f64.powi(k), 10f64.powi(j), e);
-                    }
+/// Issue 14 check: the smart search must find what a brute-force search finds. The dense
+/// grid (gamma × 2^k, k = −3…5; C × 10^k, k = −2…2; epsilon × {¼, 1, 4}; random Fourier
+/// features, D = 4,096) is scored on the held-out rows themselves, so its best is an
+/// upper bound on what any choice from it could reach.
+fn within_two_percent_of_a_dense_grid(name: &str, x: &Array2<f64>, y: &Array1<f64>) {
+    let (xtr, ytr, xte, yte) = split(x, y, 14);
+    let r = tune(xtr.view(), ytr.view(), &TuneOptions::default()).unwrap();
+    let tuned = tuned_rmse(&r, (&xtr, &ytr), (&xte, &yte));
+    let d = r.defaults;
+    let mut best = (f64::INFINITY, 0.0, 0.0, 0.0);
+    for k in -3..=5 {
+        let g = d.gamma * 2f64.powi(k);
+        let m = OnMap::new((&xtr, &ytr), &xte, g, (MapKind::Fourier, 4_096));
+        for j in -2..=2 {
+            let c = d.c * 10f64.powi(j);
+            for e in [0.25, 1.0, 4.0] {
+                let v = m.rmse(c, d.epsilon * e, &yte);
+                if v < best.0 {
+                    best = (v, 2f64.powi(k), 10f64.powi(j), e);
                 }
             }
         }
-        eprintln!(
-            "{name}: tuned {tuned:.4} (gamma ×{:.3}, C ×{:.3}, epsilon ×{:.3}, D = {}, {:.1} s); dense grid best {:.4} (gamma ×{}, C ×{}, epsilon ×{})",
-            r.best.factors[0], r.best.factors[1], r.best.factors[2], r.chosen_dim, r.seconds,
-            best.0, best.1, best.2, best.3
-        );
-        assert!(
-            tuned <= 1.02 * best.0,
-            "{name}: tuned held-out RMSE {tuned} more than 2% above the dense grid's best {}",
-            best.0
-        );
     }
+    eprintln!(
+        "{name}: tuned {tuned:.4} (gamma ×{:.3}, C ×{:.3}, epsilon ×{:.3}, {:?} D = {}, {:.1} s); dense grid best {:.4} (gamma ×{}, C ×{}, epsilon ×{})",
+        r.best.factors[0], r.best.factors[1], r.best.factors[2], r.chosen_map, r.chosen_dim, r.seconds,
+        best.0, best.1, best.2, best.3
+    );
+    assert!(
+        tuned <= 1.02 * best.0,
+        "{name}: tuned held-out RMSE {tuned} more than 2% above the dense grid's best {}",
+        best.0
+    );
+}
+
+#[test]
+fn airfoil_tuned_within_two_percent_of_a_dense_grid() {
+    // Dataset: Brooks, Pope & Marcolini (1989). Random features stay about 7% from the
+    // exact machine at D = 4,096 here (the dense grid's best is 2.377); the search
+    // falls back to Nyström features, which reproduce it.
+    let (x, y) = airfoil();
+    within_two_percent_of_a_dense_grid("airfoil", &x, &y);
+}
+
+#[test]
+#[ignore = "issue 14: does not hold on this split; 5.484 measured (3-fold search: gamma ×0.25, C ×31.6, picked by the one-standard-error rule from the lowest, gamma ×0.5, C ×31.6, whose exact machine scores 4.920 held out) against the dense grid's 4.641 (gamma ×4, C ×10, picked on the test rows); with 10 folds the search still ranks gamma ×0.5 first (4.960)"]
+fn concrete_tuned_within_two_percent_of_a_dense_grid() {
+    // Dataset: Yeh (1998).
+    let (x, y) = concrete();
+    within_two_percent_of_a_dense_grid("concrete", &x, &y);
 }
 
 #[test]
@@ -182,11 +200,12 @@ fn tuned_never_worse_than_defaults_beyond_the_folds_standard_error() {
             let r = tune(xtr.view(), ytr.view(), &opts).unwrap();
             let tuned = tuned_rmse(&r, (&xtr, &ytr), (&xte, &yte));
             let d = r.defaults;
-            let def = OnMap::new((&xtr, &ytr), &xte, d.gamma, 1_024).rmse(d.c, d.epsilon, &yte);
+            let def = OnMap::new((&xtr, &ytr), &xte, d.gamma, (MapKind::Fourier, 1_024))
+                .rmse(d.c, d.epsilon, &yte);
             let se = r.refinement.as_ref().map_or(r.default.se, |f| f.default.se);
             eprintln!(
-                "{name} split {seed}: tuned {tuned:.4} (gamma ×{:.3}, C ×{:.3}, D = {}), defaults {def:.4} (folds' s.e. {se:.4})",
-                r.best.factors[0], r.best.factors[1], r.chosen_dim
+                "{name} split {seed}: tuned {tuned:.4} (gamma ×{:.3}, C ×{:.3}, {:?} D = {}), defaults {def:.4} (folds' s.e. {se:.4})",
+                r.best.factors[0], r.best.factors[1], r.chosen_map, r.chosen_dim
             );
             assert!(
                 tuned <= def + se,
@@ -223,7 +242,7 @@ fn ccpp_no_candidate_is_compared_before_it_is_trained() {
 }
 
 #[test]
-#[ignore = "issue 14: does not hold on this split; 4.108 MW measured (was 4.163), gamma ×8, D = 1,024; on this split no gamma × {1…16}, C × {0.1…100} at D = 1,024 fits below 4.107 and gamma ×8 at D = 4,096 gives 4.055, so 3.85 is out of reach by the choice of parameters here"]
+#[ignore = "issue 14: does not hold on this split; 4.108 MW measured (was 4.163), gamma ×8, D = 1,024; on this split no gamma × {1…16}, C × {0.1…100} at D = 1,024 fits below 4.107 and gamma ×8 at D = 4,096 gives 4.055, so 3.85 is out of reach by the choice of parameters here: the exact kernel machine on all 7,654 training rows scores 4.000 at its best (gamma ×8, C ×1, picked on the test rows from gamma ×{4, 8} × C ×{1, 3.16, 10})"]
 fn ccpp_tune_fit_scores_within_the_published_range() {
     // dataset: Tüfekci (2014), CCPP; the paper's best RMSE is about 3.79 MW (from
     // memory), issue 14 asks ≤ 3.85 MW for `tune --fit` on a seeded 80/20 split.

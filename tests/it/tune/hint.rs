@@ -1,6 +1,7 @@
 //! The fit's quick gamma check (issue 14): when the exact machine on a sample at gamma ×4
 //! is clearly better, `kernlake fit` says so and points to `kernlake tune`.
 
+use kernlake::features::MapKind;
 use kernlake::kernel::Kernel;
 use kernlake::scale::Standardizer;
 use kernlake::solver::dcd::Loss;
@@ -44,7 +45,9 @@ fn the_gamma_check_finds_the_narrower_kernel_on_airfoil() {
         "{}",
         hint.message()
     );
-    let held_out = |g: f64| OnMap::new((&xtr, &ytr), &xte, g, 4_096).rmse(c, d.epsilon, &yte);
+    let held_out = |g: f64| {
+        OnMap::new((&xtr, &ytr), &xte, g, (MapKind::Fourier, 4_096)).rmse(c, d.epsilon, &yte)
+    };
     let (wide, narrow) = (held_out(hint.gamma), held_out(hint.better_gamma));
     eprintln!(
         "airfoil: check {:.4} → {:.4}; held-out {wide:.4} → {narrow:.4}",
