@@ -68,12 +68,13 @@ impl ExactFold {
         (gram(self.x_train.view()), gram(self.x_val.view()))
     }
 
-    /// Squared validation error of predictions `f` (standardized units).
-    pub fn sse(&self, f: &Array1<f64>) -> f64 {
+    /// Each validation row's squared error (target units) of predictions `f`
+    /// (standardized units).
+    pub fn squared_errors(&self, f: &Array1<f64>) -> Vec<f64> {
         f.iter()
             .zip(&self.y_val)
             .map(|(f, y)| (y - (self.mean + self.sd * f)).powi(2))
-            .sum()
+            .collect()
     }
 }
 
@@ -84,10 +85,30 @@ pub(crate) struct Scored {
     pub factors: [f64; 3],
     /// Squared validation error per fold.
     pub sse: Vec<f64>,
+    /// Each validation row's squared error, folds in order (empty when a fold failed).
+    pub rows: Vec<f64>,
     /// Newton steps (or SMO iterations), largest over folds.
     pub steps: u64,
     /// Every fold's solve met its optimality condition.
     pub converged: bool,
+}
+
+impl Scored {
+    /// Records fold `fi`'s per-row squared errors (`sq` empty when its solve failed:
+    /// the fold's error is then NaN and the rows are dropped, so no paired comparison
+    /// is made). Folds are absorbed in order.
+    pub fn absorb(&mut self, fi: usize, fold_rows: usize, sq: Vec<f64>) {
+        let failed_before = self.sse[..fi].iter().any(|e| e.is_nan());
+        if sq.len() == fold_rows {
+            self.sse[fi] = sq.iter().sum();
+            if !failed_before {
+                self.rows.extend(sq);
+            }
+        } else {
+            self.sse[fi] = f64::NAN;
+            self.rows.clear();
+        }
+    }
 }
 
 /// Evaluates every (C, epsilon) pair at one gamma on every fold of the exact machine:
@@ -108,13 +129,14 @@ pub(crate) fn score_gamma(
             out.push(Scored {
                 factors: [gamma_factor, cf, ef],
                 sse: vec![f64::NAN; folds.len()],
+                rows: Vec::new(),
                 steps: 0,
                 converged: true,
             });
         }
     }
     for (fi, fold) in folds.iter().enumerate() {
-        let per_eps: Vec<Vec<(f64, u64, bool)>> = match loss {
+        let per_eps: Vec<Vec<(Vec<f64>, u64, bool)>> = match loss {
             Loss::L2 => {
                 let (q, qv) = fold.grams(kernel);
                 eps.par_iter()
@@ -131,11 +153,15 @@ pub(crate) fn score_gamma(
                                 ) {
                                     Ok(sol) => {
                                         let f = qv.dot(&sol.beta);
-                                        let r = (fold.sse(&f), sol.steps as u64, sol.converged);
+                                        let r = (
+                                            fold.squared_errors(&f),
+                                            sol.steps as u64,
+                                            sol.converged,
+                                        );
                                         prev = Some(sol.beta);
                                         r
                                     }
-                                    Err(_) => (f64::NAN, 0, false),
+                                    Err(_) => (Vec::new(), 0, false),
                                 }
                             })
                             .collect()
@@ -161,14 +187,14 @@ pub(crate) fn score_gamma(
                             ) {
                                 Ok(fit) => {
                                     let p = fit.model.predict(fold.x_val.view());
-                                    let sse = p
+                                    let sq = p
                                         .iter()
                                         .zip(&fold.y_val)
                                         .map(|(p, y)| (y - p) * (y - p))
-                                        .sum();
-                                    (sse, fit.report.iterations, fit.report.converged)
+                                        .collect();
+                                    (sq, fit.report.iterations, fit.report.converged)
                                 }
-                                Err(_) => (f64::NAN, 0, false),
+                                Err(_) => (Vec::new(), 0, false),
                             }
                         })
                         .collect()
@@ -176,9 +202,9 @@ pub(crate) fn score_gamma(
                 .collect(),
         };
         for (ei, row) in per_eps.into_iter().enumerate() {
-            for (ci, (sse, steps, conv)) in row.into_iter().enumerate() {
+            for (ci, (sq, steps, conv)) in row.into_iter().enumerate() {
                 let s = &mut out[ei * cs.len() + ci];
-                s.sse[fi] = sse;
+                s.absorb(fi, fold.y_val.len(), sq);
                 s.steps = s.steps.max(steps);
                 s.converged &= conv;
             }

@@ -44,8 +44,9 @@
 //! epsilon) within one standard error of the lowest (the one-standard-error rule;
 //! Breiman et al., *Classification and Regression Trees*, 1984; Hastie, Tibshirani &
 //! Friedman, *The Elements of Statistical Learning*, §7.10), where the standard error
-//! is that of the candidate's per-fold differences to the lowest (paired over folds:
-//! the folds' own difficulty cancels, which with 3 folds is most of the spread). The
+//! is that of the candidate's difference to the lowest, paired over the validation rows
+//! (each row's difficulty cancels, and the spread comes from every row rather than
+//! from 3 fold means). The
 //! defaults are a candidate in both stages, so the choice is never worse than them on
 //! validation by more than that standard error; the last stage that ran makes the
 //! choice.

@@ -183,9 +183,9 @@ pub(crate) fn score_on_map(
             Some(folds.x.view()),
         )?),
     };
-    let per_fold: Vec<Vec<(f64, u64, bool)>> = exact
+    let per_fold: Vec<Vec<(Vec<f64>, u64, bool)>> = exact
         .par_iter()
-        .map(|fold| -> Result<Vec<(f64, u64, bool)>> {
+        .map(|fold| -> Result<Vec<(Vec<f64>, u64, bool)>> {
             let own;
             let map = match &shared {
                 Some(m) => m.as_ref(),
@@ -241,27 +241,33 @@ pub(crate) fn score_on_map(
                                 OnMap::Gram { qv, .. } => qv.dot(&sol.beta),
                                 OnMap::Primal { zv, .. } => zv.dot(&sol.beta),
                             };
-                            let r = (fold.sse(&f), sol.steps as u64, sol.converged);
+                            let r = (fold.squared_errors(&f), sol.steps as u64, sol.converged);
                             prev = Some(sol.beta);
                             r
                         }
-                        Err(_) => (f64::NAN, 0, false),
+                        Err(_) => (Vec::new(), 0, false),
                     });
                 }
             }
             Ok(out)
         })
         .collect::<Result<_>>()?;
+    let mut per_fold = per_fold;
     let mut scored = Vec::with_capacity(cs.len() * eps.len());
     for (ei, &(ef, _)) in eps.iter().enumerate() {
         for (ci, &(cf, _)) in cs.iter().enumerate() {
             let k = ei * cs.len() + ci;
-            scored.push(Scored {
+            let mut s = Scored {
                 factors: [gamma_factor, cf, ef],
-                sse: per_fold.iter().map(|f| f[k].0).collect(),
+                sse: vec![f64::NAN; per_fold.len()],
+                rows: Vec::new(),
                 steps: per_fold.iter().map(|f| f[k].1).max().unwrap_or(0),
                 converged: per_fold.iter().all(|f| f[k].2),
-            });
+            };
+            for (fi, (f, fold)) in per_fold.iter_mut().zip(exact).enumerate() {
+                s.absorb(fi, fold.y_val.len(), std::mem::take(&mut f[k].0));
+            }
+            scored.push(s);
         }
     }
     Ok(scored)

@@ -35,8 +35,9 @@ pub struct CandidateResult {
     pub steps: u64,
     /// Every fold's solve met its optimality conditions (trained, not stopped early).
     pub converged: bool,
-    /// Standard error of the per-fold RMSE differences to the lowest candidate (paired
-    /// over folds).
+    /// Standard error of the difference to the lowest candidate's validation RMSE,
+    /// paired over the validation rows (the standard error of the mean difference of the
+    /// two candidates' squared errors, over the sum of their RMSEs).
     pub se_diff: f64,
     /// Its validation RMSE exceeds the lowest one's by at most `se_diff`.
     pub within_one_se: bool,
@@ -109,7 +110,7 @@ pub struct TuneReport {
     pub lowest: CandidateResult,
     /// The chosen candidate: the simplest (smallest gamma, then smallest C, then largest
     /// epsilon) within one standard error of the lowest (the standard error of its
-    /// per-fold differences to the lowest), of the second stage when it ran, else of
+    /// difference to the lowest, paired over rows), of the second stage when it ran, else of
     /// the exact stage.
     pub best: CandidateResult,
     /// Every candidate, lowest validation RMSE first.
@@ -244,7 +245,7 @@ pub fn render_tune(r: &TuneReport, top: usize) -> String {
     candidate_table(&mut s, &r.candidates, &r.best, &r.default, top);
     let _ = writeln!(
         s,
-        "\nchosen: the simplest candidate (smallest gamma, then smallest C, then largest epsilon) within one standard error of the lowest ({:.5}), the one-standard-error rule of cross-validation (common practice), with the standard error of each candidate's per-fold differences to the lowest (diff s.e.)",
+        "\nchosen: the simplest candidate (smallest gamma, then smallest C, then largest epsilon) within one standard error of the lowest ({:.5}), the one-standard-error rule of cross-validation (common practice), with the standard error of each candidate's difference to the lowest, paired over the validation rows (diff s.e.)",
         r.lowest.error
     );
     let default = r.refinement.as_ref().map_or(&r.default, |f| &f.default);

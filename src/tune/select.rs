@@ -89,6 +89,23 @@ fn clearly_lower(a: &Scored, b: Option<&Scored>, rows: &[usize]) -> bool {
     mean.is_nan() || mean > standard_error(&diff)
 }
 
+/// Standard error of the mean of `a − b` (per-row squared errors of two candidates),
+/// in RMSE units: RMSE_a − RMSE_b = (MSE_a − MSE_b) / (RMSE_a + RMSE_b) exactly, so the
+/// standard error of the MSE difference is divided by `rmse_sum`. NaN when the rows do
+/// not pair up (a failed fold).
+fn paired_se(a: &[f64], b: &[f64], rmse_sum: f64) -> f64 {
+    if a.len() != b.len() || a.is_empty() {
+        return f64::NAN;
+    }
+    let d: Vec<f64> = a.iter().zip(b).map(|(x, y)| x - y).collect();
+    let se = standard_error(&d);
+    if rmse_sum > 0.0 {
+        se / rmse_sum
+    } else {
+        0.0
+    }
+}
+
 /// Sample standard deviation over √count (0 for fewer than two values).
 fn standard_error(v: &[f64]) -> f64 {
     if v.len() < 2 {
@@ -225,16 +242,16 @@ pub(crate) fn search(
             lowest.gamma, lowest.c, lowest.epsilon
         )));
     }
-    // Paired over folds: the per-fold RMSE differences to the lowest candidate share
-    // each fold's difficulty, so their standard error measures the comparison itself.
+    // Paired over rows: every validation row is scored by both candidates, so the
+    // differences of their squared errors share each row's difficulty; their standard
+    // error measures the comparison itself, on all the rows rather than on a handful of
+    // fold means (whose spread, from k − 1 degrees of freedom, let a clearly worse model
+    // pass for "within one standard error"). It is known to run low for cross-validation
+    // (Nadeau & Bengio, Machine Learning 52, 2003), which errs toward the lowest.
+    let low_rows = &table[&key(lowest.factors)].rows;
     for c in cands.iter_mut() {
-        let diff: Vec<f64> = c
-            .fold_errors
-            .iter()
-            .zip(&lowest.fold_errors)
-            .map(|(a, b)| a - b)
-            .collect();
-        c.se_diff = standard_error(&diff);
+        let rows = &table[&key(c.factors)].rows;
+        c.se_diff = paired_se(rows, low_rows, c.error + lowest.error);
         c.within_one_se = c.error - lowest.error <= c.se_diff;
     }
     let best = cands
@@ -257,4 +274,75 @@ pub(crate) fn search(
         extensions,
         budget_reached,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn paired_standard_error_worked_case() {
+        // Differences 1, 2, 3, 4: sample sd √(5/3), over √4; then over the RMSE sum 2.
+        let se = paired_se(&[1.0, 2.0, 3.0, 4.0], &[0.0; 4], 2.0);
+        assert!(
+            (se - (5.0f64 / 3.0).sqrt() / 2.0 / 2.0).abs() < 1e-12,
+            "{se}"
+        );
+        assert!(paired_se(&[1.0], &[], 1.0).is_nan());
+    }
+
+    #[test]
+    fn a_candidate_worse_on_most_rows_is_not_within_one_standard_error() {
+        // Three folds of 100 rows. The lowest candidate (gamma ×1) has squared error 10 on
+        // every row; the simpler one (gamma ×0.5) 13 on the first fold's rows and 9 on the
+        // others. Its per-fold RMSE differences (0.443, −0.162, −0.162) have a standard
+        // error of 0.202, above its pooled difference of 0.052, so a rule paired over
+        // folds would take it; paired over the 300 rows the standard error is 0.017.
+        let rows = [100, 100, 100];
+        let score = |gf: f64, cs: &[(f64, f64)], eps: &[(f64, f64)]| -> Result<Vec<Scored>> {
+            let mut out = Vec::new();
+            for &(ef, _) in eps {
+                for &(cf, _) in cs {
+                    let mut s = Scored {
+                        factors: [gf, cf, ef],
+                        sse: vec![f64::NAN; 3],
+                        rows: Vec::new(),
+                        steps: 1,
+                        converged: true,
+                    };
+                    for fi in 0..3 {
+                        let e = if gf > 1.0 {
+                            20.0
+                        } else if gf == 1.0 {
+                            10.0
+                        } else if fi == 0 {
+                            13.0
+                        } else {
+                            9.0
+                        };
+                        s.absorb(fi, 100, vec![e; 100]);
+                    }
+                    out.push(s);
+                }
+            }
+            Ok(out)
+        };
+        let d = Defaults {
+            gamma: 1.0,
+            c: 1.0,
+            epsilon: 0.1,
+            noise_sd: 0.1,
+        };
+        let axes = [
+            Axis3::new(vec![0.5, 1.0]),
+            Axis3::new(vec![1.0]),
+            Axis3::new(vec![1.0]),
+        ];
+        let s = search(axes, 10, &rows, &[], &d, &score).unwrap();
+        assert_eq!(s.lowest.factors[0], 1.0);
+        let simpler = s.candidates.iter().find(|c| c.factors[0] == 0.5).unwrap();
+        assert!((simpler.se_diff - 0.0171).abs() < 5e-4, "{simpler:?}");
+        assert!(!simpler.within_one_se);
+        assert_eq!(s.best.factors[0], 1.0);
+    }
 }
